@@ -1,0 +1,177 @@
+"""Madelung constants in the conventions practitioners mix up, each named.
+
+With r0 the shortest cation–anion distance and E_fu the electrostatic energy per formula
+unit of the reduced composition (k_e the Coulomb constant):
+
+``charges_left_in``
+    E_fu = -M k_e / r0. The ion charges stay inside M (fluorite CaF2: 5.0388, corundum: 25.03).
+``handbook``
+    E_fu = -M z+ z- k_e / r0, with z+ and |z-| the charges of the one cation kind and the one
+    anion kind (fluorite: 2.5194, corundum: 4.172, CaO: 1.7476). Undefined when the structure
+    has more than one kind of cation or anion.
+``common_factor``
+    E_fu = -M Z^2 k_e / r0, with Z the highest common factor of the ion charges (fluorite:
+    5.0388, CaO: 1.7476). Undefined when the charges are not whole multiples of one value.
+``site`` (per site)
+    M_i = -phi_i r0 / (k_e q_i): the site potential in units of k_e q_i / r0, positive for an ion
+    held by its surroundings. Then E = -(k_e / 2 r0) sum_i q_i^2 M_i.
+
+References
+----------
+E. Madelung, Phys. Z. 19 (1918) 524; values of the handbook convention are tabulated in the
+CRC Handbook of Chemistry and Physics ("Madelung constants").
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+
+import numpy as np
+
+from .errors import InputError
+from .units import COULOMB_CONSTANT
+
+CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
+
+CONVENTION_TEXT = {
+    "charges_left_in": "E_fu = -M k_e / r0 (ion charges inside M)",
+    "handbook": "E_fu = -M z+ |z-| k_e / r0 (one cation and one anion kind)",
+    "common_factor": "E_fu = -M Z^2 k_e / r0 (Z: highest common factor of the charges)",
+    "site": "M_i = -phi_i r0 / (k_e q_i) (site potential in units of k_e q_i / r0)",
+}
+
+
+@dataclass(frozen=True)
+class MadelungConstants:
+    """Madelung constants of one crystal.
+
+    Attributes
+    ----------
+    formula : reduced formula (the formula unit).
+    formula_units : formula units in the cell.
+    r0 : shortest cation–anion distance, Å.
+    energy : electrostatic energy of the cell, eV.
+    energy_per_formula_unit : eV.
+    charges_left_in : M with E_fu = -M k_e / r0.
+    handbook : M with E_fu = -M z+ |z-| k_e / r0, or None (see ``handbook_note``).
+    handbook_charges : (z+, |z-|) used, or None.
+    common_factor : M with E_fu = -M Z^2 k_e / r0, or None (see ``common_factor_note``).
+    common_factor_z : Z used, or None.
+    site : (N,) site constants M_i = -phi_i r0 / (k_e q_i) (nan for uncharged sites).
+    error_estimate : estimated error of the constants from the sum's truncation error.
+    handbook_note, common_factor_note : why a convention is undefined here ("" when defined).
+    ewald : the underlying EwaldResult.
+    """
+
+    formula: str
+    formula_units: int
+    r0: float
+    energy: float
+    energy_per_formula_unit: float
+    charges_left_in: float
+    handbook: float | None
+    handbook_charges: tuple | None
+    handbook_note: str
+    common_factor: float | None
+    common_factor_z: float | None
+    common_factor_note: str
+    site: np.ndarray
+    error_estimate: float
+    ewald: object
+
+    def as_dict(self):
+        return {
+            "formula": self.formula, "formula_units": self.formula_units, "r0_angstrom": self.r0,
+            "energy_eV": self.energy, "energy_per_formula_unit_eV": self.energy_per_formula_unit,
+            "charges_left_in": self.charges_left_in,
+            "handbook": self.handbook, "handbook_charges": self.handbook_charges,
+            "handbook_note": self.handbook_note,
+            "common_factor": self.common_factor, "common_factor_z": self.common_factor_z,
+            "common_factor_note": self.common_factor_note,
+            "error_estimate": self.error_estimate,
+            "conventions": CONVENTION_TEXT,
+        }
+
+
+def _common_factor(charges):
+    """Highest common factor Z of the charges (a rational value), or None if there is none."""
+    values = [Fraction(float(abs(q))).limit_denominator(1000) for q in charges if q != 0]
+    if not values or any(abs(float(v) - abs(q)) > 1e-9 for v, q in zip(values, [q for q in charges if q != 0])):
+        return None
+    numerator = 0
+    denominator = 1
+    for v in values:
+        denominator = denominator * v.denominator // math.gcd(denominator, v.denominator)
+    for v in values:
+        numerator = math.gcd(numerator, int(v * denominator))
+    return numerator / denominator
+
+
+def madelung_constants(crystal, tol=1e-10) -> MadelungConstants:
+    """Madelung constants of a crystal in every named convention (see the module docstring).
+
+    Parameters
+    ----------
+    crystal : Crystal
+        A neutral crystal with at least one cation and one anion.
+    tol : float
+        Relative accuracy of the underlying Ewald sum.
+
+    Returns
+    -------
+    MadelungConstants
+
+    References
+    ----------
+    E. Madelung, Phys. Z. 19 (1918) 524; P. P. Ewald, Ann. Phys. 369 (1921) 253.
+    """
+    from . import ewald
+
+    charges = np.asarray(crystal.charges)
+    where = f"{crystal.source}: " if crystal.source else ""
+    if not (np.any(charges > 0) and np.any(charges < 0)):
+        raise InputError(f"{where}a Madelung constant needs both cations and anions")
+    result = ewald(crystal, tol=tol)
+    if result.background:
+        raise InputError(f"{where}the cell carries a net charge of {result.net_charge:+.6g} e; "
+                         "Madelung constants are defined for neutral crystals")
+    _, to_opposite, _ = crystal.nearest_distances()
+    r0 = float(np.min(to_opposite))
+    k_e = COULOMB_CONSTANT
+    z = crystal.formula_units
+    e_fu = result.energy / z
+    m_in = -e_fu * r0 / k_e
+
+    kinds_pos = sorted({(s, float(q)) for s, q in zip(crystal.symbols, charges) if q > 0})
+    kinds_neg = sorted({(s, float(q)) for s, q in zip(crystal.symbols, charges) if q < 0})
+    handbook = handbook_charges = None
+    handbook_note = ""
+    if len({q for _, q in kinds_pos}) != 1 or len({q for _, q in kinds_neg}) != 1 or \
+            len({s for s, _ in kinds_pos}) != 1 or len({s for s, _ in kinds_neg}) != 1:
+        handbook_note = ("undefined: needs exactly one kind of cation and one kind of anion; this structure has "
+                         f"cations {', '.join(f'{s}{q:+g}' for s, q in kinds_pos)} and anions "
+                         f"{', '.join(f'{s}{q:+g}' for s, q in kinds_neg)}")
+    else:
+        zp, zm = kinds_pos[0][1], -kinds_neg[0][1]
+        handbook = m_in / (zp * zm)
+        handbook_charges = (zp, zm)
+
+    common = _common_factor(charges)
+    common_value = None
+    common_note = ""
+    if common is None:
+        common_note = "undefined: the charges are not whole multiples of one common value"
+    else:
+        common_value = m_in / common ** 2
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        site = np.where(charges != 0, -result.potentials * r0 / (k_e * charges), np.nan)
+    error = result.error_estimate / z * r0 / k_e
+    return MadelungConstants(
+        formula=crystal.reduced_formula, formula_units=z, r0=r0, energy=result.energy,
+        energy_per_formula_unit=e_fu, charges_left_in=m_in, handbook=handbook,
+        handbook_charges=handbook_charges, handbook_note=handbook_note, common_factor=common_value,
+        common_factor_z=common, common_factor_note=common_note, site=site, error_estimate=error,
+        ewald=result)

@@ -1,0 +1,18 @@
+"""The one exception family of madelung.
+
+``InputError`` is for problems the user can cause and fix (a bad file, a missing
+charge, a degenerate cell); the command line turns it into a one-line message
+and exit code 2. Anything else deriving from ``MadelungError`` is our own fault.
+"""
+
+
+class MadelungError(Exception):
+    """Base class of every error raised on purpose by madelung."""
+
+
+class InputError(MadelungError, ValueError):
+    """A user-caused problem: the message names the file or value and what is wrong."""
+
+
+class MadelungWarning(UserWarning):
+    """Warnings about model choices the user should know of (net charge, averaged sites)."""

@@ -1,0 +1,177 @@
+"""Choosing the Ewald splitting parameter and cutoffs for a stated accuracy.
+
+The user states ``tol``, the wanted error of the energy relative to the scale
+``E_scale = k_e * sum(q_i^2) / d_min`` (d_min the shortest interionic distance).
+We pick the splitting parameter alpha that minimises the predicted cost, with the
+real-space cutoff and the reciprocal cutoff each set so that its truncation-error
+estimate is a share of the target.
+
+Truncation-error estimates (Kolafa & Perram, Mol. Simul. 9 (1992) 351, for the energy,
+Q = sum q_i^2, V the volume, L = V^(1/3), K = k_cut L / (2 pi))::
+
+    dE_real  ~ k_e Q sqrt(r_cut / (2 V)) (alpha r_cut)^-2 exp(-alpha^2 r_cut^2)
+    dE_recip ~ k_e Q alpha / pi^2 K^(-3/2) exp(-(pi K / (alpha L))^2)
+
+These are root-mean-square estimates for disordered charges. A crystal's errors are
+systematic (whole shells or Bragg reflections left out), so we aim ``SAFETY`` below the
+target; the convergence benchmark and the tests check the achieved error against
+independent high-precision values for every bundled prototype.
+
+Cost model: the real-space sum costs ``REAL_PAIR_COST`` per atom pair inside the stencil of
+bins searched, the reciprocal sum ``RECIPROCAL_TERM_COST`` per atom and half-space k-vector
+(both passes). Their ratio was measured with ``benchmarks/calibrate_cost.py`` on the 2-core
+reference machine; only the ratio matters.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import InputError
+
+#: Aim this far below the requested error (crystal errors are systematic, not random).
+SAFETY = 0.05
+
+#: Relative cost of one examined real-space pair and one (atom, k-vector) reciprocal term.
+#: Measured by benchmarks/calibrate_cost.py (rock-salt supercells, 2 threads).
+REAL_PAIR_COST = 1.0
+RECIPROCAL_TERM_COST = 1.0
+
+#: The estimates hold once the sums have many terms; never go below these.
+MIN_REAL_NEIGHBOURS = 30.0
+MIN_K_VECTORS = 10.0
+
+#: Bin stencil volume over the cutoff sphere volume for two bins per cutoff (5/2)^3 / (4 pi / 3).
+STENCIL_OVERHEAD = (2.5 ** 3) / (4.0 * math.pi / 3.0)
+
+
+@dataclass(frozen=True)
+class Choice:
+    """Splitting parameter (1/Å), cutoffs (Å, 1/Å) and their predicted errors (eV) and cost."""
+
+    alpha: float
+    real_cutoff: float
+    reciprocal_cutoff: float
+    real_error: float
+    reciprocal_error: float
+    predicted_cost: float
+
+    @property
+    def error_estimate(self) -> float:
+        return self.real_error + self.reciprocal_error
+
+
+def real_space_error(alpha, r_cut, n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e):
+    """Truncation error of the real-space energy, eV.
+
+    Kolafa and Perram's root-mean-square error of the potential at one ion from the omitted
+    pairs, ``dphi = q_rms sqrt(rho) exp(-alpha^2 r_cut^2) / (alpha^2 r_cut^1.5)``, summed coherently
+    over the ions, ``dE = 1/2 sum|q_i| dphi``: in an ordered crystal the omitted shells err the
+    same way at every equivalent ion, so the errors add rather than average out.
+    """
+    q_rms = math.sqrt(charge_sq_sum / n_atoms)
+    dphi = q_rms * math.sqrt(n_atoms / volume) * math.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
+    return k_e * 0.5 * charge_abs_sum * dphi
+
+
+def reciprocal_space_error(alpha, k_cut, n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e):
+    """Truncation error of the reciprocal-space energy, eV.
+
+    As for :func:`real_space_error`: the root-mean-square potential error at one ion from the
+    omitted k-vectors, ``dphi = sqrt(8 Q alpha^2 / (V k_cut^3)) exp(-k_cut^2 / 4 alpha^2)``
+    (Q = sum q^2), summed coherently over the ions.
+    """
+    dphi = math.sqrt(8.0 * charge_sq_sum * alpha ** 2 / (volume * k_cut ** 3)) \
+        * math.exp(-k_cut ** 2 / (4.0 * alpha ** 2))
+    return k_e * 0.5 * charge_abs_sum * dphi
+
+
+def _solve_decreasing(func, target, low, high):
+    """Smallest x in [low, high] with func(x) <= target, for func decreasing there (bisection in log x)."""
+    if func(low) <= target:
+        return low
+    while func(high) > target:
+        high *= 2.0
+        if high > 1e12:
+            raise InputError("cannot reach the requested accuracy; is tol too small?")
+    for _ in range(100):
+        mid = math.sqrt(low * high)
+        if func(mid) > target:
+            low = mid
+        else:
+            high = mid
+        if high / low < 1.0 + 1e-10:
+            break
+    return high
+
+
+def cutoffs_for(alpha, target_real, target_recip, stats):
+    """Smallest cutoffs meeting each error share at this alpha, respecting the minimum term counts."""
+    n_atoms, volume = stats[0], stats[1]
+    density = n_atoms / volume
+    r_min = (3.0 * MIN_REAL_NEIGHBOURS / (4.0 * math.pi * density)) ** (1.0 / 3.0)
+    # half-space k-vector count = (4/3) pi k^3 V / (8 pi^3) / 2
+    k_min = (MIN_K_VECTORS * 12.0 * math.pi ** 2 / volume) ** (1.0 / 3.0)
+    # beyond these the functions are monotone decreasing in the cutoff
+    r_cut = _solve_decreasing(lambda r: real_space_error(alpha, r, *stats),
+                              target_real, max(r_min, 1.0 / alpha), 100.0 / alpha)
+    k_cut = _solve_decreasing(lambda k: reciprocal_space_error(alpha, k, *stats),
+                              target_recip, max(k_min, 2.0 * alpha), 200.0 * alpha)
+    return r_cut, k_cut
+
+
+def predicted_cost(r_cut, k_cut, n_atoms, volume):
+    """Predicted relative cost of one energy + potentials evaluation."""
+    density = n_atoms / volume
+    real_pairs = n_atoms * STENCIL_OVERHEAD * (4.0 / 3.0) * math.pi * r_cut ** 3 * density
+    k_vectors = (4.0 / 3.0) * math.pi * k_cut ** 3 * volume / (16.0 * math.pi ** 3)
+    return REAL_PAIR_COST * real_pairs + RECIPROCAL_TERM_COST * n_atoms * k_vectors
+
+
+def choose(tol, n_atoms, volume, charge_sq_sum, charge_abs_sum, d_min, k_e, alpha=None) -> Choice:
+    """Choose alpha and both cutoffs for relative energy error ``tol``.
+
+    Parameters
+    ----------
+    tol : float
+        Target error of the energy relative to ``k_e * sum(q^2) / d_min``.
+    n_atoms, volume, charge_sq_sum, charge_abs_sum, d_min : number of ions, Å^3, e^2, e, Å.
+    k_e : Coulomb constant, eV·Å.
+    alpha : float, optional
+        Fix the splitting parameter (1/Å) instead of minimising the cost.
+
+    References
+    ----------
+    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351 (error estimates).
+    """
+    if not (isinstance(tol, (int, float)) and math.isfinite(tol) and 0 < tol < 1):
+        raise InputError(f"tol must be a number between 0 and 1, got {tol!r}")
+    if charge_sq_sum <= 0:
+        raise InputError("all charges are zero; there is no electrostatic energy to compute")
+    scale = k_e * charge_sq_sum / d_min
+    target = tol * scale * SAFETY
+    share = 0.5 * target
+
+    stats = (n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e)
+
+    def make(a):
+        r_cut, k_cut = cutoffs_for(a, share, share, stats)
+        return Choice(a, r_cut, k_cut,
+                      real_space_error(a, r_cut, *stats) / SAFETY,
+                      reciprocal_space_error(a, k_cut, *stats) / SAFETY,
+                      predicted_cost(r_cut, k_cut, n_atoms, volume))
+
+    if alpha is not None:
+        if not (math.isfinite(alpha) and alpha > 0):
+            raise InputError(f"alpha must be a positive number (1/Å), got {alpha!r}")
+        return make(float(alpha))
+    # the usual balance point sqrt(pi) (N / V^2)^(1/6) (equal real and reciprocal work)
+    centre = math.sqrt(math.pi) * (n_atoms / volume ** 2) ** (1.0 / 6.0)
+    grid = centre * np.geomspace(0.1, 10.0, 61)
+    best = min((make(a) for a in grid), key=lambda c: c.predicted_cost)
+    # refine around the best grid point
+    fine = best.alpha * np.geomspace(0.93, 1.075, 15)
+    return min([best] + [make(a) for a in fine], key=lambda c: c.predicted_cost)

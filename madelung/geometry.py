@@ -1,0 +1,136 @@
+"""Periodic geometry written once: wrapping, plane spacings, bins, nearest neighbours.
+
+The Coulomb real-space sum, the short-range pair terms and the structure checks all
+walk pairs through the same :class:`CellBins`; only their kernels differ.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import geometry_kernels as gk
+
+
+def plane_spacings(cell) -> np.ndarray:
+    """Distances between adjacent lattice planes (100), (010), (001) of the cell, Å.
+
+    A point displaced by r from another differs in fractional coordinate a by at most
+    ``|r| / spacing[a]``.
+    """
+    cell = np.asarray(cell, dtype=float)
+    volume = abs(np.linalg.det(cell))
+    return np.array([volume / np.linalg.norm(np.cross(cell[(a + 1) % 3], cell[(a + 2) % 3]))
+                     for a in range(3)])
+
+
+def wrapped_fractional(cell, positions) -> np.ndarray:
+    """Fractional coordinates folded into [0, 1)."""
+    frac = np.linalg.solve(np.asarray(cell, float).T, np.asarray(positions, float).T).T
+    frac -= np.floor(frac)
+    frac[frac >= 1.0] = 0.0
+    return np.ascontiguousarray(frac)
+
+
+@dataclass(frozen=True)
+class CellBins:
+    """Atoms sorted into bins for pair loops within ``cutoff``.
+
+    Attributes
+    ----------
+    cell : (3, 3) lattice vectors, Å.
+    positions : (N, 3) wrapped Cartesian positions in bin order, Å.
+    order : (N,) original index of each sorted atom (``sorted = original[order]``).
+    counts : (3,) bins along each lattice vector.
+    reach : (3,) how many bins away a partner within the cutoff can be.
+    bin_of : (N, 3) bin of each sorted atom.
+    bin_start : (n_bins + 1,) where each bin's atoms start in sorted order.
+    cutoff : the cutoff the bins were built for, Å.
+    """
+
+    cell: np.ndarray
+    positions: np.ndarray
+    order: np.ndarray
+    counts: np.ndarray
+    reach: np.ndarray
+    bin_of: np.ndarray
+    bin_start: np.ndarray
+    cutoff: float
+
+    def sorted_values(self, values):
+        """Per-atom values in bin order, contiguous float64."""
+        return np.ascontiguousarray(np.asarray(values, dtype=np.float64)[self.order])
+
+    def unsorted(self, values):
+        """Per-atom values in bin order back to the original order."""
+        out = np.empty_like(values)
+        out[self.order] = values
+        return out
+
+    @property
+    def examined_volume(self) -> float:
+        """Volume of the bin stencil searched around each atom, Å^3 (for cost models)."""
+        volume = abs(np.linalg.det(self.cell))
+        return volume * float(np.prod((2 * self.reach + 1) / self.counts))
+
+
+def build_bins(cell, positions, cutoff, bins_per_cutoff=2, max_bins_per_atom=2.0) -> CellBins:
+    """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction."""
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    n = len(positions)
+    spacing = plane_spacings(cell)
+    counts = np.maximum(1, np.floor(bins_per_cutoff * spacing / cutoff)).astype(np.int64)
+    limit = max(1.0, max_bins_per_atom * n)
+    while np.prod(counts.astype(float)) > limit:
+        counts = np.maximum(1, counts // 2)
+    reach = np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64)
+    frac = wrapped_fractional(cell, positions)
+    bin_of, order, start = gk.sort_into_bins(frac, counts)
+    wrapped = np.ascontiguousarray(frac[order] @ cell)
+    return CellBins(cell, wrapped, order, counts, np.maximum(reach, 0), bin_of, start, float(cutoff))
+
+
+def _nearest(cell, positions, charges, cutoff):
+    bins = build_bins(cell, positions, cutoff)
+    nearest, partner, opposite = gk.nearest_neighbours(
+        bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach,
+        bins.bin_of, bins.bin_start, float(cutoff))
+    partner = np.where(partner >= 0, bins.order[np.maximum(partner, 0)], -1)
+    return bins.unsorted(nearest), bins.unsorted(partner), bins.unsorted(opposite)
+
+
+def nearest_neighbour_distances(cell, positions, charges):
+    """Distance from each atom to its nearest neighbour (any; periodic images count) and to its
+    nearest neighbour of opposite charge sign (``inf`` if the structure has none).
+
+    Returns ``(to_any, to_opposite, partner)`` with ``partner`` the index of the nearest atom.
+    """
+    cell = np.asarray(cell, float)
+    positions = np.asarray(positions, float)
+    charges = np.asarray(charges, float)
+    n = len(positions)
+    volume = abs(np.linalg.det(cell))
+    has_opposite = np.zeros(n, bool)
+    if np.any(charges > 0):
+        has_opposite |= charges < 0
+    if np.any(charges < 0):
+        has_opposite |= charges > 0
+    cutoff = 2.0 * (volume / n) ** (1.0 / 3.0)
+    longest = np.linalg.norm(cell, axis=1).sum()
+    while True:
+        to_any, partner, to_opposite = _nearest(cell, positions, charges, cutoff)
+        missing = np.isinf(to_any) | (has_opposite & np.isinf(to_opposite))
+        if not missing.any() or cutoff > 2 * longest:
+            return to_any, to_opposite, partner
+        cutoff *= 2.0
+
+
+def closest_pair_within(cell, positions, limit):
+    """The closest pair ``(i, j, distance)`` nearer than ``limit``, or None if there is none."""
+    charges = np.zeros(len(positions))
+    to_any, _, partner = _nearest(cell, positions, charges, float(limit))
+    i = int(np.argmin(to_any))
+    if to_any[i] < limit:
+        return i, int(partner[i]), float(to_any[i])
+    return None

@@ -1,0 +1,101 @@
+"""Numba kernels for the periodic neighbour machinery shared by every pair sum.
+
+Atoms are sorted into a grid of bins over the cell in fractional coordinates.
+A pair (i, j + image) within a cutoff always lies in a bin at most ``reach[a]``
+bins away along axis a, for any triclinic cell; bins beyond the cell edge wrap
+round with a lattice shift. When the cell is thinner than the cutoff, one bin per
+axis and a reach of several bins enumerates the periodic images.
+
+Kernels here do arithmetic only; the Python side (``geometry.py``) builds the bins.
+"""
+
+import numpy as np
+from numba import njit, prange
+
+
+@njit(cache=True, inline="always")
+def neighbour_bin(b0, b1, b2, d0, d1, d2, counts):
+    """Bin reached from bin (b0, b1, b2) by the offset (d0, d1, d2), and the lattice shift taken.
+
+    Returns ``(flat_bin_index, s0, s1, s2)``: the neighbour's atoms are at their stored positions
+    plus ``s0*a + s1*b + s2*c``.
+    """
+    c0 = b0 + d0
+    c1 = b1 + d1
+    c2 = b2 + d2
+    s0 = c0 // counts[0]
+    s1 = c1 // counts[1]
+    s2 = c2 // counts[2]
+    c0 -= s0 * counts[0]
+    c1 -= s1 * counts[1]
+    c2 -= s2 * counts[2]
+    return (c0 * counts[1] + c1) * counts[2] + c2, s0, s1, s2
+
+
+@njit(cache=True)
+def sort_into_bins(frac, counts):
+    """Bin index of each atom (fractional coordinates in [0, 1)), the order that sorts atoms by bin,
+    and the start of each bin in that order (length n_bins + 1)."""
+    n = frac.shape[0]
+    n_bins = counts[0] * counts[1] * counts[2]
+    bin_of = np.empty((n, 3), dtype=np.int64)
+    flat = np.empty(n, dtype=np.int64)
+    for i in range(n):
+        for a in range(3):
+            b = int(frac[i, a] * counts[a])
+            if b >= counts[a]:
+                b = counts[a] - 1
+            if b < 0:
+                b = 0
+            bin_of[i, a] = b
+        flat[i] = (bin_of[i, 0] * counts[1] + bin_of[i, 1]) * counts[2] + bin_of[i, 2]
+    order = np.argsort(flat, kind="mergesort")
+    start = np.zeros(n_bins + 1, dtype=np.int64)
+    for i in range(n):
+        start[flat[i] + 1] += 1
+    for b in range(n_bins):
+        start[b + 1] += start[b]
+    return bin_of[order], order, start
+
+
+@njit(parallel=True, cache=True)
+def nearest_neighbours(positions, charges, cell, counts, reach, bin_of, bin_start, cutoff):
+    """For every atom (sorted by bin): distance to the nearest other atom or image, the index of
+    that atom, and the distance to the nearest atom of opposite charge sign, all within ``cutoff``
+    (``inf`` and -1 where there is none)."""
+    n = positions.shape[0]
+    nearest = np.full(n, np.inf)
+    partner = np.full(n, -1, dtype=np.int64)
+    nearest_opposite = np.full(n, np.inf)
+    cut2 = cutoff * cutoff
+    for i in prange(n):
+        xi = positions[i, 0]
+        yi = positions[i, 1]
+        zi = positions[i, 2]
+        best = np.inf
+        best_j = -1
+        best_opp = np.inf
+        for d0 in range(-reach[0], reach[0] + 1):
+            for d1 in range(-reach[1], reach[1] + 1):
+                for d2 in range(-reach[2], reach[2] + 1):
+                    b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], d0, d1, d2, counts)
+                    sx = s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0]
+                    sy = s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1]
+                    sz = s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2]
+                    for j in range(bin_start[b], bin_start[b + 1]):
+                        if j == i and s0 == 0 and s1 == 0 and s2 == 0:
+                            continue
+                        dx = xi - positions[j, 0] - sx
+                        dy = yi - positions[j, 1] - sy
+                        dz = zi - positions[j, 2] - sz
+                        r2 = dx * dx + dy * dy + dz * dz
+                        if r2 < cut2:
+                            if r2 < best:
+                                best = r2
+                                best_j = j
+                            if charges[i] * charges[j] < 0.0 and r2 < best_opp:
+                                best_opp = r2
+        nearest[i] = np.sqrt(best)
+        partner[i] = best_j
+        nearest_opposite[i] = np.sqrt(best_opp)
+    return nearest, partner, nearest_opposite
