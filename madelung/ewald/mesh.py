@@ -45,7 +45,7 @@ import numpy as np
 import scipy.fft
 
 from ..errors import InputError, MadelungWarning
-from ..geometry import build_bins, plane_spacings, wrapped_fractional
+from ..geometry import build_bins, plane_spacings, thread_budget, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import kernels, mesh_kernels, tuning
 from .direct import (NEUTRAL_TOLERANCE, EwaldParameters, EwaldResult, _as_crystal_arrays,
@@ -63,16 +63,17 @@ MESH_ERROR_MODEL = {4: (19.0, 4.206), 5: (1830.0, 6.784), 6: (475.0, 7.121), 7: 
                     8: (1.98e4, 9.799)}
 
 #: Seconds per unit of work on the 2-core reference machine (2 threads, shared with other jobs),
-#: measured with benchmarks/scaling_mesh.py --calibrate on rock-salt supercells with displacements.
+#: measured with benchmarks/scaling_mesh.py --calibrate on rock-salt supercells with displacements
+#: (N = 32768, load average about 5 on the 2 cores, so absolute values are about 2-3x an idle machine's).
 #: Only their ratios steer the tuner; their sizes steer method="auto" against the direct engine.
-SECONDS_PER_REAL_PAIR = 1.2e-8      # one examined pair of the bin stencil, potentials only
-SECONDS_PER_SPLINE_POINT = 4.0e-9   # one (ion, mesh point) weight, in spreading or interpolation
-SECONDS_PER_FFT_POINT_LOG = 1.5e-9  # one point x log2(points) of a real-to-complex FFT
-SECONDS_PER_MESH_POINT = 5.0e-8     # influence function, energy/virial and array work per point
+SECONDS_PER_REAL_PAIR = 3.0e-8      # one examined pair of the bin stencil, potentials only
+SECONDS_PER_SPLINE_POINT = 6.0e-9   # one (ion, mesh point) weight, in spreading or interpolation
+SECONDS_PER_FFT_POINT_LOG = 1.7e-9  # one point x log2(points) of a real-to-complex FFT
+SECONDS_PER_MESH_POINT = 2.0e-8     # influence function, energy/virial and array work per point
 SECONDS_PER_ATOM = 6.0e-6           # neighbour search for d_min, bins, wrapping (both engines)
 #: Direct engine: seconds per examined real-space pair and per (ion, k-vector) term.
 DIRECT_SECONDS_PER_REAL_PAIR = SECONDS_PER_REAL_PAIR
-DIRECT_SECONDS_PER_RECIPROCAL_TERM = 2.5e-8
+DIRECT_SECONDS_PER_RECIPROCAL_TERM = 8.5e-9
 #: Extra cost of forces, as a factor on the real-space and the reciprocal terms.
 FORCE_FACTOR_REAL = 1.5
 FORCE_FACTOR_RECIPROCAL = 1.2
@@ -205,22 +206,28 @@ def choose_mesh(tol, cell, n_atoms, charge_sq_sum, charge_abs_sum, d_min, k_e, a
     density = n_atoms / volume
     r_min = (3.0 * tuning.MIN_REAL_NEIGHBOURS / (4.0 * math.pi * density)) ** (1.0 / 3.0)
 
-    def make(a, n):
-        r_cut = tuning._solve_decreasing(lambda r: tuning.real_space_error(a, r, *stats),
-                                         real_share, max(r_min, 1.0 / a), 100.0 / a)
+    def real_cutoffs(alphas):
+        alphas = np.asarray(alphas, dtype=float)
+        return np.atleast_1d(tuning._solve_decreasing(lambda r: tuning.real_space_error(alphas, r, *stats),
+                                                      real_share, np.maximum(r_min, 1.0 / alphas), 100.0 / alphas))
+
+    def make(a, r_cut, n):
+        a, r_cut = float(a), float(r_cut)
         shape = mesh if mesh is not None else mesh_shape_for(a, n, mesh_share, plane, charge_sq_sum, k_e)
         spacings = tuple(plane[i] / shape[i] for i in range(3))
         return MeshChoice(a, r_cut, shape, n,
-                          tuning.real_space_error(a, r_cut, *stats) / tuning.SAFETY,
+                          float(tuning.real_space_error(a, r_cut, *stats)) / tuning.SAFETY,
                           mesh_error(a, spacings, n, charge_sq_sum, k_e),
                           predicted_mesh_seconds(r_cut, shape, n, n_atoms, volume, forces))
 
     if alpha is not None:
         if not (math.isfinite(alpha) and alpha > 0):
             raise InputError(f"alpha must be a positive number (1/Å), got {alpha!r}")
-        return min((make(float(alpha), n) for n in orders), key=lambda c: c.predicted_seconds)
-    centre = 3.0 / d_min
-    candidates = [make(a, n) for n in orders for a in centre * np.geomspace(0.2, 3.0, 41)]
+        r_cut = real_cutoffs([float(alpha)])[0]
+        return min((make(alpha, r_cut, n) for n in orders), key=lambda c: c.predicted_seconds)
+    alphas = (3.0 / d_min) * np.geomspace(0.2, 3.0, 41)
+    r_cuts = real_cutoffs(alphas)
+    candidates = [make(a, r, n) for n in orders for a, r in zip(alphas, r_cuts)]
     if mesh is not None:
         # a fixed mesh: the fastest choice whose estimate meets the target
         good = [c for c in candidates if c.mesh_error <= mesh_share]
@@ -382,44 +389,47 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
                       f"{net:+.6g} e; a uniform neutralizing background was added", MadelungWarning,
                       stacklevel=3)
 
-    # real space: the same kernel and bins as the direct engine
-    bins = build_bins(cell, positions, choice.real_cutoff)
-    sorted_q = bins.sorted_values(charges)
-    phi_r, f_r, w_r, pairs = kernels.real_space_terms(
-        bins.positions, sorted_q, bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start,
-        a, choice.real_cutoff, bool(forces), bool(stress))
-    phi_real = bins.unsorted(phi_r)
-    force_real = bins.unsorted(f_r) if forces else None
-    real_w = w_r.sum(axis=0) if stress else None
-    reach = tuple(int(x) for x in bins.reach)
-    del bins, sorted_q, phi_r, f_r, w_r
+    # small sums run on one thread (see geometry.thread_budget); the budget is in pair-term units
+    with thread_budget(choice.predicted_seconds / SECONDS_PER_REAL_PAIR):
+        # real space: the same kernel and bins as the direct engine
+        bins = build_bins(cell, positions, choice.real_cutoff)
+        sorted_q = bins.sorted_values(charges)
+        phi_r, f_r, w_r, pairs = kernels.real_space_terms(
+            bins.positions, sorted_q, bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start,
+            a, choice.real_cutoff, bool(forces), bool(stress))
+        phi_real = bins.unsorted(phi_r)
+        force_real = bins.unsorted(f_r) if forces else None
+        real_w = w_r.sum(axis=0) if stress else None
+        reach = tuple(int(x) for x in bins.reach)
+        del bins, sorted_q, phi_r, f_r, w_r
 
-    frac = wrapped_fractional(cell, positions)
-    target_mesh = 0.5 * tol * k_e * q2 / d_min
-    shape = choice.shape
-    mesh_error_estimate = choice.mesh_error
-    checked = None
-    for attempt in range(4):
-        e_mesh, phi_k, f_k, w_k = mesh_reciprocal(cell, frac, charges, a, shape, choice.order,
-                                                  bool(forces), bool(stress))
-        if check is False:
-            break
-        budget = CHECK_SHARE * choice.predicted_seconds if check == "auto" else float("inf")
-        result = _check_against_direct(cell, frac, charges, a, phi_k, target_mesh, budget,
-                                       (n, volume, q2, q_abs, k_e))
-        if result is None:
-            break
-        size, rms, worst = result
-        measured = k_e * 0.5 * q_abs * rms  # coherent, like the estimates
-        checked = {"sample": size, "rms_potential_error_V": k_e * rms, "max_potential_error_V": k_e * worst,
-                   "energy_error_bound_eV": measured, "attempt": attempt}
-        mesh_error_estimate = max(mesh_error_estimate, measured)
-        if measured <= target_mesh or mesh is not None:
-            break
-        # the estimate was optimistic for this structure: refine the mesh and try again
-        grow = (measured / target_mesh) ** (1.0 / choice.order) * 1.1
-        shape = tuple(int(scipy.fft.next_fast_len(int(math.ceil(k * grow)), real=True)) for k in shape)
+        frac = wrapped_fractional(cell, positions)
+        target_mesh = 0.5 * tol * k_e * q2 / d_min
+        shape = choice.shape
         mesh_error_estimate = choice.mesh_error
+        checked = None
+        threads = numba.get_num_threads()
+        for attempt in range(4):
+            e_mesh, phi_k, f_k, w_k = mesh_reciprocal(cell, frac, charges, a, shape, choice.order,
+                                                      bool(forces), bool(stress))
+            if check is False:
+                break
+            budget = CHECK_SHARE * choice.predicted_seconds if check == "auto" else float("inf")
+            result = _check_against_direct(cell, frac, charges, a, phi_k, target_mesh, budget,
+                                           (n, volume, q2, q_abs, k_e))
+            if result is None:
+                break
+            size, rms, worst = result
+            measured = k_e * 0.5 * q_abs * rms  # coherent, like the estimates
+            checked = {"sample": size, "rms_potential_error_V": k_e * rms, "max_potential_error_V": k_e * worst,
+                       "energy_error_bound_eV": measured, "attempt": attempt}
+            mesh_error_estimate = max(mesh_error_estimate, measured)
+            if measured <= target_mesh or mesh is not None:
+                break
+            # the estimate was optimistic for this structure: refine the mesh and try again
+            grow = (measured / target_mesh) ** (1.0 / choice.order) * 1.1
+            shape = tuple(int(scipy.fft.next_fast_len(int(math.ceil(k * grow)), real=True)) for k in shape)
+            mesh_error_estimate = choice.mesh_error
 
     self_potential = -2.0 * a / math.sqrt(math.pi) * charges
     background_potential = -math.pi * net / (volume * a * a) if background else 0.0
@@ -446,7 +456,8 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
 
     plane = plane_spacings(cell)
     nyquist = float(min(math.pi * shape[i] / plane[i] for i in range(3)))
-    spreading = f"slabs along axis 0, {numba.get_num_threads()} threads"
+    spreading = (f"slabs of mesh planes along axis 0, {threads} threads" if threads > 1
+                 else "serial (one thread)")
     params = EwaldParameters(
         method="mesh", alpha=a, real_cutoff=choice.real_cutoff, reciprocal_cutoff=nyquist,
         real_space_pairs=int(pairs), k_vectors=int(shape[0] * shape[1] * (shape[2] // 2 + 1)),
