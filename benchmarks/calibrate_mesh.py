@@ -1,13 +1,17 @@
-"""Calibrate the mesh error estimate of madelung.ewald.mesh (the prefactors A_n of mesh_error).
+"""Calibrate the mesh error estimate of madelung.ewald.mesh (MESH_ERROR_MODEL: A_n and s_n).
 
 For the bundled prototypes (as given and as 2x2x2 supercells with random displacements) and
-random neutral triclinic cells, at several splitting parameters, spline orders and meshes,
-the mesh reciprocal potentials are compared at every ion with the direct reciprocal sum at the
-same splitting parameter (converged far beyond the mesh). The measured error is summed
-coherently, dE = 1/2 sum|q_i| rms(dphi), and also taken as the actual energy difference;
-the ratio to mesh_error with A_n = 1 is printed per order, with its maximum.
+random neutral triclinic cells, at alpha d_min = 2, 3, 4.5, spline orders 4..8 and mesh steps
+alpha h / pi = 0.06 ... 0.3, the mesh reciprocal energy and potentials are compared with the
+direct reciprocal sum at the same splitting parameter (converged far beyond the mesh). The
+larger of the coherent potential error 1/2 sum|q_i| rms(dphi) and the energy difference,
+relative to E_scale = sum q^2 / d_min, is fitted per order by
 
-    python benchmarks/calibrate_mesh.py
+    measured = 1/2 A_n alpha d_min mean_a (alpha h_a / pi)^s_n
+
+(s_n by least squares in log space); the largest A_n seen is printed, and mesh.py uses 1.5 times it.
+
+    python benchmarks/calibrate_mesh.py      # about 3 minutes on 2 cores
 """
 
 import glob

@@ -3,7 +3,7 @@
 Cases: rattled rock-salt supercells (benchmarks/common.py: a = 5.64 Å, charges +-1, Gaussian
 displacements of 0.05 Å) at tol 1e-6 and 1e-8, energy + potentials + forces. Every case runs in
 a fresh subprocess (one warm-up call on a small cell first, so JIT loading is not timed) that
-reports the wall time of one madelung.ewald(..., method=...) call and the process's peak
+reports the wall time of madelung.ewald(..., method=...) (best of 3 calls up to N = 32768, else one) and the process's peak
 resident memory (resource.getrusage, whole process: interpreter, crystal and sum).
 
 Achieved error: |E - E_ref| / (k_e sum q^2 / d_min) and the largest force difference, with
@@ -52,9 +52,11 @@ def _run_case(method, reps, tol, forces_path):
 
     madelung.ewald(rattled_rock_salt(2), tol=tol, forces=True, method=method)  # load the kernels
     crystal = rattled_rock_salt(reps)
-    started = time.perf_counter()
-    result = madelung.ewald(crystal, tol=tol, forces=True, method=method)
-    seconds = time.perf_counter() - started
+    seconds = math.inf
+    for _ in range(3 if len(crystal) <= 32768 else 1):  # best of 3 for the small, noisy cases
+        started = time.perf_counter()
+        result = madelung.ewald(crystal, tol=tol, forces=True, method=method)
+        seconds = min(seconds, time.perf_counter() - started)
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # kB -> MB on Linux
     if forces_path:
         np.save(forces_path, result.forces)

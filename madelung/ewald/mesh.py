@@ -17,12 +17,12 @@ analytic gradient of the weights W_i, the stress from the strain derivative of E
 Tuning. ``tol`` has the meaning of the direct engine: the energy error wanted relative to
 E_scale = k_e sum q^2 / d_min. The real-space cutoff comes from the same coherent
 Kolafa–Perram estimate as the direct engine (:func:`.tuning.real_space_error`). The mesh
-error is the calibrated estimate :func:`mesh_error` (a root-mean-square potential error at an
-ion, summed coherently over the ions like the direct engine's estimates); the splitting
-parameter, the spline order and the mesh are chosen for the least predicted time. When it is
-cheap the mesh potentials of a random subsample of ions are checked against the direct
-reciprocal sum at the same splitting parameter, the measured error is reported in
-``params.extra["check"]``, and the mesh is refined if the check misses the target.
+error is the calibrated estimate :func:`mesh_error` (a power law in alpha times the mesh step,
+fitted to measured errors, errors of the ions added coherently like the direct engine's
+estimates); the splitting parameter, the spline order and the mesh are chosen for the least
+predicted time. When it is cheap, the mesh potentials of a random subsample of ions are
+checked against the direct reciprocal sum at the same splitting parameter. The measured error
+is reported in ``params.extra["check"]``, and the mesh is refined if the check misses the target.
 
 References
 ----------
@@ -429,7 +429,8 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
             # the estimate was optimistic for this structure: refine the mesh and try again
             grow = (measured / target_mesh) ** (1.0 / choice.order) * 1.1
             shape = tuple(int(scipy.fft.next_fast_len(int(math.ceil(k * grow)), real=True)) for k in shape)
-            mesh_error_estimate = choice.mesh_error
+            plane = plane_spacings(cell)
+            mesh_error_estimate = mesh_error(a, tuple(plane[i] / shape[i] for i in range(3)), choice.order, q2, k_e)
 
     self_potential = -2.0 * a / math.sqrt(math.pi) * charges
     background_potential = -math.pi * net / (volume * a * a) if background else 0.0
