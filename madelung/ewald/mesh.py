@@ -37,19 +37,18 @@ from __future__ import annotations
 
 import math
 import time
-import warnings
 from dataclasses import dataclass
 
 import numba
 import numpy as np
 import scipy.fft
 
-from ..errors import InputError, MadelungWarning
-from ..geometry import build_bins, plane_spacings, thread_budget, wrapped_fractional
+from ..errors import InputError
+from ..geometry import plane_spacings, thread_budget, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import kernels, mesh_kernels, tuning
-from .direct import (NEUTRAL_TOLERANCE, EwaldParameters, EwaldResult, _as_crystal_arrays,
-                     reciprocal_vectors, shortest_distance)
+from .direct import (EwaldParameters, EwaldResult, _as_crystal_arrays, assemble, real_space_part,
+                     reciprocal_vectors, shortest_distance, symmetric, warn_if_charged)
 
 #: Spline orders the tuner considers (odd orders run when asked for; even ones are never worse).
 TUNED_ORDERS = (4, 6, 8)
@@ -79,8 +78,9 @@ FORCE_FACTOR_REAL = 1.5
 FORCE_FACTOR_RECIPROCAL = 1.2
 
 #: Largest mesh the tuner picks, in bytes of peak mesh memory (16 bytes per point: the real
-#: mesh and its half spectrum are alive together during each FFT); keeps N = 10^6 under 4 GB.
-MESH_MEMORY_LIMIT_BYTES = 2.5e9
+#: mesh and its half spectrum are alive together during each FFT); keeps N = 10^6 under 4 GB
+#: with the O(N) arrays (measured peak 3.3 GB for rattled rock salt at tol 1e-6 and 1e-8).
+MESH_MEMORY_LIMIT_BYTES = 2.0e9
 
 #: With check="auto" the subsample check runs when its predicted time is below this share of
 #: the predicted mesh time; it compares CHECK_SAMPLE ions.
@@ -325,6 +325,18 @@ def _check_against_direct(cell, frac, charges, alpha, phi_mesh, target, budget_s
     return len(sample), float(np.sqrt(np.mean(diff * diff))), float(np.max(np.abs(diff)))
 
 
+def _charge_sums(crystal, d_min):
+    """Arrays and sums both mesh entry points need: ``(cell, positions, charges, volume, sum q^2,
+    sum |q|, net charge, d_min)``."""
+    cell, positions, charges = _as_crystal_arrays(crystal)
+    volume = abs(float(np.linalg.det(cell)))
+    q2 = float(np.dot(charges, charges))
+    q_abs = float(np.abs(charges).sum())
+    if d_min is None:
+        d_min = shortest_distance(crystal)
+    return cell, positions, charges, volume, q2, q_abs, float(charges.sum()), d_min
+
+
 def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=None, order=None,
                check="auto", d_min=None) -> EwaldResult:
     """Smooth particle-mesh Ewald sum with parameters chosen for relative energy error ``tol``.
@@ -368,40 +380,22 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
     D. M. Heyes, J. Chem. Phys. 74 (1981) 1924 (stress of the Ewald sum).
     """
     started = time.perf_counter()
-    cell, positions, charges = _as_crystal_arrays(crystal)
+    cell, positions, charges, volume, q2, q_abs, net, d_min = _charge_sums(crystal, d_min)
     n = len(charges)
-    volume = abs(float(np.linalg.det(cell)))
     k_e = COULOMB_CONSTANT
-    q2 = float(np.dot(charges, charges))
-    q_abs = float(np.abs(charges).sum())
-    net = float(charges.sum())
-    if d_min is None:
-        d_min = shortest_distance(crystal)
     if check not in ("auto", True, False):
         raise InputError(f"check must be 'auto', True or False, got {check!r}")
     choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha, mesh=mesh, order=order,
                          forces=forces)
     a = choice.alpha
 
-    background = abs(net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(q2))
-    if background:
-        warnings.warn(f"{crystal.source + ': ' if crystal.source else ''}the cell carries a net charge of "
-                      f"{net:+.6g} e; a uniform neutralizing background was added", MadelungWarning,
-                      stacklevel=3)
+    background = warn_if_charged(crystal, net, q2)
 
     # small sums run on one thread (see geometry.thread_budget); the budget is in pair-term units
     with thread_budget(choice.predicted_seconds / SECONDS_PER_REAL_PAIR):
         # real space: the same kernel and bins as the direct engine
-        bins = build_bins(cell, positions, choice.real_cutoff)
-        sorted_q = bins.sorted_values(charges)
-        phi_r, f_r, w_r, pairs = kernels.real_space_terms(
-            bins.positions, sorted_q, bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start,
-            a, choice.real_cutoff, bool(forces), bool(stress))
-        phi_real = bins.unsorted(phi_r)
-        force_real = bins.unsorted(f_r) if forces else None
-        real_w = w_r.sum(axis=0) if stress else None
-        reach = tuple(int(x) for x in bins.reach)
-        del bins, sorted_q, phi_r, f_r, w_r
+        phi_real, force_real, real_w, pairs, reach = real_space_part(
+            cell, positions, charges, a, choice.real_cutoff, forces, stress)
 
         frac = wrapped_fractional(cell, positions)
         target_mesh = 0.5 * tol * k_e * q2 / d_min
@@ -432,29 +426,9 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
             plane = plane_spacings(cell)
             mesh_error_estimate = mesh_error(a, tuple(plane[i] / shape[i] for i in range(3)), choice.order, q2, k_e)
 
-    self_potential = -2.0 * a / math.sqrt(math.pi) * charges
-    background_potential = -math.pi * net / (volume * a * a) if background else 0.0
-    potentials = k_e * (phi_real + phi_k + self_potential + background_potential)
-
-    e_real = 0.5 * k_e * float(np.dot(charges, phi_real))
-    e_recip = k_e * e_mesh
-    e_self = -k_e * a / math.sqrt(math.pi) * q2
-    e_background = -k_e * math.pi * net * net / (2.0 * volume * a * a) if background else 0.0
-    energy = e_real + e_recip + e_self + e_background
-
-    force_array = None
-    if forces:
-        force_array = k_e * (force_real + f_k)
-        force_array.setflags(write=False)
-    stress_array = None
-    if stress:
-        def full(w):
-            return np.array([[w[0], w[5], w[4]], [w[5], w[1], w[3]], [w[4], w[3], w[2]]])
-        bg_virial = (math.pi * net * net / (2.0 * volume * a * a)) * np.eye(3) if background else 0.0
-        stress_array = k_e * (full(real_w) + full(w_k) + bg_virial) / volume
-        stress_array.setflags(write=False)
-    potentials.setflags(write=False)
-
+    potentials, energy, components, force_array, stress_array = assemble(
+        charges, phi_real, phi_k, e_mesh, a, volume, net, background, k_e,
+        (force_real, f_k) if forces else None, (symmetric(real_w), symmetric(w_k)) if stress else None)
     plane = plane_spacings(cell)
     nyquist = float(min(math.pi * shape[i] / plane[i] for i in range(3)))
     spreading = (f"slabs of mesh planes along axis 0, {threads} threads" if threads > 1
@@ -469,8 +443,8 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
     return EwaldResult(
         energy=energy, potentials=potentials, forces=force_array, stress=stress_array, params=params,
         error_estimate=choice.real_error + mesh_error_estimate, tol=float(tol), energy_scale=k_e * q2 / d_min,
-        components={"real": e_real, "reciprocal": e_recip, "self": e_self, "background": e_background},
-        net_charge=net, background=bool(background), n_atoms=n, seconds=time.perf_counter() - started)
+        components=components, net_charge=net, background=bool(background), n_atoms=n,
+        seconds=time.perf_counter() - started)
 
 
 def predicted_seconds(crystal, tol, forces=False, alpha=None, d_min=None):
@@ -479,14 +453,9 @@ def predicted_seconds(crystal, tol, forces=False, alpha=None, d_min=None):
     Each engine's own tuner picks its parameters; the cost constants above turn them into
     seconds on the 2-core reference machine (only the comparison matters for method="auto").
     """
-    cell, _, charges = _as_crystal_arrays(crystal)
+    cell, _, charges, volume, q2, q_abs, _, d_min = _charge_sums(crystal, d_min)
     n = len(charges)
-    volume = abs(float(np.linalg.det(cell)))
     k_e = COULOMB_CONSTANT
-    q2 = float(np.dot(charges, charges))
-    q_abs = float(np.abs(charges).sum())
-    if d_min is None:
-        d_min = shortest_distance(crystal)
     direct_choice = tuning.choose(tol, n, volume, q2, q_abs, d_min, k_e, alpha=alpha)
     mesh_choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha, forces=forces)
     return {"direct": predicted_direct_seconds(direct_choice, n, volume, forces),

@@ -70,6 +70,18 @@ def _base_and_fraction(f, k):
     return base, w
 
 
+@njit(cache=True, inline="always")
+def _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2):
+    """Spline weights and slopes of ion i along the three axes; returns its base mesh indices."""
+    b0, w0 = _base_and_fraction(frac[i, 0], k0)
+    b1, w1 = _base_and_fraction(frac[i, 1], k1)
+    b2, w2 = _base_and_fraction(frac[i, 2], k2)
+    _spline_row(w0, order, v0, d0)
+    _spline_row(w1, order, v1, d1)
+    _spline_row(w2, order, v2, d2)
+    return b0, b1, b2
+
+
 @njit(parallel=True, cache=True)
 def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
     """Charge mesh Q(g) = sum_i q_i prod_a M_n(u_ia - g_a) (periodic), shape (K0, K1, K2).
@@ -94,12 +106,7 @@ def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, or
             d = np.empty(order)
             for idx in range(slab_start[s], slab_start[s + 1]):
                 i = order_of_atoms[idx]
-                b0, w0 = _base_and_fraction(frac[i, 0], k0)
-                b1, w1 = _base_and_fraction(frac[i, 1], k1)
-                b2, w2 = _base_and_fraction(frac[i, 2], k2)
-                _spline_row(w0, order, v0, d)
-                _spline_row(w1, order, v1, d)
-                _spline_row(w2, order, v2, d)
+                b0, b1, b2 = _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d, d, d)
                 q = charges[i]
                 for j0 in range(order):
                     g0 = b0 - j0
@@ -204,12 +211,7 @@ def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
         d0 = np.empty(order)
         d1 = np.empty(order)
         d2 = np.empty(order)
-        b0, w0 = _base_and_fraction(frac[i, 0], k0)
-        b1, w1 = _base_and_fraction(frac[i, 1], k1)
-        b2, w2 = _base_and_fraction(frac[i, 2], k2)
-        _spline_row(w0, order, v0, d0)
-        _spline_row(w1, order, v1, d1)
-        _spline_row(w2, order, v2, d2)
+        b0, b1, b2 = _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2)
         phi = 0.0
         du0 = 0.0
         du1 = 0.0
