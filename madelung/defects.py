@@ -1611,3 +1611,145 @@ def correction_series(cell, charge, dielectric=1.0, repeats=(1, 2, 3, 4), *, tol
     spread = float(np.max(np.abs(products - mean)) / abs(mean)) if mean != 0 else 0.0
     return CorrectionSeries(repeats=repeats, lengths=lengths, corrections=corrections, energies=energies,
                             slope=float(slope), intercept=float(intercept), spread=spread)
+
+
+# =====================================================================================
+# plane sections and file output of grids
+# =====================================================================================
+
+@dataclass(frozen=True)
+class PlaneSection:
+    """The potential on a lattice plane, for maps.
+
+    Attributes
+    ----------
+    miller : (h, k, l). offset : the plane is h f1 + k f2 + l f3 = offset (f fractional).
+    origin : (3,) Cartesian origin of the section, Å; u, v : (3,) in-plane lattice vectors spanning it, Å.
+    values : (n_u, n_v) potential at origin + (i/n_u) u + (j/n_v) v, V.
+    atoms : ions within ``thickness`` of the plane as (s, t, label, charge, distance), s and t in [0, 1).
+    smearing : Gaussian width of the ions, Å.
+    """
+
+    miller: tuple
+    offset: float
+    origin: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+    values: np.ndarray
+    atoms: tuple
+    smearing: float
+
+
+def parse_miller(text):
+    """``"001"``, ``"1-10"`` or ``"1,1,0"`` into three integers."""
+    text = str(text).strip()
+    if "," in text or " " in text:
+        parts = [p for p in re.split(r"[,\s]+", text) if p]
+    else:
+        parts = re.findall(r"-?\d", text)
+    try:
+        miller = tuple(int(p) for p in parts)
+    except ValueError:
+        miller = ()
+    if len(miller) != 3 or miller == (0, 0, 0):
+        raise InputError(f"plane {text!r} must be three Miller indices such as 001, 110 or 1,-1,0")
+    return miller
+
+
+def _in_plane_vectors(cell, miller):
+    """The two shortest independent lattice vectors n with h.n = 0 (Cartesian rows)."""
+    h = np.array(miller)
+    rng = range(-4, 5)
+    cands = np.array([(i, j, k) for i in rng for j in rng for k in rng if (i, j, k) != (0, 0, 0)
+                      and i * h[0] + j * h[1] + k * h[2] == 0], float)
+    cart = cands @ cell
+    order = np.argsort(np.linalg.norm(cart, axis=1), kind="stable")
+    u = cart[order[0]]
+    for i in order[1:]:
+        if np.linalg.norm(np.cross(u, cart[i])) > 1e-6 * np.linalg.norm(u) * np.linalg.norm(cart[i]):
+            return u, cart[i]
+    raise InputError(f"cannot find two lattice vectors in the plane {miller}")
+
+
+def plane_section(crystal, plane="001", offset=0.5, *, spacing=0.1, smearing=0.3, tol=1e-8, thickness=0.5):
+    """The potential on the lattice plane h f1 + k f2 + l f3 = offset, sampled on a mesh of
+    step ``spacing`` Å over the parallelogram of its two shortest in-plane lattice vectors."""
+    miller = parse_miller(plane) if not isinstance(plane, tuple) else plane
+    try:
+        offset = float(offset)
+    except (TypeError, ValueError):
+        raise InputError(f"plane offset must be a number, got {offset!r}") from None
+    cell = np.asarray(crystal.cell, float)
+    h = np.array(miller, float)
+    origin = (offset * h / float(h @ h)) @ cell
+    u, v = _in_plane_vectors(cell, miller)
+    n_u = max(2, int(math.ceil(np.linalg.norm(u) / spacing)))
+    n_v = max(2, int(math.ceil(np.linalg.norm(v) / spacing)))
+    s, t = np.meshgrid(np.arange(n_u) / n_u, np.arange(n_v) / n_v, indexing="ij")
+    points = origin + s.reshape(-1, 1) * u + t.reshape(-1, 1) * v
+    result = potential_at(crystal, points, tol=tol, smearing=smearing,
+                          exclude="coincident" if smearing == 0 else None)
+    normal = np.cross(u, v)
+    normal /= np.linalg.norm(normal)
+    atoms = []
+    basis = np.stack([u, v, normal])
+    for position, label, q in zip(crystal.positions, crystal.labels, crystal.charges):
+        # nearest image of the ion to the plane through origin
+        for shift in np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)]) @ cell:
+            coords = np.linalg.solve(basis.T, position + shift - origin)
+            if abs(coords[2]) <= thickness:
+                st = coords[:2] - np.floor(coords[:2])
+                if not any(np.allclose(st, a[:2], atol=1e-6) and a[2] == label for a in atoms):
+                    atoms.append((float(st[0]), float(st[1]), label, float(q), float(coords[2])))
+    return PlaneSection(miller=tuple(miller), offset=offset, origin=origin, u=u, v=v,
+                        values=result.potentials.reshape(n_u, n_v), atoms=tuple(atoms),
+                        smearing=float(smearing))
+
+
+def write_cube(path, grid: PotentialGrid):
+    """Write a potential grid as a Gaussian cube file (values in V; positions converted by ASE)."""
+    import ase.io
+
+    atoms = grid.crystal.to_ase()
+    try:
+        ase.io.write(str(path), atoms, format="cube", data=np.asarray(grid.values))
+    except OSError as exc:
+        raise InputError(f"{path}: cannot write ({exc.strerror or exc})") from None
+
+
+def write_plane_png(path, section: PlaneSection, title=""):
+    """Heat map of a plane section with the ions in the plane marked (matplotlib, Agg)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    u, v = section.u, section.v
+    lu = np.linalg.norm(u)
+    ex = u / lu
+    vx, vy = float(v @ ex), float(np.linalg.norm(v - (v @ ex) * ex))
+    n_u, n_v = section.values.shape
+    s, t = np.meshgrid(np.arange(n_u + 1) / n_u, np.arange(n_v + 1) / n_v, indexing="ij")
+    s0, t0 = s - 0.5 / n_u, t - 0.5 / n_v
+    x = s0 * lu + t0 * vx
+    y = t0 * vy
+    limit = float(np.percentile(np.abs(section.values), 98)) or 1.0
+    fig, ax = plt.subplots(figsize=(6.4, 5.2))
+    mesh = ax.pcolormesh(x, y, section.values, cmap="PuOr_r", vmin=-limit, vmax=limit, shading="flat")
+    fig.colorbar(mesh, ax=ax, label="potential / V")
+    for st0, st1, label, q, _ in section.atoms:
+        px, py = st0 * lu + st1 * vx, st1 * vy
+        ax.plot(px, py, marker="+" if q > 0 else "o", color="black", markersize=8, mfc="none")
+        ax.annotate(label, (px, py), textcoords="offset points", xytext=(4, 4), fontsize=7)
+    ax.set_aspect("equal")
+    ax.set_xlabel("Å along u")
+    ax.set_ylabel("Å")
+    h, k, l = section.miller
+    ax.set_title(title or f"potential on ({h} {k} {l}) at offset {section.offset:g}"
+                 + (f", ions smeared {section.smearing:g} Å" if section.smearing else ""), fontsize=9)
+    try:
+        fig.savefig(str(path), dpi=120, bbox_inches="tight")
+    except OSError as exc:
+        raise InputError(f"{path}: cannot write ({exc.strerror or exc})") from None
+    finally:
+        plt.close(fig)
