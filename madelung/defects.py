@@ -407,7 +407,9 @@ def potential_grid(crystal, spacing=0.2, *, shape=None, smearing=0.3, tol=1e-8, 
     Notes
     -----
     With smearing sigma the grid solves Poisson's equation for the Gaussian charge density,
-    laplacian(phi) = -4 pi k_e rho_sigma; the cell average of phi is zero (Ewald convention).
+    laplacian(phi) = -4 pi k_e rho_sigma. For a neutral cell the cell average of phi is zero (Ewald
+    convention); for a net charge Q the smeared potential keeps the point-ion far field, and its
+    average is -2 pi sigma^2 k_e Q / V.
 
     References
     ----------
@@ -447,7 +449,7 @@ def gaussian_charge_density(crystal, points, smearing):
         raise InputError("the Gaussian charge density needs a smearing width > 0")
     cell = np.asarray(crystal.cell, float)
     points = _as_points(points)
-    reach = np.ceil(6.0 * sigma / plane_spacings(cell)).astype(int) + 1
+    reach = np.ceil(6.0 * sigma / plane_spacings(cell)).astype(int)  # both folded into the cell
     shifts = np.array([(i, j, k) for i in range(-reach[0], reach[0] + 1) for j in range(-reach[1], reach[1] + 1)
                        for k in range(-reach[2], reach[2] + 1)], float) @ cell
     frac_points = wrapped_fractional(cell, points) @ cell
