@@ -499,7 +499,9 @@ def _spglib_cell(crystal):
 def _symmetry_operations(crystal, symprec):
     import spglib
 
-    data = spglib.get_symmetry(_spglib_cell(crystal), symprec=symprec)
+    with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
+        warnings.simplefilter("ignore", DeprecationWarning)
+        data = spglib.get_symmetry(_spglib_cell(crystal), symprec=symprec)
     if data is None:
         return np.eye(3, dtype=int)[None], np.zeros((1, 3))
     return np.asarray(data["rotations"]), np.asarray(data["translations"])
@@ -509,7 +511,9 @@ def equivalent_sites(crystal, symprec=1e-3):
     """For each ion, the index of the first ion symmetry-equivalent to it (spglib)."""
     import spglib
 
-    dataset = spglib.get_symmetry_dataset(_spglib_cell(crystal), symprec=symprec)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)
+        dataset = spglib.get_symmetry_dataset(_spglib_cell(crystal), symprec=symprec)
     if dataset is None:
         return np.arange(len(crystal))
     return np.asarray(dataset.equivalent_atoms if hasattr(dataset, "equivalent_atoms")
@@ -876,15 +880,20 @@ def near_cubic_matrix(cell, min_length):
         ok = (dets > 0) & (dets <= best_key[0])
         if not ok.any():
             continue
-        for m, det in zip(matrices[ok], dets[ok]):
-            sc = m @ cell
-            sp = plane_spacings(sc)
-            if sp.min() < min_length - 1e-9:
-                continue
-            cubicness = -float(sp.min() / abs(np.linalg.det(sc)) ** (1 / 3))
-            key = (int(det), cubicness)
-            if key < best_key:
-                best, best_key = m, key
+        matrices, dets = matrices[ok], dets[ok]
+        cells = matrices @ cell
+        volumes = np.abs(np.linalg.det(cells))
+        spacings = np.stack([volumes / np.linalg.norm(np.cross(cells[:, (a + 1) % 3], cells[:, (a + 2) % 3]), axis=1)
+                             for a in range(3)], axis=1)
+        shortest = spacings.min(axis=1)
+        reach = shortest >= min_length - 1e-9
+        if not reach.any():
+            continue
+        cubicness = -shortest[reach] / volumes[reach] ** (1.0 / 3.0)
+        order = np.lexsort((cubicness, dets[reach]))
+        key = (int(dets[reach][order[0]]), float(cubicness[order[0]]))
+        if key < best_key:
+            best, best_key = matrices[reach][order[0]], key
     return best
 
 
