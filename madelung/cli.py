@@ -446,6 +446,9 @@ def _add_defect(sub):
     _supercell_options(parser)
     parser.add_argument("--neighbour-radius", type=float, default=3.5, metavar="Å",
                         help="report potential changes on sites within this distance (default 3.5 Å)")
+    parser.add_argument("--series", metavar="N,N,...",
+                        help="also repeat the supercell N times along each axis (e.g. 1,2,3) and check the 1/L "
+                             "extrapolation of the energy change")
     _dielectric_options(parser)
     return parser
 
@@ -464,6 +467,17 @@ def _run_defect(args):
     result = defect_energy(crystal, vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
                            supercell=args.supercell, min_length=args.min_length, tol=args.tol,
                            neighbour_radius=args.neighbour_radius, dielectric=eps)
+    series = None
+    if args.series:
+        from .defects import defect_series
+
+        try:
+            repeats = [int(x) for x in args.series.split(",") if x.strip()]
+        except ValueError:
+            raise InputError(f"--series {args.series!r} must be integers such as 1,2,3") from None
+        series = defect_series(crystal, repeats, supercell=args.supercell, min_length=args.min_length,
+                               vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
+                               tol=args.tol)
     sc = result.supercell
     background_text = ("uniform neutralizing background (the defects carry a net charge)" if result.background
                        else "none needed (the defects are neutral overall)")
@@ -489,6 +503,10 @@ def _run_defect(args):
                             "potential_before_V": n.potential_before, "potential_after_V": n.potential_after,
                             "change_V": n.change} for n in result.neighbours],
             "error_estimate_eV": result.error_estimate,
+            "series": None if series is None else {
+                "repeats": list(series.repeats), "lengths_angstrom": series.lengths,
+                "energy_changes_eV": series.energy_changes, "corrected_eV": series.corrected,
+                "fit_dilute_limit_eV": series.dilute_limit, "fit_slope_eV_angstrom": series.slope},
             "sign_convention": "energy change = E(defective supercell) - E(perfect supercell); removed ions go to "
                                "infinity, added ions come from infinity",
         })
@@ -516,8 +534,15 @@ def _run_defect(args):
                      f"(change + correction = {result.energy_change + result.image_correction:.6f})")
     if result.dielectric_correction is not None:
         dc = result.dielectric_correction
-        lines.append(f"      image correction, eps = {_eps_text(dc.dielectric):<11} {dc.energy:14.6f}   "
-                     "(for a screened calculation of this supercell)")
+        lines.append(f"      image correction, screened          {dc.energy:14.6f}   "
+                     f"(eps = {_eps_text(dc.dielectric)}; for a screened calculation of this supercell)")
+    if series is not None:
+        lines += ["", "  1/L check: the same defects in n x the supercell",
+                  f"  {'n':>3} {'L / Å':>9} {'change / eV':>14} {'+ image corr. / eV':>19}"]
+        for n, length, change, corr in zip(series.repeats, series.lengths, series.energy_changes, series.corrected):
+            lines.append(f"  {n:>3} {length:>9.3f} {change:>14.6f} {corr:>19.6f}")
+        lines.append(f"  fit change = E_dilute + a/L: E_dilute = {series.dilute_limit:.6f} eV (Madelung estimate "
+                     f"{series.madelung_estimate:.6f} eV), a = {series.slope:.4f} eV Å")
     if result.neighbours:
         lines += ["", f"  potential change on sites within {args.neighbour_radius:g} Å of a defect",
                   f"  {'#':>6}  {'label':<8} {'distance / Å':>12} {'phi before / V':>15} {'phi after / V':>14} "

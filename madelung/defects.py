@@ -1308,6 +1308,56 @@ def interstitial_energy(crystal, fractional, species, **options) -> DefectResult
 
 
 @dataclass(frozen=True)
+class DefectSeries:
+    """The same defects in the supercells n x (a base supercell), with the 1/L extrapolation.
+
+    Attributes
+    ----------
+    repeats : n of each supercell. lengths : V^(1/3), Å. results : DefectResult each.
+    energy_changes : supercell energy changes, eV. corrected : energy change + image correction (eps = 1), eV.
+    dilute_limit : intercept c of the least-squares fit energy_change = c + a / L, eV.
+    slope : a, eV·Å. madelung_estimate : the dilute-limit estimate sum Dq phi, eV (the fit should find it).
+    """
+
+    repeats: tuple
+    lengths: np.ndarray
+    results: tuple
+    energy_changes: np.ndarray
+    corrected: np.ndarray
+    dilute_limit: float
+    slope: float
+    madelung_estimate: float
+
+
+def defect_series(crystal, repeats=(1, 2, 3), *, supercell=None, min_length=None, **defects) -> DefectSeries:
+    """:func:`defect_energy` in the supercells n x base (base from ``supercell`` / ``min_length``,
+    default the cell), and the fit E(L) = E_dilute + a / L of the uncorrected energy changes.
+
+    For a charged defect the supercell energy falls off as the image term, which is exactly a / L
+    for supercells of one shape in this model (Makov & Payne); the fitted E_dilute must match the
+    Madelung-site-potential estimate, and the image-corrected values must not depend on L.
+
+    References
+    ----------
+    G. Makov and M. C. Payne, Phys. Rev. B 51 (1995) 4014.
+    """
+    repeats = tuple(int(n) for n in repeats)
+    if len(repeats) < 2 or min(repeats) < 1 or len(set(repeats)) != len(repeats):
+        raise InputError(f"the series needs at least two different positive repeats, got {list(repeats)}")
+    base = make_supercell(crystal, supercell, min_length).matrix
+    defects.setdefault("neighbour_radius", 0.0)
+    results = tuple(defect_energy(crystal, supercell=n * base, **defects) for n in repeats)
+    lengths = np.array([r.supercell.crystal.volume ** (1.0 / 3.0) for r in results])
+    changes = np.array([r.energy_change for r in results])
+    corrected = np.array([r.energy_change + r.image_correction for r in results])
+    design = np.stack([np.ones_like(lengths), 1.0 / lengths], axis=1)
+    (limit, slope), *_ = np.linalg.lstsq(design, changes, rcond=None)
+    return DefectSeries(repeats=repeats, lengths=lengths, results=results, energy_changes=changes,
+                        corrected=corrected, dilute_limit=float(limit), slope=float(slope),
+                        madelung_estimate=results[0].madelung_estimate)
+
+
+@dataclass(frozen=True)
 class VacancyRow:
     """One inequivalent site in a vacancy ranking.
 
