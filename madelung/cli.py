@@ -274,6 +274,13 @@ def _frac(f):
     return "(" + ", ".join(f"{x:.4f}" for x in f) + ")"
 
 
+def _series(text):
+    try:
+        return [int(x) for x in text.split(",") if x.strip()]
+    except ValueError:
+        raise InputError(f"--series {text!r} must be integers such as 1,2,3") from None
+
+
 def _dielectric_from(args):
     from .defects import dielectric_tensor, read_dielectric_tensor
 
@@ -471,11 +478,7 @@ def _run_defect(args):
     if args.series:
         from .defects import defect_series
 
-        try:
-            repeats = [int(x) for x in args.series.split(",") if x.strip()]
-        except ValueError:
-            raise InputError(f"--series {args.series!r} must be integers such as 1,2,3") from None
-        series = defect_series(crystal, repeats, supercell=args.supercell, min_length=args.min_length,
+        series = defect_series(crystal, _series(args.series), supercell=args.supercell, min_length=args.min_length,
                                vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
                                tol=args.tol)
     sc = result.supercell
@@ -661,12 +664,8 @@ def _run_correction(args):
     eps = _dielectric_from(args)
     if eps is None:
         eps = np.eye(3)
-    try:
-        repeats = [int(x) for x in args.series.split(",") if x.strip()]
-    except ValueError:
-        raise InputError(f"--series {args.series!r} must be integers such as 1,2,3,4") from None
     main = charged_cell_correction(cell, args.charge, eps, tol=args.tol)
-    series = correction_series(cell, args.charge, eps, repeats, tol=args.tol)
+    series = correction_series(cell, args.charge, eps, _series(args.series), tol=args.tol)
     values = np.linalg.eigvalsh(eps)
     if args.json:
         _print_json({"cell_source": source, "cell_angstrom": cell, "volume_angstrom3": abs(np.linalg.det(cell)),

@@ -115,6 +115,13 @@ class PointPotentials:
     seconds: float
 
 
+def _point_bins(bins, points):
+    """Wrapped fractional and Cartesian coordinates of points, and the bin of each among ``bins``."""
+    frac = wrapped_fractional(bins.cell, points)
+    point_bin = np.minimum(np.floor(frac * bins.counts).astype(np.int64), bins.counts - 1)
+    return frac, np.ascontiguousarray(frac @ bins.cell), np.ascontiguousarray(point_bin)
+
+
 class _PointSum:
     """The Ewald sum of one crystal prepared once (bins, structure factors) for many point queries."""
 
@@ -171,10 +178,7 @@ class _PointSum:
                                extra={"smearing_angstrom": self.smearing})
 
     def point_bins(self, points):
-        frac = wrapped_fractional(self.cell, points)
-        counts = self.bins.counts
-        point_bin = np.minimum(np.floor(frac * counts).astype(np.int64), counts - 1)
-        return frac, np.ascontiguousarray(frac @ self.cell), np.ascontiguousarray(point_bin)
+        return _point_bins(self.bins, points)
 
     def evaluate(self, points, exclude=None, want_field=False):
         """Raw evaluation: (potential V, field V/Å or zeros, nearest distance, nearest original index, pairs).
@@ -637,10 +641,9 @@ class _ProbeEnergy:
     def __call__(self, points, want_gradient=False):
         phi, efield, nearest, nearest_index, _ = self.sum.evaluate(points, None, want_gradient)
         cb = self.contact_bins
-        frac = wrapped_fractional(cb.cell, points)
-        point_bin = np.ascontiguousarray(np.minimum(np.floor(frac * cb.counts).astype(np.int64), cb.counts - 1))
+        _, wrapped, point_bin = _point_bins(cb, points)
         contact, grad_contact = point_kernels.contact_repulsion_at_points(
-            np.ascontiguousarray(frac @ cb.cell), point_bin, cb.positions, self.contact_radii, cb.cell, cb.counts,
+            wrapped, point_bin, cb.positions, self.contact_radii, cb.cell, cb.counts,
             cb.reach, cb.bin_start, self.probe_radius, CONTACT_PREFACTOR, CONTACT_SOFTNESS, self.contact_cutoff,
             bool(want_gradient))
         electrostatic = self.probe * phi
@@ -1072,7 +1075,7 @@ def _find_site(supercell: Supercell, spec):
     return candidates[int(np.argmin(distance))]
 
 
-def _parse_species(text, what, crystal):
+def _parse_species(text, what):
     """``Al``, ``Al:+3`` or ``Al+3`` into (element, charge or None)."""
     text = str(text).strip()
     match = re.match(r"^([A-Z][a-z]?)\s*(?::\s*([+-]?\d+(?:\.\d+)?)|([+-]\d+(?:\.\d+)?))?$", text)
@@ -1166,7 +1169,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
         if not sep:
             raise InputError(f"substitution {spec!r} must look like SITE=ELEMENT, e.g. Mg1=Al:+3")
         index = _find_site(sc, site)
-        element, charge = _parse_species(species, f"substitution {spec!r}", crystal)
+        element, charge = _parse_species(species, f"substitution {spec!r}")
         charge = _species_charge(element, charge, crystal, f"substitution {spec!r}")
         changes.append(("substitution", str(spec), index, element, charge, big.positions[index]))
     for spec in interstitial:
@@ -1174,7 +1177,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
         if not sep:
             raise InputError(f"interstitial {spec!r} must look like x,y,z=ELEMENT, e.g. 0.5,0.5,0.5=Li")
         frac = _parse_vector(where_text, f"interstitial {spec!r}: position")
-        element, charge = _parse_species(species, f"interstitial {spec!r}", crystal)
+        element, charge = _parse_species(species, f"interstitial {spec!r}")
         charge = _species_charge(element, charge, crystal, f"interstitial {spec!r}")
         position = frac @ crystal.cell
         distances = _distances_to_ions(big.cell, big.positions, position)
@@ -1341,9 +1344,7 @@ def defect_series(crystal, repeats=(1, 2, 3), *, supercell=None, min_length=None
     ----------
     G. Makov and M. C. Payne, Phys. Rev. B 51 (1995) 4014.
     """
-    repeats = tuple(int(n) for n in repeats)
-    if len(repeats) < 2 or min(repeats) < 1 or len(set(repeats)) != len(repeats):
-        raise InputError(f"the series needs at least two different positive repeats, got {list(repeats)}")
+    repeats = _series_repeats(repeats)
     base = make_supercell(crystal, supercell, min_length).matrix
     defects.setdefault("neighbour_radius", 0.0)
     results = tuple(defect_energy(crystal, supercell=n * base, **defects) for n in repeats)
@@ -1626,6 +1627,13 @@ def charged_cell_correction(cell, charge, dielectric=1.0, *, tol=1e-10) -> Charg
         error_estimate=float(error))
 
 
+def _series_repeats(repeats):
+    repeats = tuple(int(n) for n in repeats)
+    if len(repeats) < 2 or min(repeats) < 1 or len(set(repeats)) != len(repeats):
+        raise InputError(f"the series needs at least two different positive repeats, got {list(repeats)}")
+    return repeats
+
+
 @dataclass(frozen=True)
 class CorrectionSeries:
     """The correction over the supercells n x (the given cell), with its 1/L check.
@@ -1658,9 +1666,7 @@ def correction_series(cell, charge, dielectric=1.0, repeats=(1, 2, 3, 4), *, tol
         cell = cell.crystal.cell
     elif isinstance(cell, Crystal):
         cell = cell.cell
-    repeats = tuple(int(n) for n in repeats)
-    if len(repeats) < 2 or min(repeats) < 1 or len(set(repeats)) != len(repeats):
-        raise InputError(f"the series needs at least two different positive repeats, got {list(repeats)}")
+    repeats = _series_repeats(repeats)
     cell = np.asarray(cell, float)
     corrections = tuple(charged_cell_correction(n * cell, charge, dielectric, tol=tol) for n in repeats)
     lengths = np.array([c.length for c in corrections])

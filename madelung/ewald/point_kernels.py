@@ -23,6 +23,14 @@ from ..geometry_kernels import neighbour_bin
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
 
+@njit(cache=True, inline="always")
+def _lattice_shift(s0, s1, s2, cell):
+    """Cartesian vector s0*a + s1*b + s2*c."""
+    return (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0],
+            s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1],
+            s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
+
+
 @njit(parallel=True, cache=True)
 def real_space_at_points(points, point_bin, exclude, positions, charges, cell, counts, reach, bin_start,
                          alpha, beta, r_cut, coincide, want_field):
@@ -71,9 +79,7 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
                 for d2 in range(-reach[2], reach[2] + 1):
                     b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
                                                   d0, d1, d2, counts)
-                    sx = s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0]
-                    sy = s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1]
-                    sz = s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2]
+                    sx, sy, sz = _lattice_shift(s0, s1, s2, cell)
                     for j in range(bin_start[b], bin_start[b + 1]):
                         dx = xp - positions[j, 0] - sx
                         dy = yp - positions[j, 1] - sy
@@ -144,9 +150,7 @@ def contact_repulsion_at_points(points, point_bin, positions, radii, cell, count
                 for d2 in range(-reach[2], reach[2] + 1):
                     b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
                                                   d0, d1, d2, counts)
-                    sx = s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0]
-                    sy = s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1]
-                    sz = s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2]
+                    sx, sy, sz = _lattice_shift(s0, s1, s2, cell)
                     for j in range(bin_start[b], bin_start[b + 1]):
                         dx = xp - positions[j, 0] - sx
                         dy = yp - positions[j, 1] - sy
