@@ -48,7 +48,7 @@ import math
 import re
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numba
 import numpy as np
@@ -68,6 +68,9 @@ ON_ION_DISTANCE = 1e-4
 #: (M. P. Tosi and F. G. Fumi, J. Phys. Chem. Solids 25 (1964) 45; from memory).
 CONTACT_PREFACTOR = 0.211
 CONTACT_SOFTNESS = 0.33
+
+#: Grid points nearer than this to an ion (Å) are not evaluated in the interstitial search.
+NEAR_ION_GRID_DISTANCE = 0.1
 
 #: Default probe radius, Å (about a small monovalent cation; Shannon's Li+ in VI is 0.76 Å).
 DEFAULT_PROBE_RADIUS = 0.76
@@ -527,7 +530,8 @@ def equivalent_sites(crystal, symprec=1e-3):
 def _orbit(rotations, translations, frac, cell, tolerance):
     """Distinct images (fractional, in [0,1)) of a point under the operations."""
     images = np.einsum("oij,j->oi", rotations, frac) + translations
-    images -= np.floor(images)
+    images -= np.floor(images + 1e-6)  # fold 0.9999997 (optimiser precision) onto 0, not 1
+    images[np.abs(images) < 1e-6] = 0.0
     distinct = []
     for image in images:
         if not distinct or np.min(_periodic_distance(cell, np.array(distinct), image)) > tolerance:
@@ -651,17 +655,15 @@ class _ProbeEnergy:
         return phi, electrostatic, contact, gradient, nearest, nearest_index
 
 
-def _grid_minima(values):
-    """Indices of grid points not above any of their 26 periodic neighbours, all of them finite
-    (a point against the masked region round an ion is the edge of the mask, not a minimum)."""
-    is_min = np.isfinite(values)
+def _grid_minima(values, allowed):
+    """Indices of the ``allowed`` grid points not above any of their 26 periodic neighbours."""
+    is_min = allowed & np.isfinite(values)
     for d0 in (-1, 0, 1):
         for d1 in (-1, 0, 1):
             for d2 in (-1, 0, 1):
                 if d0 == d1 == d2 == 0:
                     continue
-                neighbour = np.roll(values, (d0, d1, d2), axis=(0, 1, 2))
-                is_min &= np.isfinite(neighbour) & (values <= neighbour)
+                is_min &= values <= np.roll(values, (d0, d1, d2), axis=(0, 1, 2))
     return np.argwhere(is_min)
 
 
@@ -753,15 +755,16 @@ def find_interstitials(crystal, probe=1.0, *, spacing=0.2, probe_radius=DEFAULT_
     frac = grid_fractional(shape)
     points = frac @ cell
 
-    # mask points too close to their nearest ion, then find the grid minima of the rest
+    # the energy on the whole grid (but on the ions); minima are sought among the points that keep
+    # their clearance, compared with all 26 neighbours, so the rim of the excluded region round an
+    # attracting ion (where the energy keeps falling inwards) is not taken for a minimum
     nearest, nearest_index = energy.sum.nearest(points)
-    limit = clearance * (radii_array[nearest_index] + probe_radius)
-    allowed = (nearest >= limit) & (nearest > ON_ION_DISTANCE)
+    evaluable = nearest > NEAR_ION_GRID_DISTANCE
     total = np.full(len(points), np.inf)
-    if allowed.any():
-        _, el, contact, _, _, _ = energy(points[allowed])
-        total[allowed] = el + contact
-    minima = _grid_minima(total.reshape(shape))
+    _, el, contact, _, _, _ = energy(points[evaluable])
+    total[evaluable] = el + contact
+    allowed = nearest >= clearance * (radii_array[nearest_index] + probe_radius)
+    minima = _grid_minima(total.reshape(shape), allowed.reshape(shape))
 
     threads = numba.get_num_threads()
     numba.set_num_threads(1)  # one point per call: waking a thread pool costs more than the sum

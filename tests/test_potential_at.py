@@ -73,8 +73,9 @@ def test_potential_and_field_are_periodic(frac, shift):
     except InputError:  # landed on an ion image
         return
     b = potential_at(crystal, point + np.array(shift) @ crystal.cell, field=True, tol=1e-10)
-    assert b.potentials[0] == pytest.approx(a.potentials[0], abs=1e-8)
-    assert np.allclose(b.field, a.field, atol=1e-8)
+    # rounding of the folded coordinates grows with the potential's size near an ion
+    assert b.potentials[0] == pytest.approx(a.potentials[0], rel=1e-10, abs=1e-8)
+    assert np.allclose(b.field, a.field, rtol=1e-8, atol=1e-8)
 
 
 @pytest.mark.parametrize("smearing", [0.0, 0.4])

@@ -158,6 +158,8 @@ def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s
     """Reciprocal-space potential (N,) in e/Å and forces (N, 3) in e^2/Å^2 from S(k).
 
     ``weights`` are 2 w(k) for the half-space k-vectors (the factor 2 counts -k).
+    ``frac`` may be any points, not only the ions: with unit ``charges`` the "forces" are the
+    reciprocal-space field in e/Å^2 (``madelung.defects`` uses it so).
     """
     n = frac.shape[0]
     m_count = hkl.shape[0]
