@@ -230,7 +230,9 @@ class _PointSum:
         points = np.ascontiguousarray(points, dtype=np.float64).reshape(-1, 3)
         m = len(points)
         labels = self.crystal.labels
-        # nearest ion of each point (cheap: one real-space pass without the field)
+        if self.beta > 0 and (exclude is None or (isinstance(exclude, str) and exclude == "none")):
+            return np.full(m, -1, dtype=np.int64)  # smeared ions: every point is allowed
+        # nearest ion of each point (one real-space pass without the field)
         nearest, nearest_index = self.nearest(points)
         if exclude is None or (isinstance(exclude, str) and exclude == "none"):
             wanted = np.full(m, -1, dtype=np.int64)
