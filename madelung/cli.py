@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import re
 import sys
 import warnings
@@ -18,7 +19,8 @@ import numpy as np
 
 from . import __version__
 from .errors import InputError, MadelungWarning
-from .units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from .constants import CONVENTION_TEXT
+from .units import EV_TO_KJ_PER_MOL
 
 MODEL_NOTE = ("Point-charge model: with formal charges the electrostatic terms overstate what a real, "
               "partly covalent solid holds. Results are model estimates, not measured properties.")
@@ -66,23 +68,22 @@ def load_crystal(args):
 
 def _with_rules(atoms, rules, args):
     """Charges from rules; sites the rules do not name keep the charges read from the file."""
-    from .crystal import Crystal
+    from .crystal import Crystal, charges_in_structure
 
-    base = None
-    if "oxidation_states" in atoms.arrays:
-        base = np.array(atoms.arrays["oxidation_states"], dtype=float)
-    elif np.any(atoms.get_initial_charges() != 0):
-        base = atoms.get_initial_charges()
+    base = charges_in_structure(atoms)
     if base is None:
         return Crystal.from_ase(atoms, rules, source=args.file, min_distance=args.min_distance)
-    crystal = Crystal.from_ase(atoms, base, source=args.file, min_distance=0)
-    named = set(rules)
-    unknown = sorted(named - set(crystal.symbols) - set(crystal.labels))
+    symbols = atoms.get_chemical_symbols()
+    labels = [str(x) for x in atoms.arrays["labels"]] if "labels" in atoms.arrays else symbols
+    unknown = sorted(set(rules) - set(symbols) - set(labels))
     if unknown:
         raise InputError(f"{args.file}: charge given for {unknown[0]}, which is neither an element nor a site label "
                          "of this structure")
-    charges = np.array([rules.get(label, rules.get(symbol, q))
-                        for label, symbol, q in zip(crystal.labels, crystal.symbols, base)])
+    charges = np.array([rules.get(label, rules.get(symbol, q)) for label, symbol, q in zip(labels, symbols, base)])
+    missing = [label for label, q in zip(labels, charges) if not np.isfinite(q)]
+    if missing:
+        raise InputError(f"{args.file}: site {missing[0]} has no charge in the file or the rules; "
+                         f"add --charge {missing[0]}=Q")
     return Crystal.from_ase(atoms, charges, source=args.file, min_distance=args.min_distance)
 
 
@@ -236,14 +237,20 @@ def _run_sites(args):
 def _add_constant(sub):
     parser = sub.add_parser("constant", help="Madelung constants in each named convention",
                             description="Madelung constants with r0 the shortest cation–anion distance and E_fu "
-                                        "the electrostatic energy per formula unit, in three named conventions.")
+                                        "the electrostatic energy per formula unit, in three named conventions. "
+                                        "Several files give one row each; a file that fails gets its message in "
+                                        "its row and the others go on.")
     _common(parser)
+    parser.add_argument("more_files", nargs="*", metavar="FILE", help=argparse.SUPPRESS)
     return parser
 
 
 def _run_constant(args):
-    from .constants import CONVENTION_TEXT, madelung_constants
+    from .constants import madelung_constants
 
+    files = [args.file, *args.more_files]
+    if len(files) > 1:
+        return _constant_table(args, files)
     crystal = load_crystal(args)
     c = madelung_constants(crystal, tol=args.tol)
     if args.json:
@@ -429,6 +436,39 @@ def _run_interstitials(args):
     print("  q*phi: probe charge times the crystal's potential (ranked by it, lowest first); contact: Born-Mayer "
           "term b exp((R_ion+R_probe-d)/rho), b = 0.211 eV, rho = 0.33 Å, which gives the minima (a bare point "
           "charge has no stable site, Earnshaw). Unrelaxed lattice.")
+    print(f"  note        {MODEL_NOTE}")
+    return 0
+
+
+def _constant_table(args, files):
+    """One row per file; failures are rows too, and the run goes on."""
+    from .constants import madelung_constants
+
+    rows = []
+    for path in files:
+        args.file = path
+        try:
+            c = madelung_constants(load_crystal(args), tol=args.tol)
+            rows.append({"file": path, "status": "ok", **c.as_dict()})
+        except InputError as exc:
+            rows.append({"file": path, "status": str(exc)})
+    failed = sum(row["status"] != "ok" for row in rows)
+    if args.json:
+        _print_json({"structures": rows, "failed": failed})
+        return 0
+    print(f"madelung constant  {len(files)} structures, tol {args.tol:.0e}")
+    print(f"  {'file':<34} {'formula':<9} {'r0 / Å':>8} {'charges in':>13} {'handbook':>13} {'common factor':>14}")
+    for row in rows:
+        name = os.path.basename(row["file"])
+        if row["status"] != "ok":
+            print(f"  {name:<34} failed: {row['status']}")
+            continue
+        print(f"  {name:<34} {row['formula']:<9} {row['r0_angstrom']:>8.4f} {row['charges_left_in']:>13.8f} "
+              f"{_fmt(row['handbook'], 8):>13} {_fmt(row['common_factor'], 8):>14}")
+    print()
+    for name in ("charges_left_in", "handbook", "common_factor"):
+        print(f"  {name:<16} {CONVENTION_TEXT[name]}")
+    print(f"  {len(rows) - failed} done, {failed} failed")
     print(f"  note        {MODEL_NOTE}")
     return 0
 

@@ -264,15 +264,16 @@ class Crystal:
             labels = [str(x) for x in atoms.arrays["labels"]]
         occupancies = atoms.arrays.get("occupancies")
         if charges is None:
-            if "oxidation_states" in atoms.arrays:
-                charges = np.array(atoms.arrays["oxidation_states"], dtype=float)
-            else:
-                initial = atoms.get_initial_charges()
-                if np.any(initial != 0):
-                    charges = initial
-                else:
-                    raise InputError(f"{where}no charges found in the structure; give them, "
-                                     "e.g. --charge Na=+1 --charge Cl=-1")
+            charges = charges_in_structure(atoms)
+            if charges is None:
+                elements = list(dict.fromkeys(symbols))
+                raise InputError(f"{where}no charges found in the structure; give them, e.g. "
+                                 + " ".join(f"--charge {el}=Q" for el in elements))
+            missing = [i for i in range(len(charges)) if not np.isfinite(charges[i])]
+            if missing:
+                names = list(dict.fromkeys(labels[i] if labels is not None else symbols[i] for i in missing))
+                raise InputError(f"{where}the file gives no oxidation state for site "
+                                 f"{', '.join(names)}; give it, e.g. --charge {names[0]}=Q")
         info = {k: v for k, v in atoms.info.items() if isinstance(v, (str, int, float))}
         return cls(np.array(atoms.cell), atoms.get_positions(), charges, symbols, labels, occupancies,
                    source=source, min_distance=min_distance, info=info)
@@ -286,6 +287,15 @@ class Crystal:
         """
         atoms = read_structure(path, index=index, format=format)
         return cls.from_ase(atoms, charges, source=str(path), min_distance=min_distance)
+
+
+def charges_in_structure(atoms):
+    """Charges an ``ase.Atoms`` carries: CIF oxidation states (NaN where a site has none), else ASE
+    initial charges if any is non-zero, else None."""
+    if "oxidation_states" in atoms.arrays:
+        return np.array(atoms.arrays["oxidation_states"], dtype=float)
+    initial = atoms.get_initial_charges()
+    return np.array(initial, dtype=float) if np.any(initial != 0) else None
 
 
 def read_structure(path, index=-1, format=None):
@@ -370,8 +380,10 @@ def _attach_cif_sites(atoms, path):
         if value is None:
             value = parse_typed_symbol(name)[1]
         site_charges.append(value)
-    if all(v is not None for v in site_charges) and len(site_charges) == len(site_labels):
-        atoms.arrays["oxidation_states"] = np.array([site_charges[k] for k in kinds], dtype=float)
+    if any(v is not None for v in site_charges) and len(site_charges) == len(site_labels):
+        # NaN marks a site the file gives no oxidation state for
+        values = [np.nan if v is None else v for v in site_charges]
+        atoms.arrays["oxidation_states"] = np.array([values[k] for k in kinds], dtype=float)
 
 
 def _resolve_charges(charges, symbols, labels, where):

@@ -50,18 +50,21 @@ import time
 import warnings
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 
 from .crystal import Crystal
 from .errors import InputError, MadelungWarning
 from .ewald import kernels, point_kernels, tuning
 from .ewald.direct import NEUTRAL_TOLERANCE, EwaldParameters, reciprocal_vectors, shortest_distance
-from .geometry import build_bins, nearest_neighbour_distances, plane_spacings, wrapped_fractional
+from .geometry import (EXAMINED_PAIR_NS, build_bins, nearest_neighbour_distances, plane_spacings,
+                       thread_budget, wrapped_fractional)
 from .units import COULOMB_CONSTANT
 
 #: A point nearer than this to an ion (Å) sits on it.
 ON_ION_DISTANCE = 1e-4
+
+#: Rough cost of one (point or ion, k-vector) reciprocal term, ns, for choosing the thread count.
+RECIPROCAL_TERM_NS = 4.0
 
 #: Born–Mayer contact term of the interstitial probe: E = b exp((R_ion + R_probe - d) / rho).
 #: b = 0.338e-19 J = 0.211 eV and rho = 0.33 Å are the Tosi–Fumi values for the alkali halides
@@ -161,6 +164,7 @@ class _PointSum:
         self.tol = tol
         self.bins = build_bins(cell, positions, choice.real_cutoff)
         self.sorted_charges = self.bins.sorted_values(charges)
+        self.examined_per_point = n * self.bins.examined_volume / volume
         self.rank = np.empty(n, dtype=np.int64)
         self.rank[self.bins.order] = np.arange(n)
         self.hkl, self.kvectors, self.hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
@@ -169,8 +173,8 @@ class _PointSum:
             self.weights = np.ascontiguousarray(
                 2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
             frac = wrapped_fractional(cell, positions)
-            self.s_re, self.s_im = kernels.structure_factors(frac, charges, self.hkl, self.hmax,
-                                                             numba.get_num_threads())
+            with thread_budget(RECIPROCAL_TERM_NS * n * len(self.hkl)):
+                self.s_re, self.s_im = kernels.structure_factors(frac, charges, self.hkl, self.hmax, kernels.CHUNKS)
         # potential error: the energy estimate is k_e/2 sum|q| dphi
         self.potential_error = 2.0 * choice.error_estimate / q_abs
 
@@ -195,14 +199,15 @@ class _PointSum:
             exclude = np.full(m, -1, dtype=np.int64)
         exclude_sorted = np.where(exclude >= 0, self.rank[np.maximum(exclude, 0)], -1).astype(np.int64)
         b = self.bins
-        phi_r, e_r, nearest, nearest_sorted, pairs = point_kernels.real_space_at_points(
-            wrapped, point_bin, exclude_sorted, b.positions, self.sorted_charges, b.cell, b.counts, b.reach,
-            b.bin_start, self.alpha, self.beta, self.choice.real_cutoff, ON_ION_DISTANCE, bool(want_field))
-        if len(self.hkl):
-            phi_k, e_k = kernels.reciprocal_site_terms(frac, np.ones(m), self.hkl, self.hmax, self.kvectors,
-                                                       self.weights, self.s_re, self.s_im, bool(want_field))
-        else:
-            phi_k, e_k = np.zeros(m), np.zeros((m, 3))
+        with thread_budget(m * (self.examined_per_point * EXAMINED_PAIR_NS + RECIPROCAL_TERM_NS * len(self.hkl))):
+            phi_r, e_r, nearest, nearest_sorted, pairs = point_kernels.real_space_at_points(
+                wrapped, point_bin, exclude_sorted, b.positions, self.sorted_charges, b.cell, b.counts, b.offsets,
+                b.bin_start, self.alpha, self.beta, self.choice.real_cutoff, ON_ION_DISTANCE, bool(want_field))
+            if len(self.hkl):
+                phi_k, e_k = kernels.reciprocal_site_terms(frac, np.ones(m), self.hkl, self.hmax, self.kvectors,
+                                                           self.weights, self.s_re, self.s_im, bool(want_field))
+            else:
+                phi_k, e_k = np.zeros(m), np.zeros((m, 3))
         phi = phi_r + phi_k
         if self.background:
             phi = phi - math.pi * self.net / (self.volume * self.alpha ** 2)
@@ -219,10 +224,11 @@ class _PointSum:
         points = np.ascontiguousarray(points, dtype=np.float64).reshape(-1, 3)
         _, wrapped, point_bin = self.point_bins(points)
         b = self.bins
-        _, _, nearest, nearest_sorted, _ = point_kernels.real_space_at_points(
-            wrapped, point_bin, np.full(len(points), -1, dtype=np.int64), b.positions, self.sorted_charges,
-            b.cell, b.counts, b.reach, b.bin_start, self.alpha, self.beta, self.choice.real_cutoff,
-            ON_ION_DISTANCE, False)
+        with thread_budget(len(points) * self.examined_per_point * EXAMINED_PAIR_NS):
+            _, _, nearest, nearest_sorted, _ = point_kernels.real_space_at_points(
+                wrapped, point_bin, np.full(len(points), -1, dtype=np.int64), b.positions, self.sorted_charges,
+                b.cell, b.counts, b.offsets, b.bin_start, self.alpha, self.beta, self.choice.real_cutoff,
+                ON_ION_DISTANCE, False)
         return nearest, np.where(nearest_sorted >= 0, b.order[np.maximum(nearest_sorted, 0)], -1)
 
     def resolve_exclusions(self, points, exclude):
@@ -648,10 +654,11 @@ class _ProbeEnergy:
         phi, efield, nearest, nearest_index, _ = self.sum.evaluate(points, None, want_gradient)
         cb = self.contact_bins
         _, wrapped, point_bin = _point_bins(cb, points)
-        contact, grad_contact = point_kernels.contact_repulsion_at_points(
-            wrapped, point_bin, cb.positions, self.contact_radii, cb.cell, cb.counts,
-            cb.reach, cb.bin_start, self.probe_radius, CONTACT_PREFACTOR, CONTACT_SOFTNESS, self.contact_cutoff,
-            bool(want_gradient))
+        examined = len(points) * len(self.contact_radii) * cb.examined_volume / abs(np.linalg.det(cb.cell))
+        with thread_budget(examined * EXAMINED_PAIR_NS):
+            contact, grad_contact = point_kernels.contact_repulsion_at_points(
+                wrapped, point_bin, cb.positions, self.contact_radii, cb.cell, cb.counts, cb.offsets, cb.bin_start,
+                self.probe_radius, CONTACT_PREFACTOR, CONTACT_SOFTNESS, self.contact_cutoff, bool(want_gradient))
         electrostatic = self.probe * phi
         gradient = -self.probe * efield + grad_contact
         return phi, electrostatic, contact, gradient, nearest, nearest_index
@@ -768,13 +775,8 @@ def find_interstitials(crystal, probe=1.0, *, spacing=0.2, probe_radius=DEFAULT_
     allowed = nearest >= clearance * (radii_array[nearest_index] + probe_radius)
     minima = _grid_minima(total.reshape(shape), allowed.reshape(shape))
 
-    threads = numba.get_num_threads()
-    numba.set_num_threads(1)  # one point per call: waking a thread pool costs more than the sum
-    try:
-        refined, rejected = _refine(energy, minima, shape, cell, crystal.positions, radii_array, probe_radius,
-                                    clearance, box)
-    finally:
-        numba.set_num_threads(threads)
+    refined, rejected = _refine(energy, minima, shape, cell, crystal.positions, radii_array, probe_radius,
+                                clearance, box)
 
     # merge: duplicates and symmetry images
     rotations, translations = _symmetry_operations(crystal, symprec)

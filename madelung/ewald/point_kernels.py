@@ -1,7 +1,7 @@
 """Numba kernels for sums at arbitrary points of space (not only at the ions).
 
 The ions are sorted into bins by ``geometry.build_bins``; each point is given its own bin
-(from its wrapped fractional coordinates) and walks the same stencil of neighbour bins with
+(from its wrapped fractional coordinates) and walks the same pruned stencil of neighbour bins (``CellBins.offsets``) with
 ``geometry_kernels.neighbour_bin`` that the ion-ion sums use. One thread owns each point.
 
     real space at a point r:   sum_j,n q_j [erfc(alpha d) - erfc(beta d)] / d,   d = |r - r_j - n|
@@ -18,21 +18,13 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import neighbour_bin
+from ..geometry_kernels import image_shift, neighbour_bin
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
 
-@njit(cache=True, inline="always")
-def _lattice_shift(s0, s1, s2, cell):
-    """Cartesian vector s0*a + s1*b + s2*c."""
-    return (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0],
-            s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1],
-            s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
-
-
 @njit(parallel=True, cache=True)
-def real_space_at_points(points, point_bin, exclude, positions, charges, cell, counts, reach, bin_start,
+def real_space_at_points(points, point_bin, exclude, positions, charges, cell, counts, offsets, bin_start,
                          alpha, beta, r_cut, coincide, want_field):
     """Real-space Ewald potential and field at points, and the nearest ion of each point.
 
@@ -42,7 +34,8 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
     point_bin : (M, 3) bin of each point.
     exclude : (M,) sorted index of an ion to leave out of the point's sum when it lies within
         ``coincide`` of the point (-1: none).
-    positions, charges, cell, counts, reach, bin_start : the binned ions (``CellBins``).
+    positions, charges, cell, counts, offsets, bin_start : the binned ions (``CellBins``; ``offsets``
+        is its pruned stencil of bin offsets).
     alpha : splitting parameter, 1/Å. beta : smearing parameter, 1/Å (<= 0: point ions).
     r_cut : real-space cutoff, Å. coincide : distance below which a point sits on an ion, Å.
 
@@ -74,44 +67,42 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
         best = np.inf
         best_j = -1
         count = 0
-        for d0 in range(-reach[0], reach[0] + 1):
-            for d1 in range(-reach[1], reach[1] + 1):
-                for d2 in range(-reach[2], reach[2] + 1):
-                    b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
-                                                  d0, d1, d2, counts)
-                    sx, sy, sz = _lattice_shift(s0, s1, s2, cell)
-                    for j in range(bin_start[b], bin_start[b + 1]):
-                        dx = xp - positions[j, 0] - sx
-                        dy = yp - positions[j, 1] - sy
-                        dz = zp - positions[j, 2] - sz
-                        r2 = dx * dx + dy * dy + dz * dz
-                        if r2 >= cut2:
-                            continue
-                        if r2 < best:
-                            best = r2
-                            best_j = j
-                        if j == exclude[p] and r2 < co2:
-                            continue
-                        count += 1
-                        q = charges[j]
-                        if r2 < 1e-24:
-                            # only reachable for smeared ions (points on point ions are refused)
-                            if smeared:
-                                phi += q * _TWO_OVER_SQRT_PI * (beta - alpha)
-                            continue
-                        r = math.sqrt(r2)
-                        screened = math.erfc(alpha * r) / r
-                        # g = -(1/r) d/dr of the pair function
-                        g = (screened + _TWO_OVER_SQRT_PI * alpha * math.exp(-a2 * r2)) / r2
-                        if smeared:
-                            wide = math.erfc(beta * r) / r
-                            screened -= wide
-                            g -= (wide + _TWO_OVER_SQRT_PI * beta * math.exp(-b2 * r2)) / r2
-                        phi += q * screened
-                        if want_field:
-                            ex += q * g * dx
-                            ey += q * g * dy
-                            ez += q * g * dz
+        for o in range(offsets.shape[0]):
+            b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
+                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
+            sx, sy, sz = image_shift(cell, s0, s1, s2)
+            for j in range(bin_start[b], bin_start[b + 1]):
+                dx = xp - positions[j, 0] - sx
+                dy = yp - positions[j, 1] - sy
+                dz = zp - positions[j, 2] - sz
+                r2 = dx * dx + dy * dy + dz * dz
+                if r2 >= cut2:
+                    continue
+                if r2 < best:
+                    best = r2
+                    best_j = j
+                if j == exclude[p] and r2 < co2:
+                    continue
+                count += 1
+                q = charges[j]
+                if r2 < 1e-24:
+                    # only reachable for smeared ions (points on point ions are refused)
+                    if smeared:
+                        phi += q * _TWO_OVER_SQRT_PI * (beta - alpha)
+                    continue
+                r = math.sqrt(r2)
+                screened = math.erfc(alpha * r) / r
+                # g = -(1/r) d/dr of the pair function
+                g = (screened + _TWO_OVER_SQRT_PI * alpha * math.exp(-a2 * r2)) / r2
+                if smeared:
+                    wide = math.erfc(beta * r) / r
+                    screened -= wide
+                    g -= (wide + _TWO_OVER_SQRT_PI * beta * math.exp(-b2 * r2)) / r2
+                phi += q * screened
+                if want_field:
+                    ex += q * g * dx
+                    ey += q * g * dy
+                    ez += q * g * dz
         potential[p] = phi
         pair_count[p] = count
         if best_j >= 0:
@@ -125,7 +116,7 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
 
 
 @njit(parallel=True, cache=True)
-def contact_repulsion_at_points(points, point_bin, positions, radii, cell, counts, reach, bin_start,
+def contact_repulsion_at_points(points, point_bin, positions, radii, cell, counts, offsets, bin_start,
                                 probe_radius, prefactor, softness, r_cut, want_gradient):
     """Born–Mayer contact energy of a probe at each point with the ions, and its gradient.
 
@@ -145,27 +136,25 @@ def contact_repulsion_at_points(points, point_bin, positions, radii, cell, count
         gx = 0.0
         gy = 0.0
         gz = 0.0
-        for d0 in range(-reach[0], reach[0] + 1):
-            for d1 in range(-reach[1], reach[1] + 1):
-                for d2 in range(-reach[2], reach[2] + 1):
-                    b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
-                                                  d0, d1, d2, counts)
-                    sx, sy, sz = _lattice_shift(s0, s1, s2, cell)
-                    for j in range(bin_start[b], bin_start[b + 1]):
-                        dx = xp - positions[j, 0] - sx
-                        dy = yp - positions[j, 1] - sy
-                        dz = zp - positions[j, 2] - sz
-                        r2 = dx * dx + dy * dy + dz * dz
-                        if r2 >= cut2 or r2 < 1e-24:
-                            continue
-                        r = math.sqrt(r2)
-                        term = prefactor * math.exp((radii[j] + probe_radius - r) / softness)
-                        e += term
-                        if want_gradient:
-                            h = -term / (softness * r)
-                            gx += h * dx
-                            gy += h * dy
-                            gz += h * dz
+        for o in range(offsets.shape[0]):
+            b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
+                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
+            sx, sy, sz = image_shift(cell, s0, s1, s2)
+            for j in range(bin_start[b], bin_start[b + 1]):
+                dx = xp - positions[j, 0] - sx
+                dy = yp - positions[j, 1] - sy
+                dz = zp - positions[j, 2] - sz
+                r2 = dx * dx + dy * dy + dz * dz
+                if r2 >= cut2 or r2 < 1e-24:
+                    continue
+                r = math.sqrt(r2)
+                term = prefactor * math.exp((radii[j] + probe_radius - r) / softness)
+                e += term
+                if want_gradient:
+                    h = -term / (softness * r)
+                    gx += h * dx
+                    gy += h * dy
+                    gz += h * dz
         energy[p] = e
         if want_gradient:
             gradient[p, 0] = gx
