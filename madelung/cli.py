@@ -396,13 +396,22 @@ def _add_interstitials(sub):
 
 
 def _run_interstitials(args):
-    from .crystal import parse_charge_rules
     from .defects import DEFAULT_PROBE_RADIUS, find_interstitials
 
     crystal = load_crystal(args)
     radii = {}
-    for key, value in parse_charge_rules(args.radius).items():
-        radii[key] = value
+    for rule in args.radius:
+        key, sep, value = str(rule).partition("=")
+        try:
+            radii[key.strip()] = float(value)
+        except ValueError:
+            sep = ""
+        if not sep or not key.strip():
+            raise InputError(f"radius {rule!r} must look like ELEMENT=Å or LABEL=Å, e.g. O=1.40")
+    unknown = sorted(set(radii) - set(crystal.symbols) - set(crystal.labels))
+    if unknown:
+        raise InputError(f"{args.file}: radius given for {unknown[0]}, which is neither an element nor a site label "
+                         "of this structure")
     probe_radius = DEFAULT_PROBE_RADIUS if args.probe_radius is None else args.probe_radius
     search = find_interstitials(crystal, args.probe, spacing=args.grid, probe_radius=probe_radius, radii=radii,
                                 clearance=args.clearance, tol=args.tol)
@@ -431,7 +440,8 @@ def _run_interstitials(args):
         print(f"  {i:>3}  {_frac(s.fractional):<28} {s.electrostatic_energy:>11.4f} {s.contact_energy:>12.4f} "
               f"{s.nearest_label + f' {s.nearest_distance:.3f} Å':>14} {s.multiplicity:>5}")
     if not search.sites:
-        print("  no candidate site passed the filters")
+        print("  no candidate site passed the filters: every empty site is a saddle of the probe's energy here "
+              "(a larger --probe-radius stiffens the contact term)")
     print()
     print("  q*phi: probe charge times the crystal's potential (ranked by it, lowest first); contact: Born-Mayer "
           "term b exp((R_ion+R_probe-d)/rho), b = 0.211 eV, rho = 0.33 Å, which gives the minima (a bare point "
