@@ -51,6 +51,10 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None):
 
 
 from .constants import MadelungConstants, madelung_constants  # noqa: E402
+from .defects import (charged_cell_correction, correction_series, defect_energy,  # noqa: E402
+                      find_interstitials, potential_at, potential_grid, vacancy_ranking)
 
 __all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
-           "MadelungConstants", "InputError", "MadelungError", "MadelungWarning"]
+           "MadelungConstants", "InputError", "MadelungError", "MadelungWarning",
+           "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
+           "charged_cell_correction", "correction_series"]
