@@ -429,8 +429,24 @@ def _species_pairs(crystals):
     return sorted(fitted), sorted(other)
 
 
+def _shortest_pair_distances(crystals, pairs):
+    """Shortest distance (Å, images included) between the two species of each pair in any crystal."""
+    from .geometry import nearest_neighbour_distances
+
+    best = {pair: math.inf for pair in pairs}
+    for crystal in crystals:
+        symbols = np.array(crystal.symbols)
+        for pair in pairs:
+            if pair[0] in symbols and pair[1] in symbols:
+                # mark the two species +1 / -1, all else 0: the nearest "opposite" partner is the pair
+                marks = np.where(symbols == pair[0], 1.0, np.where(symbols == pair[1], -1.0, 0.0))
+                _, to_opposite, _ = nearest_neighbour_distances(crystal.cell, crystal.positions, marks)
+                best[pair] = min(best[pair], float(np.min(to_opposite)))
+    return best
+
+
 def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), start=None,
-                  cutoff=None, switch_width=None, pressure_sigma=0.01, force_sigma=1e-3,
+                  cutoff=None, switch_width=None, pressure_sigma=1e-3, force_sigma=1e-4,
                   tol=1e-10, max_evaluations=200) -> FitResult:
     """Fit short-range parameters so that the observed structures are stationary.
 
@@ -515,6 +531,8 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
                 raise InputError(f"fit: parameter {name} of the {form} form is not set; fix it "
                                  f"(e.g. --fix {name}=VALUE), or fit it shared (--shared {name}) or per pair "
                                  f"(--free {name})")
+    if _PREFACTOR[form] in shared:
+        raise InputError(f"fit: the prefactor {_PREFACTOR[form]} is fitted per pair (fix it or leave it free)")
     start = {**_START, **(start or {})}
     fitted_pairs, other_pairs = _species_pairs([t.crystal for t in targets])
     if not fitted_pairs:
@@ -607,8 +625,38 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
                 out.append((t.label, "bulk modulus", b_model, t.bulk_modulus, "GPa", sigma))
         return out
 
+    # The prefactor is fitted as its value at the pair's shortest distance d in the targets,
+    # u = log(A exp(-d/rho)) or log(B / d^n): pressure and bulk modulus then depend on (u, rho)
+    # almost separably, which keeps the trust-region steps short and few.
+    shortest = _shortest_pair_distances([t.crystal for t in targets], fitted_pairs)
+    prefactor = _PREFACTOR[form]
+    shape_name = "n" if form == "born-lande" else "rho"
+
+    def pair_value(values, name, pair):
+        for k, (n_k, pairs) in enumerate(variables):
+            if n_k == name and pair in pairs:
+                return values[k]
+        return fixed_values[(pair, name)]
+
     def to_values(x):
-        return np.array([math.exp(v) if lg else v for v, lg in zip(x, log_scale)])
+        values = np.array([math.exp(v) if lg else v for v, lg in zip(x, log_scale)])
+        for k, (name, pairs) in enumerate(variables):
+            if name == prefactor:
+                pair = pairs[0]
+                shape = pair_value(values, shape_name, pair)
+                d = shortest[pair]
+                values[k] = math.exp(x[k] + d / shape) if form != "born-lande" else math.exp(x[k]) * d ** shape
+        return values
+
+    def to_x(values):
+        x = np.array([math.log(v) if lg else v for v, lg in zip(values, log_scale)])
+        for k, (name, pairs) in enumerate(variables):
+            if name == prefactor:
+                pair = pairs[0]
+                shape = pair_value(values, shape_name, pair)
+                d = shortest[pair]
+                x[k] = math.log(values[k]) - (d / shape if form != "born-lande" else shape * math.log(d))
+        return x
 
     def residual_vector(x):
         values = to_values(x)
@@ -638,7 +686,7 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
     for k, value in enumerate(values0):
         if log_scale[k] and not value > 0:
             raise InputError(f"fit: starting value of {variables[k][0]} must be positive, got {value!r}")
-    x0 = np.array([math.log(v) if lg else v for v, lg in zip(values0, log_scale)])
+    x0 = to_x(values0)
     lower = np.array([-np.inf if lg else 0.0 for lg in log_scale])
     with np.errstate(over="ignore", invalid="ignore"):
         solution = least_squares(residual_vector, x0, bounds=(lower, np.full(len(x0), np.inf)), method="trf",
@@ -653,16 +701,29 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
     dof = int(active.sum()) - len(values)
     chi2 = float(np.sum(solution.fun ** 2))
     u, singular, vt = np.linalg.svd(jac, full_matrices=False)
-    if singular.size and singular.min() <= 1e-9 * singular.max():
-        weakest = int(np.argmax(np.abs(vt[-1])))
-        name, pairs = variables[weakest]
-        raise InputError(f"fit: parameter {name} ({'-'.join(pairs[0])}) is not determined by the conditions; "
-                         "fix it or add a measured bulk modulus")
+    def undetermined(k):
+        name, pairs = variables[k]
+        return InputError(f"fit: parameter {name} ({'-'.join(pairs[0])}) is not determined by the conditions; "
+                          "fix it or add a measured bulk modulus")
+
+    if singular.size and singular.min() <= 1e-8 * singular.max():
+        raise undetermined(int(np.argmax(np.abs(vt[-1]))))
     covariance = (vt.T / singular ** 2) @ vt
     if dof > 0 and chi2 / dof > 1.0:
         covariance = covariance * (chi2 / dof)
-    sigma_x = np.sqrt(np.diag(covariance))
-    sigma = np.array([v * s if lg else s for v, s, lg in zip(values, sigma_x, log_scale)])
+    # propagate to the parameters through the Jacobian of the change of variables
+    transform = np.empty((len(values), len(values)))
+    for k in range(len(values)):
+        h = 1e-6 * max(1.0, abs(solution.x[k]))
+        up, down = solution.x.copy(), solution.x.copy()
+        up[k] += h
+        down[k] -= h
+        transform[:, k] = (to_values(up) - to_values(down)) / (2 * h)
+    sigma = np.sqrt(np.diag(transform @ covariance @ transform.T))
+    # a direction the conditions only fix through rounding noise shows as an uncertainty beyond the value
+    for k, (value, error) in enumerate(zip(values, sigma)):
+        if log_scale[k] and error > abs(value):
+            raise undetermined(k)
 
     rows = [FitResidual(*r) for r in conditions(values)]
     shown = [r for r in rows if r.quantity in ("pressure", "bulk modulus") or abs(r.value) > 1e-9]
