@@ -479,6 +479,8 @@ def _add_cycle(sub):
                         help="ion charges (default: from the common oxidation states)")
     parser.add_argument("--structure", metavar="FILE", help="structure of the solid, for the model lattice energies")
     parser.add_argument("--repulsion", metavar="PARAMS.json", help="short-range parameters for the rigid-ion value")
+    parser.add_argument("--covalent-threshold", type=float, default=0.08, metavar="FRACTION",
+                        help="flag covalent character when the model is this far below the cycle (default 0.08)")
     parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[], help=argparse.SUPPRESS)
     parser.add_argument("--tol", type=float, default=1e-10, help=argparse.SUPPRESS)
     parser.add_argument("--min-distance", type=float, default=0.5, help=argparse.SUPPRESS)
@@ -549,7 +551,7 @@ def _run_cycle(args):
     comparisons = {}
     for name, value in (("rigid-ion model", model), ("Kapustinskii", kapustinskii)):
         if value is not None:
-            comparisons[name] = (value, *cycle.compare(value))
+            comparisons[name] = (value, *cycle.compare(value, args.covalent_threshold))
     if args.json:
         _print_json({"compound": cycle.compound, "steps": [{"step": s.text, "kJ_per_mol": s.value, "source": s.source}
                                                             for s in cycle.steps],
@@ -567,9 +569,12 @@ def _run_cycle(args):
     print(f"      {'cycle lattice energy (solid -> gaseous ions)':<66} {cycle.lattice_energy:+11.2f}")
     print(f"  gas-phase electron transfer alone (ionisation + attachment) {cycle.electron_transfer:+.2f} kJ/mol")
     for name, (value, difference, fraction, covalent) in comparisons.items():
-        verdict = ("cycle exceeds the ionic model by more than 5 %: binding beyond point charges, covalent "
-                   "character likely" if covalent else "the ionic model accounts for the cycle value within 5 %"
-                   if abs(fraction) <= 0.05 else "the ionic model exceeds the cycle value by more than 5 %")
+        limit = 100 * args.covalent_threshold
+        verdict = (f"cycle exceeds the ionic model by more than {limit:g} %: binding beyond point charges, "
+                   "covalent character likely" if covalent else
+                   f"the ionic model accounts for the cycle value within {limit:g} %"
+                   if abs(fraction) <= args.covalent_threshold else
+                   f"the ionic model exceeds the cycle value by more than {limit:g} %")
         print(f"  {name:<16} {value:10.2f} kJ/mol; cycle - model {difference:+9.2f} ({100 * fraction:+.1f} %): {verdict}")
     print("  note        sign: lattice energy is the positive energy to separate the solid into gaseous ions; "
           "electron attachment enthalpies are negative when energy is released")
