@@ -409,7 +409,8 @@ class FitResult:
     message: str
 
 
-_START = {"rho": 0.3, "n": 8.0, "C": 1.0}
+_START = {"rho": 0.3, "n": 8.0}
+_LINEAR = ("A", "B", "C")
 _PREFACTOR = {"born-mayer": "A", "buckingham": "A", "born-lande": "B"}
 
 
@@ -427,22 +428,6 @@ def _species_pairs(crystals):
                 (fitted if opposite and a != b else other).add((a, b))
     other -= fitted
     return sorted(fitted), sorted(other)
-
-
-def _shortest_pair_distances(crystals, pairs):
-    """Shortest distance (Å, images included) between the two species of each pair in any crystal."""
-    from .geometry import nearest_neighbour_distances
-
-    best = {pair: math.inf for pair in pairs}
-    for crystal in crystals:
-        symbols = np.array(crystal.symbols)
-        for pair in pairs:
-            if pair[0] in symbols and pair[1] in symbols:
-                # mark the two species +1 / -1, all else 0: the nearest "opposite" partner is the pair
-                marks = np.where(symbols == pair[0], 1.0, np.where(symbols == pair[1], -1.0, 0.0))
-                _, to_opposite, _ = nearest_neighbour_distances(crystal.cell, crystal.positions, marks)
-                best[pair] = min(best[pair], float(np.min(to_opposite)))
-    return best
 
 
 def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), start=None,
@@ -471,7 +456,7 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
         Parameters fitted separately for every pair. The prefactor (A or B) is per pair unless
         named in ``shared`` or ``fixed``. Every other parameter must be fixed, shared or free.
     start : dict, optional
-        Starting values of shared/free parameters (defaults rho 0.3 Å, n 8, C 1 eV Å^6).
+        Starting values of fitted shape parameters (defaults rho 0.3 Å, n 8).
     cutoff, switch_width : float, optional
         Cutoff handling of the fitted model, Å (defaults 10 and 2).
     pressure_sigma, force_sigma : float
@@ -492,13 +477,19 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
     conditions than parameters. A parameter the conditions do not determine (rho without a bulk
     modulus, say) is an error rather than a silent arbitrary value.
 
+    Every condition is linear in A, B and C; these are solved exactly (non-negative linear least
+    squares) for each trial of the shape parameters rho and n, which alone are iterated
+    (variable projection). ``max_evaluations`` bounds those iterations.
+
     References
     ----------
     M. Born and J. E. Mayer, Z. Phys. 75 (1932) 1 (fitting the repulsion to the equilibrium
     distance and compressibility); M. A. Branch, T. F. Coleman and Y. Li, SIAM J. Sci. Comput. 21
-    (1999) 1 (the trust-region reflective least-squares method).
+    (1999) 1 (the trust-region reflective least-squares method); G. H. Golub and V. Pereyra,
+    SIAM J. Numer. Anal. 10 (1973) 413 (variable projection); P. B. Stark and R. L. Parker,
+    Comput. Stat. 10 (1995) 129 (bounded-variable least squares).
     """
-    from scipy.optimize import least_squares, nnls
+    from scipy.optimize import least_squares, lsq_linear
 
     from .crystal import Crystal
     from .shortrange import DEFAULT_CUTOFF, DEFAULT_SWITCH_WIDTH, FORMS, PairPotential, RepulsionModel
@@ -531,8 +522,6 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
                 raise InputError(f"fit: parameter {name} of the {form} form is not set; fix it "
                                  f"(e.g. --fix {name}=VALUE), or fit it shared (--shared {name}) or per pair "
                                  f"(--free {name})")
-    if _PREFACTOR[form] in shared:
-        raise InputError(f"fit: the prefactor {_PREFACTOR[form]} is fitted per pair (fix it or leave it free)")
     start = {**_START, **(start or {})}
     fitted_pairs, other_pairs = _species_pairs([t.crystal for t in targets])
     if not fitted_pairs:
@@ -562,7 +551,6 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
             variables.append((name, tuple(fitted_pairs)))
         elif name in free:
             variables.extend((name, (pair,)) for pair in fitted_pairs)
-    log_scale = [name != "C" for name, _ in variables]
 
     cutoff = DEFAULT_CUTOFF if cutoff is None else float(cutoff)
     switch_width = DEFAULT_SWITCH_WIDTH if switch_width is None else float(switch_width)
@@ -625,104 +613,93 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
                 out.append((t.label, "bulk modulus", b_model, t.bulk_modulus, "GPa", sigma))
         return out
 
-    # The prefactor is fitted as its value at the pair's shortest distance d in the targets,
-    # u = log(A exp(-d/rho)) or log(B / d^n): pressure and bulk modulus then depend on (u, rho)
-    # almost separably, which keeps the trust-region steps short and few.
-    shortest = _shortest_pair_distances([t.crystal for t in targets], fitted_pairs)
-    prefactor = _PREFACTOR[form]
-    shape_name = "n" if form == "born-lande" else "rho"
+    # Variable projection: every condition is linear in the prefactors A, B and in C, so for given
+    # shape parameters (rho, n) those are solved exactly by bounded linear least squares, and only
+    # the shape parameters are left to the nonlinear trust-region iteration (Golub and Pereyra).
+    linear = [k for k, (name, _) in enumerate(variables) if name in _LINEAR]
+    nonlinear = [k for k, (name, _) in enumerate(variables) if name not in _LINEAR]
+    counter = [0]
 
-    def pair_value(values, name, pair):
-        for k, (n_k, pairs) in enumerate(variables):
-            if n_k == name and pair in pairs:
-                return values[k]
-        return fixed_values[(pair, name)]
-
-    def to_values(x):
-        values = np.array([math.exp(v) if lg else v for v, lg in zip(x, log_scale)])
-        for k, (name, pairs) in enumerate(variables):
-            if name == prefactor:
-                pair = pairs[0]
-                shape = pair_value(values, shape_name, pair)
-                d = shortest[pair]
-                values[k] = math.exp(x[k] + d / shape) if form != "born-lande" else math.exp(x[k]) * d ** shape
-        return values
-
-    def to_x(values):
-        x = np.array([math.log(v) if lg else v for v, lg in zip(values, log_scale)])
-        for k, (name, pairs) in enumerate(variables):
-            if name == prefactor:
-                pair = pairs[0]
-                shape = pair_value(values, shape_name, pair)
-                d = shortest[pair]
-                x[k] = math.log(values[k]) - (d / shape if form != "born-lande" else shape * math.log(d))
-        return x
-
-    def residual_vector(x):
-        values = to_values(x)
+    def normalised(values):
+        counter[0] += 1
         return np.array([(v - w) / s for _, _, v, w, _, s in conditions(values)])
 
-    # starting point: the prefactors from a linear non-negative fit of the pressures
-    values0 = []
-    for name, pairs in variables:
-        values0.append(float(start.get(name, 1.0)) if name != _PREFACTOR[form] else 1.0)
-    values0 = np.array(values0)
-    prefactor_slots = [k for k, (name, _) in enumerate(variables) if name == _PREFACTOR[form]]
-    if prefactor_slots:
-        base = values0.copy()
-        base[prefactor_slots] = 0.0
+    def solve_linear(theta):
+        values = np.zeros(len(variables))
+        values[nonlinear] = theta
+        r0 = normalised(values)
+        if not linear:
+            return values, r0, np.zeros((len(r0), 0))
         columns = []
-        p_base = np.array([r[2] for r in conditions(base) if r[1] == "pressure"])
-        for k in prefactor_slots:
-            unit = base.copy()
+        for k in linear:
+            unit = values.copy()
             unit[k] = 1.0
-            columns.append(np.array([r[2] for r in conditions(unit) if r[1] == "pressure"]) - p_base)
-        amounts, _ = nnls(np.array(columns).T, -p_base)
-        for k, amount in zip(prefactor_slots, amounts):
-            if amount <= 0:
-                raise InputError(f"fit: no positive {_PREFACTOR[form]} of {'-'.join(variables[k][1][0])} balances "
-                                 "the Coulomb pressure; the structure cannot be stationary in this model")
-            values0[k] = amount
-    for k, value in enumerate(values0):
-        if log_scale[k] and not value > 0:
-            raise InputError(f"fit: starting value of {variables[k][0]} must be positive, got {value!r}")
-    x0 = to_x(values0)
-    lower = np.array([-np.inf if lg else 0.0 for lg in log_scale])
-    with np.errstate(over="ignore", invalid="ignore"):
-        solution = least_squares(residual_vector, x0, bounds=(lower, np.full(len(x0), np.inf)), method="trf",
-                                 x_scale="jac", max_nfev=int(max_evaluations), xtol=1e-12, ftol=1e-12, gtol=1e-12)
-    if solution.status <= 0 or not np.all(np.isfinite(solution.fun)):
-        raise InputError(f"fit did not converge after {solution.nfev} evaluations ({solution.message}); "
-                         "give other starting values (--start), fix more parameters or raise --max-evaluations")
+            columns.append(normalised(unit) - r0)
+        m = np.array(columns).T
+        norms = np.linalg.norm(m, axis=0)
+        norms[norms == 0] = 1.0
+        solution = lsq_linear(m / norms, -r0, bounds=(0.0, np.inf), method="bvls")
+        values[linear] = solution.x / norms
+        return values, r0 + m @ values[linear], m
 
-    values = to_values(solution.x)
-    jac = solution.jac
+    theta0 = np.array([float(start[variables[k][0]]) for k in nonlinear])
+    if np.any(~np.isfinite(theta0)) or np.any(theta0 <= 0):
+        raise InputError(f"fit: starting values must be positive, got {dict(zip([variables[k][0] for k in nonlinear], theta0))}")
+    message = "linear least squares (no shape parameter to iterate)"
+    if nonlinear:
+        def outer(y):
+            with np.errstate(over="ignore", invalid="ignore"):
+                return solve_linear(np.exp(y))[1]
+
+        solution = least_squares(outer, np.log(theta0), method="trf", max_nfev=int(max_evaluations),
+                                 xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        if solution.status <= 0 or not np.all(np.isfinite(solution.fun)):
+            raise InputError(f"fit did not converge after {solution.nfev} iterations ({solution.message}); "
+                             "give other starting values (--start), fix more parameters or raise --max-evaluations")
+        theta = np.exp(solution.x)
+        message = str(solution.message)
+    else:
+        theta = theta0
+    values, residual, m = solve_linear(theta)
+    if not np.all(np.isfinite(residual)):
+        raise InputError("fit did not converge: the model gave non-finite stresses; give other starting values")
+    for k in linear:
+        name, pairs = variables[k]
+        if name != "C" and not values[k] > 0:
+            raise InputError(f"fit: no positive {name} of {'-'.join(pairs[0])} makes the structure stationary; "
+                             "the Coulomb pressure cannot be balanced in this model (check charges and form)")
+
+    # uncertainties: the full Jacobian in parameter space at the solution (linear columns exact)
+    jac = np.zeros((len(residual), len(values)))
+    jac[:, linear] = m
+    for k in nonlinear:
+        h = 1e-5 * values[k]
+        up, down = values.copy(), values.copy()
+        up[k] += h
+        down[k] -= h
+        jac[:, k] = (normalised(up) - normalised(down)) / (2 * h)
     active = np.any(np.abs(jac) > 1e-6 * max(1.0, float(np.abs(jac).max())), axis=1)
     dof = int(active.sum()) - len(values)
-    chi2 = float(np.sum(solution.fun ** 2))
-    u, singular, vt = np.linalg.svd(jac, full_matrices=False)
+    chi2 = float(np.sum(residual ** 2))
+
     def undetermined(k):
         name, pairs = variables[k]
         return InputError(f"fit: parameter {name} ({'-'.join(pairs[0])}) is not determined by the conditions; "
                           "fix it or add a measured bulk modulus")
 
-    if singular.size and singular.min() <= 1e-8 * singular.max():
+    scale = np.linalg.norm(jac, axis=0)
+    if np.any(scale == 0):
+        raise undetermined(int(np.argmin(scale)))
+    _, singular, vt = np.linalg.svd(jac / scale, full_matrices=False)
+    if singular.min() <= 1e-8 * singular.max():
         raise undetermined(int(np.argmax(np.abs(vt[-1]))))
-    covariance = (vt.T / singular ** 2) @ vt
+    covariance = ((vt.T / singular ** 2) @ vt) / np.outer(scale, scale)
     if dof > 0 and chi2 / dof > 1.0:
         covariance = covariance * (chi2 / dof)
-    # propagate to the parameters through the Jacobian of the change of variables
-    transform = np.empty((len(values), len(values)))
-    for k in range(len(values)):
-        h = 1e-6 * max(1.0, abs(solution.x[k]))
-        up, down = solution.x.copy(), solution.x.copy()
-        up[k] += h
-        down[k] -= h
-        transform[:, k] = (to_values(up) - to_values(down)) / (2 * h)
-    sigma = np.sqrt(np.diag(transform @ covariance @ transform.T))
-    # a direction the conditions only fix through rounding noise shows as an uncertainty beyond the value
-    for k, (value, error) in enumerate(zip(values, sigma)):
-        if log_scale[k] and error > abs(value):
+    sigma = np.sqrt(np.diag(covariance))
+    # a direction the conditions fix only through rounding noise shows as an uncertainty beyond the value
+    for k, (name, _) in enumerate(variables):
+        if name != "C" and sigma[k] > abs(values[k]):
             raise undetermined(k)
 
     rows = [FitResidual(*r) for r in conditions(values)]
@@ -735,7 +712,8 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
     parameters += [FittedParameter(tuple(pairs), name, float(value), None, "fixed")
                    for (name, value), pairs in fixed_seen.items()]
     info = {
-        "method": "scipy.optimize.least_squares (trf) on zero stress, zero forces"
+        "method": "variable projection: prefactors by scipy.optimize.lsq_linear, shape parameters by "
+                  "scipy.optimize.least_squares (trf); conditions zero stress, zero forces"
                   + (" and measured bulk moduli" if any(t.bulk_modulus for t in targets) else ""),
         "targets": [{"name": t.label, "formula": t.crystal.reduced_formula,
                      **({"bulk_modulus_GPa": t.bulk_modulus} if t.bulk_modulus else {})} for t in targets],
@@ -745,7 +723,7 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
         "uncertainty": "one standard deviation from the Jacobian, residuals in units of their sigmas",
     }
     model = build(values, sigma, info)
-    return FitResult(model, tuple(parameters), tuple(shown), chi2, dof, int(solution.nfev), str(solution.message))
+    return FitResult(model, tuple(parameters), tuple(shown), chi2, dof, counter[0], message)
 
 
 # ---------------------------------------------------------------- equation of state

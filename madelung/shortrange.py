@@ -63,6 +63,8 @@ PARAMETER_UNITS = {"B": "eV Å^n", "n": "1", "A": "eV", "rho": "Å", "C": "eV Å
 
 DEFAULT_CUTOFF = 10.0
 DEFAULT_SWITCH_WIDTH = 2.0
+#: Cells with fewer ions are summed on one thread (thread start-up would cost more than the sum).
+SERIAL_BELOW = 64
 FILE_KEY = "madelung_repulsion"
 FILE_VERSION = 1
 
@@ -332,7 +334,8 @@ def shortrange(crystal, model, forces=False, stress=False) -> ShortRangeResult:
     cell = np.ascontiguousarray(crystal.cell, dtype=np.float64)
     bins = build_bins(cell, crystal.positions, model.cutoff)
     r_on = model.cutoff - model.switch_width
-    energy, f, w, pairs = shortrange_kernels.pair_terms(
+    kernel = shortrange_kernels.pair_terms_serial if len(crystal) < SERIAL_BELOW else shortrange_kernels.pair_terms
+    energy, f, w, pairs = kernel(
         bins.positions, np.ascontiguousarray(sites[bins.order]), bins.cell, bins.counts, bins.reach,
         bins.bin_of, bins.bin_start, table, float(r_on), float(model.cutoff), bool(forces), bool(stress))
     site_energies = bins.unsorted(energy)

@@ -118,6 +118,16 @@ def test_translation_and_supercell_invariance(shift, seed):
     assert shortrange(crystal.repeat((2, 1, 1)), MODEL).energy == pytest.approx(2 * base, rel=1e-10)
 
 
+def test_threaded_kernel_on_a_large_supercell():
+    # 4 x 4 x 4 copies (256 ions) take the threaded kernel; small cells the one-thread one: same sums
+    crystal = _rattled(5)
+    base = shortrange(crystal, MODEL, forces=True, stress=True)
+    big = shortrange(crystal.repeat((4, 4, 4)), MODEL, forces=True, stress=True)
+    assert big.energy == pytest.approx(64 * base.energy, rel=1e-10)
+    np.testing.assert_allclose(big.forces[:4], base.forces, atol=1e-9)
+    np.testing.assert_allclose(big.stress, base.stress, atol=1e-12)
+
+
 def test_parameter_file_round_trip(tmp_path):
     path = tmp_path / "p.json"
     MODEL.save(path)
