@@ -51,6 +51,12 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None):
 
 
 from .constants import MadelungConstants, madelung_constants  # noqa: E402
+from .shortrange import PairPotential, RepulsionModel, shortrange  # noqa: E402
+from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy  # noqa: E402
+from .thermochemistry import born_haber_cycle  # noqa: E402
+from .calculator import RigidIonCalculator, relax  # noqa: E402
 
 __all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
-           "MadelungConstants", "InputError", "MadelungError", "MadelungWarning"]
+           "MadelungConstants", "InputError", "MadelungError", "MadelungWarning",
+           "PairPotential", "RepulsionModel", "shortrange", "FitTarget", "fit_repulsion", "lattice_energy",
+           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax"]
