@@ -109,12 +109,20 @@ def test_energy_is_smooth_across_the_cutoff():
 
 
 @settings(max_examples=10, deadline=None)
-@given(shift=st.lists(st.floats(-3, 3), min_size=3, max_size=3), seed=st.integers(0, 50))
-def test_translation_and_supercell_invariance(shift, seed):
+@given(shift=st.lists(st.floats(-3, 3), min_size=3, max_size=3), seed=st.integers(0, 50),
+       angles=st.lists(st.floats(0, 2 * np.pi), min_size=3, max_size=3))
+def test_translation_rotation_and_supercell_invariance(shift, seed, angles):
     crystal = _rattled(seed)
     base = shortrange(crystal, MODEL).energy
     moved = crystal.replace(positions=crystal.positions + np.array(shift))
     assert shortrange(moved, MODEL).energy == pytest.approx(base, rel=1e-10)
+    a, b, c = angles
+    rz = np.array([[np.cos(a), -np.sin(a), 0], [np.sin(a), np.cos(a), 0], [0, 0, 1]])
+    rx = np.array([[1, 0, 0], [0, np.cos(b), -np.sin(b)], [0, np.sin(b), np.cos(b)]])
+    ry = np.array([[np.cos(c), 0, np.sin(c)], [0, 1, 0], [-np.sin(c), 0, np.cos(c)]])
+    rotation = rz @ rx @ ry
+    turned = crystal.replace(cell=crystal.cell @ rotation.T, positions=crystal.positions @ rotation.T)
+    assert shortrange(turned, MODEL).energy == pytest.approx(base, rel=1e-10)
     assert shortrange(crystal.repeat((2, 1, 1)), MODEL).energy == pytest.approx(2 * base, rel=1e-10)
 
 
