@@ -120,3 +120,20 @@ def test_cli_relax_and_eos(fitted, tmp_path, capsys):
     code = main(["relax", str(strained), "--charge", "Na=1", "--charge", "Cl=-1", "--repulsion", str(params),
                  "-o", str(out_file), "--steps", "1"])
     assert code == 2 and "did not converge" in capsys.readouterr().err
+
+
+def test_hypothetical_caesium_chloride_type_nacl_is_less_stable(fitted):
+    # NaCl takes the rock-salt structure, not the CsCl type, and bonds lengthen with coordination number
+    # (facts of the trade; Shannon's radii grow from VI to VIII coordination)
+    crystal, model = fitted
+    a = 3.3
+    hypothetical = Crystal(np.eye(3) * a, [[0, 0, 0], [a / 2, a / 2, a / 2]], [1, -1], ["Na", "Cl"])
+    result = relax(hypothetical, model, cell=True, fmax=1e-4)
+    assert result.converged
+    rock_salt = RigidIonCalculator(model)
+    atoms = crystal.to_ase()
+    atoms.calc = rock_salt
+    per_formula_unit = atoms.get_potential_energy() / 4
+    assert result.final_energy > per_formula_unit
+    bond = np.sqrt(3) / 2 * result.atoms.cell.lengths()[0]
+    assert bond > crystal.nearest_distances()[1].min()
