@@ -345,7 +345,7 @@ def _lattice_lines(result):
     if forms is not None:
         lines.append("  closed forms beside the model (kJ/mol per formula unit)")
         if forms.madelung_constant is None:
-            lines.append(f"      not applicable: {forms.notes.get('born_mayer', '')}")
+            lines.append(f"      Born–Landé, Born–Mayer not applicable: {forms.notes.get('born_mayer', '')}")
         else:
             lines.append(f"      Madelung constant (handbook convention) {forms.madelung_constant:.6f}, "
                          f"r0 {forms.r0:.4f} Å, charges +{forms.charges[0]:g}/-{forms.charges[1]:g}")
@@ -353,14 +353,14 @@ def _lattice_lines(result):
                 lines.append(f"      Born–Landé     {forms.born_lande * kj:10.2f}   n = {forms.born_exponent:g} "
                              f"({forms.born_exponent_source})")
             else:
-                lines.append(f"      Born–Landé     not available: {forms.notes.get('born_lande')}")
+                lines.append(f"      Born–Landé     not applicable: {forms.notes.get('born_lande')}")
             lines.append(f"      Born–Mayer     {forms.born_mayer * kj:10.2f}   rho = {forms.rho:.4f} Å "
                          f"({forms.rho_source})")
         if forms.kapustinskii is not None:
             lines.append(f"      Kapustinskii   {forms.kapustinskii * kj:10.2f}   Shannon radii (VI) "
                          f"r+ {forms.radii[0]:.3f} Å, r- {forms.radii[1]:.3f} Å")
         elif "kapustinskii" in forms.notes:
-            lines.append(f"      Kapustinskii   not available: {forms.notes['kapustinskii']}")
+            lines.append(f"      Kapustinskii   not applicable: {forms.notes['kapustinskii']}")
     return lines
 
 

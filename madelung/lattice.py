@@ -223,7 +223,7 @@ def closed_forms(crystal, model=None, tol=1e-10) -> ClosedForms:
     notes = {}
     m = constants.handbook
     if m is None:
-        note = constants.handbook_note
+        note = constants.handbook_note.removeprefix("undefined: ")
         return ClosedForms(None, constants.r0, None, None, None, "", None, None, "", None, None,
                            {"born_lande": note, "born_mayer": note, "kapustinskii": note})
     zp, zm = constants.handbook_charges
