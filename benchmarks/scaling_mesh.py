@@ -164,64 +164,52 @@ def side_by_side(tols=(1e-6, 1e-8), repeats=REPEATS, largest=False, direct_max=1
 
 
 def calibrate():
-    """Seconds per unit of work of the mesh engine's parts (for the constants in mesh.py)."""
+    """Nanoseconds of one thread per unit of work of the mesh part (constants in mesh.py)."""
     import numba
+    import scipy.fft
 
     from common import rattled_rock_salt
 
-    from madelung.ewald import kernels
     from madelung.ewald import mesh as mesh_module
     from madelung.ewald import mesh_kernels
-    from madelung.ewald.direct import reciprocal_vectors
-    from madelung.geometry import build_bins, wrapped_fractional
-    import scipy.fft
+    from madelung.geometry import wrapped_fractional
 
+    def cpu(function, repeat=3):
+        best = math.inf
+        for _ in range(repeat):
+            started = time.process_time()
+            result = function()
+            best = min(best, time.process_time() - started)
+        return best, result
+
+    numba.set_num_threads(1)
     rows = []
     for reps in (8, 16):
         crystal = rattled_rock_salt(reps)
         cell = np.ascontiguousarray(crystal.cell)
-        positions = np.ascontiguousarray(crystal.positions)
         q = np.ascontiguousarray(crystal.charges, dtype=float)
-        n, volume = len(q), crystal.volume
-        r_cut, alpha, order, k = 10.0, 0.35, 8, 8 * reps
+        n = len(q)
+        alpha, order, k = 0.45, 8, 8 * reps
         shape = np.array([k, k, k], np.int64)
-        bins = build_bins(cell, positions, r_cut)
-        args = (bins.positions, bins.sorted_values(q), bins.cell, bins.counts, bins.reach, bins.bin_of,
-                bins.bin_start, alpha, r_cut, False, False)
-        kernels.real_space_terms(*args)
-        t = time.perf_counter()
-        kernels.real_space_terms(*args)
-        per_pair = (time.perf_counter() - t) / mesh_module._real_pairs(r_cut, n, volume)
-        frac = wrapped_fractional(cell, positions)
-        slabs = mesh_module._slabs(frac[:, 0], k, order, numba.get_num_threads())
-        mesh_kernels.spread_charges(frac, q, *slabs, shape, order)
-        t = time.perf_counter()
-        grid = mesh_kernels.spread_charges(frac, q, *slabs, shape, order)
-        per_spline = (time.perf_counter() - t) / (n * order ** 3)
-        t = time.perf_counter()
-        spectrum = scipy.fft.rfftn(grid, workers=numba.get_num_threads())
-        psi = scipy.fft.irfftn(spectrum, s=tuple(shape), workers=numba.get_num_threads())
         points = float(k ** 3)
-        per_fft = (time.perf_counter() - t) / (2 * points * math.log2(points))
-        t = time.perf_counter()
-        mesh_module.mesh_reciprocal(cell, frac, q, alpha, tuple(shape), order, True, False)
-        whole = time.perf_counter() - t
-        per_point = max(whole - per_spline * 2 * n * order ** 3 - per_fft * 2 * points * math.log2(points), 0) / points
-        hkl, kvec, hmax = reciprocal_vectors(cell, 2.0)
-        weights = np.ones(len(hkl))
-        t = time.perf_counter()
-        s_re, s_im = kernels.structure_factors(frac, q, hkl, hmax, kernels.CHUNKS)
-        kernels.reciprocal_site_terms(frac, q, hkl, hmax, kvec, weights, s_re, s_im, False)
-        per_term = (time.perf_counter() - t) / (n * len(hkl))
-        rows.append([n, f"{per_pair * 1e9:.2f}", f"{per_spline * 1e9:.2f}", f"{per_fft * 1e9:.2f}",
-                     f"{per_point * 1e9:.1f}", f"{per_term * 1e9:.2f}"])
-        del psi
-    print_table(["N", "ns / real pair", "ns / spline point", "ns / FFT point log2", "ns / mesh point",
-                 "ns / direct (ion, k)"], rows, title="Seconds per unit of work (compare madelung/ewald/mesh.py)")
+        frac = wrapped_fractional(cell, crystal.positions)
+        slabs = mesh_module._slabs(frac[:, 0], k, order, 1)
+        spread, grid = cpu(lambda: mesh_kernels.spread_charges(frac, q, *slabs, shape, order))
+        fft, spectrum = cpu(lambda: scipy.fft.rfftn(grid, workers=1))
+        recip = np.ascontiguousarray(np.linalg.inv(cell).T)
+        moduli = [np.ascontiguousarray(mesh_module.bspline_moduli(k, order))] * 3
+        influence, _ = cpu(lambda: mesh_kernels.apply_influence(spectrum.copy(), recip, shape, *moduli, alpha,
+                                                                crystal.volume, False))
+        psi = np.ascontiguousarray(scipy.fft.irfftn(spectrum, s=(k, k, k), workers=1))
+        interpolate, _ = cpu(lambda: mesh_kernels.mesh_site_terms(frac, q, psi, shape, order, recip, True))
+        spline_ns = 1e9 * (spread + interpolate) / (2 * n * order ** 3)
+        fft_ns = 1e9 * fft / (points * math.log2(points))
+        point_ns = 1e9 * influence / points
+        rows.append([n, f"{k}^3", f"{spline_ns:.2f}", f"{fft_ns:.2f}", f"{point_ns:.2f}"])
+    print_table(["N", "mesh", "ns / spline point", "ns / FFT point log2", "ns / mesh point"], rows,
+                title="One-thread process time per unit of work (order 8, forces on)")
     m = mesh_module
-    print(f"\nmesh.py uses: {m.SECONDS_PER_REAL_PAIR * 1e9:.2f}, {m.SECONDS_PER_SPLINE_POINT * 1e9:.2f}, "
-          f"{m.SECONDS_PER_FFT_POINT_LOG * 1e9:.2f}, {m.SECONDS_PER_MESH_POINT * 1e9:.1f}, "
-          f"{m.DIRECT_SECONDS_PER_RECIPROCAL_TERM * 1e9:.2f}")
+    print(f"\nmesh.py uses: {m.SPLINE_POINT_NS:.2f}, {m.FFT_POINT_LOG_NS:.2f}, {m.MESH_POINT_NS:.2f}")
 
 
 def main(argv=None):

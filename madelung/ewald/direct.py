@@ -150,7 +150,7 @@ def real_space_part(cell, positions, charges, alpha, r_cut, forces, stress):
     """
     bins = build_bins(cell, positions, r_cut)
     phi_r, f_r, w_r, pairs = kernels.real_space_terms(
-        bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach, bins.bin_of,
+        bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
         bins.bin_start, alpha, r_cut, bool(forces), bool(stress))
     return (bins.unsorted(phi_r), bins.unsorted(f_r) if forces else None, w_r.sum(axis=0) if stress else None,
             int(pairs), tuple(int(x) for x in bins.reach))

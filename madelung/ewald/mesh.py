@@ -61,21 +61,14 @@ ALLOWED_ORDERS = (4, 5, 6, 7, 8)
 MESH_ERROR_MODEL = {4: (19.0, 4.206), 5: (1830.0, 6.784), 6: (475.0, 7.121), 7: (2.32e4, 9.076),
                     8: (1.98e4, 9.799)}
 
-#: Seconds per unit of work on the 2-core reference machine (2 threads, shared with other jobs),
-#: measured with benchmarks/scaling_mesh.py --calibrate on rock-salt supercells with displacements
-#: (N = 32768, load average about 5 on the 2 cores, so absolute values are about 2-3x an idle machine's).
-#: Only their ratios steer the tuner; their sizes steer method="auto" against the direct engine.
-SECONDS_PER_REAL_PAIR = 3.0e-8      # one examined pair of the bin stencil, potentials only
-SECONDS_PER_SPLINE_POINT = 6.0e-9   # one (ion, mesh point) weight, in spreading or interpolation
-SECONDS_PER_FFT_POINT_LOG = 1.7e-9  # one point x log2(points) of a real-to-complex FFT
-SECONDS_PER_MESH_POINT = 2.0e-8     # influence function, energy/virial and array work per point
-SECONDS_PER_ATOM = 6.0e-6           # neighbour search for d_min, bins, wrapping (both engines)
-#: Direct engine: seconds per examined real-space pair and per (ion, k-vector) term.
-DIRECT_SECONDS_PER_REAL_PAIR = SECONDS_PER_REAL_PAIR
-DIRECT_SECONDS_PER_RECIPROCAL_TERM = 8.5e-9
-#: Extra cost of forces, as a factor on the real-space and the reciprocal terms.
-FORCE_FACTOR_REAL = 1.5
-FORCE_FACTOR_RECIPROCAL = 1.2
+#: Nanoseconds of one thread per unit of work of the mesh part, measured with
+#: ``benchmarks/scaling_mesh.py --calibrate`` (process time, one thread, rattled rock salt,
+#: N = 4096 and 32768: 1.6-1.8, 0.41-0.42 and 4.4-5.3 ns, the last raised for the array work
+#: around the kernels). The real-space part uses the direct engine's constants (tuning.py), so
+#: both engines' predictions are in the same unit for method="auto".
+SPLINE_POINT_NS = 1.8       # one (ion, mesh point) weight, in spreading or in interpolation
+FFT_POINT_LOG_NS = 0.45     # one point x log2(points) of one real-to-complex FFT
+MESH_POINT_NS = 8.0         # influence function, energy/virial and array work per mesh point
 
 #: Largest mesh the tuner picks, in bytes of peak mesh memory (16 bytes per point: the real
 #: mesh and its half spectrum are alive together during each FFT); keeps N = 10^6 under 4 GB
@@ -90,7 +83,8 @@ CHECK_SAMPLE = 48
 
 @dataclass(frozen=True)
 class MeshChoice:
-    """Splitting parameter (1/Å), real cutoff (Å), mesh shape, spline order, errors (eV), time (s)."""
+    """Splitting parameter (1/Å), real cutoff (Å), mesh shape, spline order, errors (eV) and the
+    predicted cost (s of one thread)."""
 
     alpha: float
     real_cutoff: float
@@ -135,28 +129,17 @@ def mesh_shape_for(alpha, order, target, plane, charge_sq_sum, k_e):
     return tuple(int(scipy.fft.next_fast_len(max(order + 1, int(math.ceil(d / h))), real=True)) for d in plane)
 
 
-def _real_pairs(r_cut, n_atoms, volume):
-    return n_atoms * tuning.STENCIL_OVERHEAD * (4.0 / 3.0) * math.pi * r_cut ** 3 * n_atoms / volume
+def predicted_mesh_ns(r_cut, shape, order, n_atoms, volume):
+    """Predicted cost of one mesh evaluation with forces, ns of one thread.
 
-
-def predicted_mesh_seconds(r_cut, shape, order, n_atoms, volume, forces=False):
-    """Predicted wall time of one mesh evaluation on the reference machine, s."""
+    The real-space part is costed as in the direct engine (:func:`.tuning.predicted_cost` with no
+    k-vectors); then two B-spline passes over order^3 points per ion, two FFTs and the mesh work.
+    """
     points = float(np.prod(shape))
-    return (SECONDS_PER_ATOM * n_atoms
-            + SECONDS_PER_REAL_PAIR * _real_pairs(r_cut, n_atoms, volume) * (FORCE_FACTOR_REAL if forces else 1.0)
-            + SECONDS_PER_SPLINE_POINT * 2.0 * n_atoms * order ** 3
-            + SECONDS_PER_FFT_POINT_LOG * 2.0 * points * math.log2(max(points, 2.0))
-            + SECONDS_PER_MESH_POINT * points)
-
-
-def predicted_direct_seconds(choice, n_atoms, volume, forces=False):
-    """Predicted wall time of the direct engine for its tuning ``choice`` on the reference machine, s."""
-    k_vectors = (4.0 / 3.0) * math.pi * choice.reciprocal_cutoff ** 3 * volume / (16.0 * math.pi ** 3)
-    return (SECONDS_PER_ATOM * n_atoms
-            + DIRECT_SECONDS_PER_REAL_PAIR * _real_pairs(choice.real_cutoff, n_atoms, volume)
-            * (FORCE_FACTOR_REAL if forces else 1.0)
-            + DIRECT_SECONDS_PER_RECIPROCAL_TERM * n_atoms * k_vectors
-            * (FORCE_FACTOR_RECIPROCAL if forces else 1.0))
+    return (tuning.predicted_cost(r_cut, 0.0, n_atoms, volume)
+            + SPLINE_POINT_NS * 2.0 * n_atoms * order ** 3
+            + FFT_POINT_LOG_NS * 2.0 * points * math.log2(max(points, 2.0))
+            + MESH_POINT_NS * points)
 
 
 def _check_tol(tol):
@@ -165,7 +148,7 @@ def _check_tol(tol):
 
 
 def choose_mesh(tol, cell, n_atoms, charge_sq_sum, charge_abs_sum, d_min, k_e, alpha=None,
-                mesh=None, order=None, forces=False) -> MeshChoice:
+                mesh=None, order=None) -> MeshChoice:
     """Choose alpha, the real cutoff, the mesh and the spline order for relative energy error ``tol``.
 
     Parameters
@@ -218,7 +201,7 @@ def choose_mesh(tol, cell, n_atoms, charge_sq_sum, charge_abs_sum, d_min, k_e, a
         return MeshChoice(a, r_cut, shape, n,
                           float(tuning.real_space_error(a, r_cut, *stats)) / tuning.SAFETY,
                           mesh_error(a, spacings, n, charge_sq_sum, k_e),
-                          predicted_mesh_seconds(r_cut, shape, n, n_atoms, volume, forces))
+                          1e-9 * predicted_mesh_ns(r_cut, shape, n, n_atoms, volume))
 
     if alpha is not None:
         if not (math.isfinite(alpha) and alpha > 0):
@@ -308,7 +291,7 @@ def _check_against_direct(cell, frac, charges, alpha, phi_mesh, target, budget_s
     k_cut = tuning._solve_decreasing(lambda k: tuning.reciprocal_space_error(alpha, k, *stats),
                                      0.01 * target, 2.0 * alpha, 200.0 * alpha)
     k_count = (4.0 / 3.0) * math.pi * k_cut ** 3 * volume / (16.0 * math.pi ** 3)
-    if DIRECT_SECONDS_PER_RECIPROCAL_TERM * 0.5 * n * k_count > budget_seconds:
+    if 1e-9 * tuning.RECIPROCAL_TERM_COST * 0.5 * n * k_count > budget_seconds:  # structure factors
         return None
     hkl, kvectors, hmax = reciprocal_vectors(cell, k_cut)
     if len(hkl) == 0:
@@ -362,7 +345,7 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
     -------
     EwaldResult
         As the direct engine; ``params.method == "mesh"``, ``params.extra`` holds ``mesh``,
-        ``order``, ``spreading``, ``predicted_seconds`` and ``check``. ``params.k_vectors`` is the
+        ``order``, ``spreading``, ``predicted_seconds`` (of one thread) and ``check``. ``params.k_vectors`` is the
         number of mesh frequencies (half spectrum) and ``params.reciprocal_cutoff`` the smallest
         Nyquist wavenumber pi K_a / spacing_a, 1/Å.
 
@@ -385,14 +368,13 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
     k_e = COULOMB_CONSTANT
     if check not in ("auto", True, False):
         raise InputError(f"check must be 'auto', True or False, got {check!r}")
-    choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha, mesh=mesh, order=order,
-                         forces=forces)
+    choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha, mesh=mesh, order=order)
     a = choice.alpha
 
     background = warn_if_charged(crystal, net, q2)
 
-    # small sums run on one thread (see geometry.thread_budget); the budget is in pair-term units
-    with thread_budget(choice.predicted_seconds / SECONDS_PER_REAL_PAIR):
+    # small sums run on one thread (see geometry.thread_budget, which takes ns of one thread)
+    with thread_budget(choice.predicted_seconds * 1e9):
         # real space: the same kernel and bins as the direct engine
         phi_real, force_real, real_w, pairs, reach = real_space_part(
             cell, positions, charges, a, choice.real_cutoff, forces, stress)
@@ -447,16 +429,15 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
         seconds=time.perf_counter() - started)
 
 
-def predicted_seconds(crystal, tol, forces=False, alpha=None, d_min=None):
+def predicted_seconds(crystal, tol, alpha=None, d_min=None):
     """Predicted wall time of each engine at accuracy ``tol``: ``{"direct": s, "mesh": s}``.
 
-    Each engine's own tuner picks its parameters; the cost constants above turn them into
-    seconds on the 2-core reference machine (only the comparison matters for method="auto").
+    Each engine's own tuner picks its parameters and predicts its cost in seconds of one thread
+    of the 2-core reference machine (only the comparison matters for method="auto").
     """
     cell, _, charges, volume, q2, q_abs, _, d_min = _charge_sums(crystal, d_min)
     n = len(charges)
     k_e = COULOMB_CONSTANT
     direct_choice = tuning.choose(tol, n, volume, q2, q_abs, d_min, k_e, alpha=alpha)
-    mesh_choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha, forces=forces)
-    return {"direct": predicted_direct_seconds(direct_choice, n, volume, forces),
-            "mesh": mesh_choice.predicted_seconds}
+    mesh_choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha)
+    return {"direct": 1e-9 * direct_choice.predicted_cost, "mesh": mesh_choice.predicted_seconds}
