@@ -50,7 +50,8 @@ from . import kernels, mesh_kernels, tuning
 from .direct import (EwaldParameters, EwaldResult, _as_crystal_arrays, assemble, real_space_part,
                      reciprocal_vectors, shortest_distance, symmetric, warn_if_charged)
 
-#: Spline orders the tuner considers (odd orders run when asked for; even ones are never worse).
+#: Spline orders the tuner considers (odd orders run when asked for; the calibration found them
+#: no more accurate than the even order below them for more work).
 TUNED_ORDERS = (4, 6, 8)
 #: Orders accepted when given explicitly.
 ALLOWED_ORDERS = (4, 5, 6, 7, 8)
@@ -105,11 +106,12 @@ def mesh_error(alpha, spacings, order, charge_sq_sum, k_e):
         dE = k_e / 2 sum(q^2) alpha A_n mean_a (alpha h_a / pi)^s_n
 
     with h_a = plane spacing / K_a the mesh step along lattice vector a and n the spline order.
-    The error of an ion's potential is dominated by the mesh's aliased interaction of the ion's
-    own spread charge with itself, proportional to q_i alpha and a power of alpha h set by the
-    order (the aliasing analysis of Deserno and Holm); the errors of the ions add coherently, as
-    in :mod:`.tuning`. The power is close to n for n = 4 and steeper for higher orders, where the
-    B-spline moduli cancel the leading alias better. ``A_n`` and ``s_n`` (MESH_ERROR_MODEL) were
+    The form is an assumption, chosen because it fits: each ion's potential error is taken to
+    scale like q_i alpha times a power of alpha h set by the order (the aliasing picture of
+    Deserno and Holm), as the aliased interaction of an ion's spread charge with itself would;
+    the measured errors do grow with alpha at fixed alpha h. The errors of the ions add
+    coherently, as in :mod:`.tuning`. The fitted power is close to n for n = 4 and steeper for
+    higher orders. ``A_n`` and ``s_n`` (MESH_ERROR_MODEL) were
     fitted to the measured mesh error, against the direct reciprocal sum at the same alpha, of
     every bundled prototype (as given, and as 2x2x2 supercells with random displacements) and
     random neutral triclinic cells, at alpha d_min = 2, 3, 4.5 and alpha h / pi = 0.06 to 0.3; the
