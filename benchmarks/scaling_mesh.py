@@ -5,7 +5,7 @@ displacements of 0.05 Å) at tol 1e-6 and 1e-8, energy + potentials + forces. Ev
 a fresh subprocess (one warm-up call on a small cell first, so JIT loading is not timed) that
 reports the wall time of madelung.ewald(..., method=...) (best of 3 calls up to N = 32768, of 2
 up to 10^5, else one) and the process's peak
-resident memory (resource.getrusage, whole process: interpreter, crystal and sum).
+resident memory (VmHWM, whole process: interpreter, crystal and sum).
 
 Achieved error: |E - E_ref| / (k_e sum q^2 / d_min) and the largest force difference, with
 E_ref from the direct engine at tol / 100, for N up to --reference-max. The crossover is the N
@@ -43,6 +43,19 @@ REPEATS = [2, 3, 4, 5, 7, 11, 16, 23, 34]
 LARGEST = 50
 
 
+def _peak_resident_mb(resource):
+    """Peak resident memory of this process, MB: VmHWM (reset by exec, unlike ru_maxrss, which
+    keeps the parent's peak across fork + exec), else ru_maxrss."""
+    try:
+        with open("/proc/self/status") as status:
+            for line in status:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024.0
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
 def _run_case(method, reps, tol, forces_path):
     """Inside the subprocess: time one call, report JSON on stdout."""
     import resource
@@ -58,7 +71,7 @@ def _run_case(method, reps, tol, forces_path):
         started = time.perf_counter()
         result = madelung.ewald(crystal, tol=tol, forces=True, method=method)
         seconds = min(seconds, time.perf_counter() - started)
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # kB -> MB on Linux
+    peak = _peak_resident_mb(resource)
     if forces_path:
         np.save(forces_path, result.forces)
     p = result.params
