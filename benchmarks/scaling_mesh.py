@@ -211,19 +211,12 @@ def calibrate():
     import numba
     import scipy.fft
 
+    from calibrate_cost import cpu_time as cpu
     from common import rattled_rock_salt
 
     from madelung.ewald import mesh as mesh_module
     from madelung.ewald import mesh_kernels
     from madelung.geometry import wrapped_fractional
-
-    def cpu(function, repeat=3):
-        best = math.inf
-        for _ in range(repeat):
-            started = time.process_time()
-            result = function()
-            best = min(best, time.process_time() - started)
-        return best, result
 
     numba.set_num_threads(1)
     rows = []
