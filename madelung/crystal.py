@@ -446,6 +446,9 @@ def read_structure(path, index=-1, format=None, max_atoms=DEFAULT_MAX_ATOMS):
         raise
     except StopIteration:
         raise InputError(f"{path}: cannot read structure (no complete data block with atoms found)") from None
+    except KeyError as exc:  # ASE's symbol lookup
+        name = str(exc.args[0]) if exc.args else "?"
+        raise InputError(f"{path}: unknown element symbol {name!r}") from None
     except Exception as exc:  # ASE raises many kinds; all mean the file could not be read
         message = " ".join(str(exc).split()) or type(exc).__name__
         raise InputError(f"{path}: cannot read structure ({message[:200]})") from None
@@ -462,7 +465,13 @@ def read_structure(path, index=-1, format=None, max_atoms=DEFAULT_MAX_ATOMS):
         raise InputError(f"{path}: the structure contains a non-finite coordinate or cell length")
     check_size(len(atoms), max_atoms, path)
     if is_cif:
-        _attach_cif_sites(atoms, path)
+        try:
+            _attach_cif_sites(atoms, path)
+        except InputError:
+            raise
+        except (ValueError, TypeError, KeyError, IndexError, AttributeError) as exc:
+            message = " ".join(str(exc).split()) or type(exc).__name__
+            raise InputError(f"{path}: malformed atom-site table ({message[:160]})") from None
     return atoms
 
 

@@ -129,7 +129,7 @@ def nearest_neighbour_distances(cell, positions, charges):
 def closest_pair_within(cell, positions, limit):
     """The closest pair ``(i, j, distance)`` nearer than ``limit``, or None if there is none."""
     charges = np.zeros(len(positions))
-    to_any, _, partner = _nearest(cell, positions, charges, float(limit))
+    to_any, partner, _ = _nearest(cell, positions, charges, float(limit))
     i = int(np.argmin(to_any))
     if to_any[i] < limit:
         return i, int(partner[i]), float(to_any[i])
