@@ -93,10 +93,24 @@ class SymmetryInfo:
 
 
 def _dataset(cell, frac, types, symprec, angle_tolerance=-1.0):
+    """spglib's dataset, or None where spglib finds none (its errors raised, not printed)."""
+    import warnings
+
     import spglib
 
-    data = spglib.get_symmetry_dataset((cell, frac, types), symprec=symprec, angle_tolerance=angle_tolerance)
-    return data
+    try:
+        import spglib.error as spglib_error
+
+        spglib_error.OLD_ERROR_HANDLING = False
+        failure = spglib_error.SpglibError
+    except (ImportError, AttributeError):  # older spglib: failures return None
+        failure = RuntimeError
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DeprecationWarning)
+            return spglib.get_symmetry_dataset((cell, frac, types), symprec=symprec, angle_tolerance=angle_tolerance)
+    except failure:
+        return None
 
 
 def analyse(cell, frac_positions, types, symprec=DEFAULT_SYMPREC, angle_tolerance=-1.0) -> SymmetryInfo:
