@@ -236,6 +236,10 @@ class Crystal:
         fields = dict(cell=self.cell, positions=self.positions, charges=self.charges,
                       symbols=self.symbols, labels=self.labels, occupancies=self.occupancies,
                       species=self.species)
+        if "symbols" in changes and "species" not in changes and self.species is not None:
+            # a plain site follows its new symbol; a mixed site keeps its mixture
+            fields["species"] = [((str(new), parts[0][1]),) if len(parts) == 1 else parts
+                                 for new, parts in zip(changes["symbols"], self.species)]
         fields.update(changes)
         return Crystal(**fields, source=self.source, min_distance=self.min_distance, info=self.info)
 
@@ -623,6 +627,9 @@ def _resolve_species(species, symbols, occupancies, labels, where):
             raise InputError(f"{where}site {labels[i]}: species occupancies add up to {total:g}, "
                              f"but the site occupancy is {occupancies[i]:g}")
         result.append(parts)
+    if all(len(parts) == 1 and parts[0][0] == symbol and parts[0][1] >= 1 - 1e-6
+           for parts, symbol in zip(result, symbols)):
+        return None  # every site plain: nothing to remember
     return tuple(result)
 
 
