@@ -50,6 +50,9 @@ def _common(parser):
     parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
                         help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
+                        help="use the cell as read (default) or spglib's standardized primitive or conventional "
+                             "cell (same energy per formula unit)")
     _structure_options(parser)
 
 
@@ -76,7 +79,13 @@ def _crystal_options(args):
 
 
 def load_crystal(args):
-    """The crystal named on the command line, with its charges."""
+    """The crystal named on the command line, with its charges, in the cell asked for."""
+    from .symmetry import standard_cell
+
+    return standard_cell(_load_charged(args), getattr(args, "cell", "input"), symprec=args.symprec)
+
+
+def _load_charged(args):
     from .crystal import Crystal, parse_charge_rules, read_structure
 
     rules = parse_charge_rules(args.charge)
@@ -267,16 +276,14 @@ def _add_sites(sub):
                                         "or every site with --all.")
     _common(parser)
     parser.add_argument("--all", action="store_true", help="one row per site instead of one per orbit")
-    parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
-                        help="use the cell as read (default) or spglib's standardized primitive or conventional cell")
     return parser
 
 
 def _run_sites(args):
     from .constants import madelung_constants
-    from .symmetry import crystal_symmetry, standard_cell
+    from .symmetry import crystal_symmetry
 
-    crystal = standard_cell(load_crystal(args), args.cell, symprec=args.symprec)
+    crystal = load_crystal(args)
     symmetry = crystal_symmetry(crystal, symprec=args.symprec)
     constants = madelung_constants(crystal, tol=args.tol)
     potentials = constants.ewald.potentials
