@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import sys
 import warnings
 
@@ -17,7 +18,8 @@ import numpy as np
 
 from . import __version__
 from .errors import InputError, MadelungWarning
-from .units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from .constants import CONVENTION_TEXT
+from .units import EV_TO_KJ_PER_MOL
 
 MODEL_NOTE = ("Point-charge model: with formal charges the electrostatic terms overstate what a real, "
               "partly covalent solid holds. Results are model estimates, not measured properties.")
@@ -154,9 +156,9 @@ def _with_rules(atoms, rules, args):
         total = 0.0
         for element, occ, state in parts:
             value = rules.get(label, rules.get(element, state))
-            if value is None:
-                raise InputError(f"{args.file}: site {label or i} ({element}) has no charge; "
-                                 f"add --charge {element}=VALUE")
+            if value is None or not np.isfinite(value):
+                raise InputError(f"{args.file}: site {label or i} ({element}) has no charge in the file or the "
+                                 f"rules; add --charge {label or element}=Q")
             total += occ * value
         charges[i] = total
     return Crystal.from_ase(atoms, charges, **_crystal_options(args))
@@ -502,14 +504,20 @@ def _run_equilibrate(args, atoms):
 def _add_constant(sub):
     parser = sub.add_parser("constant", help="Madelung constants in each named convention",
                             description="Madelung constants with r0 the shortest cation–anion distance and E_fu "
-                                        "the electrostatic energy per formula unit, in three named conventions.")
+                                        "the electrostatic energy per formula unit, in three named conventions. "
+                                        "Several files give one row each; a file that fails gets its message in "
+                                        "its row and the others go on.")
     _common(parser)
+    parser.add_argument("more_files", nargs="*", metavar="FILE", help=argparse.SUPPRESS)
     return parser
 
 
 def _run_constant(args):
-    from .constants import CONVENTION_TEXT, madelung_constants
+    from .constants import madelung_constants
 
+    files = [args.file, *args.more_files]
+    if len(files) > 1:
+        return _constant_table(args, files)
     crystal = load_crystal(args)
     c = madelung_constants(crystal, tol=args.tol)
     if args.json:
@@ -531,6 +539,39 @@ def _run_constant(args):
         if note:
             print(f"  {'':<16} {'':>15}   {note}")
     print(f"\n  estimated error of the constants {c.error_estimate:.1e}")
+    print(f"  note        {MODEL_NOTE}")
+    return 0
+
+
+def _constant_table(args, files):
+    """One row per file; failures are rows too, and the run goes on."""
+    from .constants import madelung_constants
+
+    rows = []
+    for path in files:
+        args.file = path
+        try:
+            c = madelung_constants(load_crystal(args), tol=args.tol)
+            rows.append({"file": path, "status": "ok", **c.as_dict()})
+        except InputError as exc:
+            rows.append({"file": path, "status": str(exc)})
+    failed = sum(row["status"] != "ok" for row in rows)
+    if args.json:
+        _print_json({"structures": rows, "failed": failed})
+        return 0
+    print(f"madelung constant  {len(files)} structures, tol {args.tol:.0e}")
+    print(f"  {'file':<34} {'formula':<9} {'r0 / Å':>8} {'charges in':>13} {'handbook':>13} {'common factor':>14}")
+    for row in rows:
+        name = os.path.basename(row["file"])
+        if row["status"] != "ok":
+            print(f"  {name:<34} failed: {row['status']}")
+            continue
+        print(f"  {name:<34} {row['formula']:<9} {row['r0_angstrom']:>8.4f} {row['charges_left_in']:>13.8f} "
+              f"{_fmt(row['handbook'], 8):>13} {_fmt(row['common_factor'], 8):>14}")
+    print()
+    for name in ("charges_left_in", "handbook", "common_factor"):
+        print(f"  {name:<16} {CONVENTION_TEXT[name]}")
+    print(f"  {len(rows) - failed} done, {failed} failed")
     print(f"  note        {MODEL_NOTE}")
     return 0
 

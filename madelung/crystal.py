@@ -340,18 +340,18 @@ class Crystal:
 
             return base.with_charges(charges_for(base, method, known_states=file_states(atoms), **charge_options))
         if charges is None or method == "file":
-            if "oxidation_states" in atoms.arrays:
-                charges = np.array(atoms.arrays["oxidation_states"], dtype=float)
-            else:
-                initial = atoms.get_initial_charges()
-                if np.any(initial != 0):
-                    charges = initial
-                else:
-                    missing = _first_missing_state(atoms)
-                    detail = f" (site {missing} has no oxidation state)" if missing else ""
-                    raise InputError(f"{where}no charges found in the structure{detail}; give them, "
-                                     "e.g. --charge Na=+1 --charge Cl=-1, or let madelung assign them "
-                                     "(--charges-from auto)")
+            charges = charges_in_structure(atoms)
+            if charges is None:
+                elements = list(dict.fromkeys(symbols))
+                raise InputError(f"{where}no charges found in the structure; give them, e.g. "
+                                 + " ".join(f"--charge {el}=Q" for el in elements)
+                                 + ", or let madelung assign them (--charges-from auto)")
+            missing = [i for i in range(len(charges)) if not np.isfinite(charges[i])]
+            if missing:
+                names = list(dict.fromkeys(labels[i] if labels is not None else symbols[i] for i in missing))
+                raise InputError(f"{where}the file gives no oxidation state for site "
+                                 f"{', '.join(names)}; give it, e.g. --charge {names[0]}=Q, "
+                                 "or let madelung assign it (--charges-from auto)")
         crystal = cls(np.array(atoms.cell), atoms.get_positions(), charges, symbols, labels, occupancies,
                       source=source, min_distance=min_distance, info=info, species=species)
         _check_averaged(crystal, occupancy)
@@ -413,15 +413,13 @@ def file_states(atoms):
     return [(None,) for _ in range(len(atoms))]
 
 
-def _first_missing_state(atoms):
-    entries = atoms.arrays.get("site_species")
-    if entries is None:
-        return None
-    labels = atoms.arrays.get("labels")
-    for i, e in enumerate(entries):
-        if any(state is None for _, _, state in e):
-            return str(labels[i]) if labels is not None else str(i)
-    return None
+def charges_in_structure(atoms):
+    """Charges an ``ase.Atoms`` carries: CIF oxidation states (NaN where a site has none), else ASE
+    initial charges if any is non-zero, else None."""
+    if "oxidation_states" in atoms.arrays:
+        return np.array(atoms.arrays["oxidation_states"], dtype=float)
+    initial = atoms.get_initial_charges()
+    return np.array(initial, dtype=float) if np.any(initial != 0) else None
 
 
 def read_structure(path, index=-1, format=None, max_atoms=DEFAULT_MAX_ATOMS):
@@ -592,8 +590,11 @@ def _attach_cif_sites(atoms, path):
     atoms.arrays["labels"] = np.array(labels, dtype=object).astype(str)
     atoms.arrays["occupancies"] = np.array([sum(p[1] for p in e) for e in entries], dtype=float)
     atoms.arrays["site_species"] = entries
-    if all(state is not None for e in entries for _, _, state in e):
-        atoms.arrays["oxidation_states"] = np.array([sum(occ * state for _, occ, state in e) for e in entries])
+    if any(state is not None for e in entries for _, _, state in e):
+        # NaN marks a site the file gives no oxidation state for (for a mixed site: any of its species)
+        atoms.arrays["oxidation_states"] = np.array(
+            [np.nan if any(state is None for _, _, state in e) else sum(occ * state for _, occ, state in e)
+             for e in entries], dtype=float)
 
 
 def _as_list(value):

@@ -6,11 +6,30 @@ walk pairs through the same :class:`CellBins`; only their kernels differ.
 
 from __future__ import annotations
 
+from contextlib import contextmanager
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 
 from . import geometry_kernels as gk
+
+
+#: Work predicted to cost fewer pair or k-vector terms than this runs on one thread: waking a
+#: thread team costs more than it saves for a small cell, and far more when other processes
+#: compete for the cores.
+SERIAL_BELOW = 5e5
+
+
+@contextmanager
+def thread_budget(predicted_terms):
+    """Run the kernels inside on one thread when the work is small, else on all of Numba's threads."""
+    previous = numba.get_num_threads()
+    numba.set_num_threads(1 if predicted_terms < SERIAL_BELOW else previous)
+    try:
+        yield
+    finally:
+        numba.set_num_threads(previous)
 
 
 def plane_spacings(cell) -> np.ndarray:
@@ -93,9 +112,11 @@ def build_bins(cell, positions, cutoff, bins_per_cutoff=2, max_bins_per_atom=2.0
 
 def _nearest(cell, positions, charges, cutoff):
     bins = build_bins(cell, positions, cutoff)
-    nearest, partner, opposite = gk.nearest_neighbours(
-        bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach,
-        bins.bin_of, bins.bin_start, float(cutoff))
+    examined = len(positions) ** 2 * bins.examined_volume / abs(np.linalg.det(bins.cell))
+    with thread_budget(examined):
+        nearest, partner, opposite = gk.nearest_neighbours(
+            bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach,
+            bins.bin_of, bins.bin_start, float(cutoff))
     partner = np.where(partner >= 0, bins.order[np.maximum(partner, 0)], -1)
     return bins.unsorted(nearest), bins.unsorted(partner), bins.unsorted(opposite)
 

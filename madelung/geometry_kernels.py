@@ -32,6 +32,14 @@ def neighbour_bin(b0, b1, b2, d0, d1, d2, counts):
     return (c0 * counts[1] + c1) * counts[2] + c2, s0, s1, s2
 
 
+@njit(cache=True, inline="always")
+def image_shift(cell, s0, s1, s2):
+    """Cartesian vector s0*a + s1*b + s2*c of a lattice shift."""
+    return (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0],
+            s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1],
+            s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
+
+
 @njit(cache=True)
 def sort_into_bins(frac, counts):
     """Bin index of each atom (fractional coordinates in [0, 1)), the order that sorts atoms by bin,
@@ -79,9 +87,7 @@ def nearest_neighbours(positions, charges, cell, counts, reach, bin_of, bin_star
             for d1 in range(-reach[1], reach[1] + 1):
                 for d2 in range(-reach[2], reach[2] + 1):
                     b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], d0, d1, d2, counts)
-                    sx = s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0]
-                    sy = s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1]
-                    sz = s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2]
+                    sx, sy, sz = image_shift(cell, s0, s1, s2)
                     for j in range(bin_start[b], bin_start[b + 1]):
                         if j == i and s0 == 0 and s1 == 0 and s2 == 0:
                             continue

@@ -19,17 +19,15 @@ import time
 import warnings
 from dataclasses import dataclass, field
 
-import numba
 import numpy as np
 
 from ..errors import InputError, MadelungWarning
-from ..geometry import build_bins, nearest_neighbour_distances, wrapped_fractional
+from ..geometry import build_bins, nearest_neighbour_distances, thread_budget, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import kernels, tuning
 
 #: Net charges below this (e) are taken as zero: rounding in the charges, not a charged cell.
 NEUTRAL_TOLERANCE = 1e-8
-
 
 @dataclass(frozen=True)
 class EwaldParameters:
@@ -164,28 +162,29 @@ def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_m
                       f"{net:+.6g} e; a uniform neutralizing background was added", MadelungWarning,
                       stacklevel=3)
 
-    # real space
-    bins = build_bins(cell, positions, choice.real_cutoff)
-    sorted_q = bins.sorted_values(charges)
-    phi_r, f_r, w_r, pairs = kernels.real_space_terms(
-        bins.positions, sorted_q, bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start,
-        a, choice.real_cutoff, bool(forces), bool(stress))
-    phi_real = bins.unsorted(phi_r)
+    with thread_budget(choice.predicted_cost):
+        # real space
+        bins = build_bins(cell, positions, choice.real_cutoff)
+        sorted_q = bins.sorted_values(charges)
+        phi_r, f_r, w_r, pairs = kernels.real_space_terms(
+            bins.positions, sorted_q, bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start,
+            a, choice.real_cutoff, bool(forces), bool(stress))
+        phi_real = bins.unsorted(phi_r)
 
-    # reciprocal space
-    hkl, kvectors, hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
-    frac = wrapped_fractional(cell, positions)
-    k2 = np.einsum("ij,ij->i", kvectors, kvectors)
-    gauss = np.exp(-k2 / (4.0 * a * a)) / k2
-    weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * gauss)
-    if len(hkl):
-        s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, numba.get_num_threads())
-        phi_k, f_k = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
-                                                   s_re, s_im, bool(forces))
-        s2 = s_re * s_re + s_im * s_im
-    else:
-        s2 = np.zeros(0)
-        phi_k, f_k = np.zeros(n), np.zeros((n, 3))
+        # reciprocal space
+        hkl, kvectors, hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
+        frac = wrapped_fractional(cell, positions)
+        k2 = np.einsum("ij,ij->i", kvectors, kvectors)
+        gauss = np.exp(-k2 / (4.0 * a * a)) / k2
+        weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * gauss)
+        if len(hkl):
+            s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
+            phi_k, f_k = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
+                                                       s_re, s_im, bool(forces))
+            s2 = s_re * s_re + s_im * s_im
+        else:
+            s2 = np.zeros(0)
+            phi_k, f_k = np.zeros(n), np.zeros((n, 3))
 
     self_potential = -2.0 * a / math.sqrt(math.pi) * charges
     background_potential = -math.pi * net / (volume * a * a) if background else 0.0

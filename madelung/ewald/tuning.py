@@ -65,7 +65,7 @@ class Choice:
 
 
 def real_space_error(alpha, r_cut, n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e):
-    """Truncation error of the real-space energy, eV.
+    """Truncation error of the real-space energy, eV (works on arrays of alpha and r_cut).
 
     Kolafa and Perram's root-mean-square error of the potential at one ion from the omitted
     pairs, ``dphi = q_rms sqrt(rho) exp(-alpha^2 r_cut^2) / (alpha^2 r_cut^1.5)``, summed coherently
@@ -73,58 +73,66 @@ def real_space_error(alpha, r_cut, n_atoms, volume, charge_sq_sum, charge_abs_su
     same way at every equivalent ion, so the errors add rather than average out.
     """
     q_rms = math.sqrt(charge_sq_sum / n_atoms)
-    dphi = q_rms * math.sqrt(n_atoms / volume) * math.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
+    dphi = q_rms * math.sqrt(n_atoms / volume) * np.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
     return k_e * 0.5 * charge_abs_sum * dphi
 
 
 def reciprocal_space_error(alpha, k_cut, n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e):
-    """Truncation error of the reciprocal-space energy, eV.
+    """Truncation error of the reciprocal-space energy, eV (works on arrays of alpha and k_cut).
 
     As for :func:`real_space_error`: the root-mean-square potential error at one ion from the
     omitted k-vectors, ``dphi = sqrt(8 Q alpha^2 / (V k_cut^3)) exp(-k_cut^2 / 4 alpha^2)``
     (Q = sum q^2), summed coherently over the ions.
     """
-    dphi = math.sqrt(8.0 * charge_sq_sum * alpha ** 2 / (volume * k_cut ** 3)) \
-        * math.exp(-k_cut ** 2 / (4.0 * alpha ** 2))
+    dphi = np.sqrt(8.0 * charge_sq_sum * alpha ** 2 / (volume * k_cut ** 3)) \
+        * np.exp(-k_cut ** 2 / (4.0 * alpha ** 2))
     return k_e * 0.5 * charge_abs_sum * dphi
 
 
 def _solve_decreasing(func, target, low, high):
-    """Smallest x in [low, high] with func(x) <= target, for func decreasing there (bisection in log x)."""
-    if func(low) <= target:
-        return low
-    while func(high) > target:
-        high *= 2.0
-        if high > 1e12:
-            raise InputError("cannot reach the requested accuracy; is tol too small?")
-    for _ in range(100):
-        mid = math.sqrt(low * high)
-        if func(mid) > target:
-            low = mid
-        else:
-            high = mid
-        if high / low < 1.0 + 1e-10:
+    """Smallest x in [low, high] with func(x) <= target, for func decreasing there; elementwise
+    bisection in log x over arrays of starting brackets."""
+    low = np.array(low, dtype=float)
+    high = np.array(high, dtype=float)
+    for _ in range(60):
+        short = func(high) > target
+        if not short.any():
             break
-    return high
+        high = np.where(short, 2.0 * high, high)
+    else:
+        raise InputError("cannot reach the requested accuracy; is tol too small?")
+    done = func(low) <= target
+    for _ in range(80):
+        mid = np.sqrt(low * high)
+        above = func(mid) > target
+        low = np.where(above, mid, low)
+        high = np.where(above, high, mid)
+        if np.all(high / low < 1.0 + 1e-10):
+            break
+    return np.where(done, low, high)
 
 
 def cutoffs_for(alpha, target_real, target_recip, stats):
-    """Smallest cutoffs meeting each error share at this alpha, respecting the minimum term counts."""
+    """Smallest cutoffs meeting each error share at this alpha (scalar or array), respecting the
+    minimum term counts."""
     n_atoms, volume = stats[0], stats[1]
+    alpha = np.asarray(alpha, dtype=float)
     density = n_atoms / volume
     r_min = (3.0 * MIN_REAL_NEIGHBOURS / (4.0 * math.pi * density)) ** (1.0 / 3.0)
     # half-space k-vector count = (4/3) pi k^3 V / (8 pi^3) / 2
     k_min = (MIN_K_VECTORS * 12.0 * math.pi ** 2 / volume) ** (1.0 / 3.0)
     # beyond these the functions are monotone decreasing in the cutoff
     r_cut = _solve_decreasing(lambda r: real_space_error(alpha, r, *stats),
-                              target_real, max(r_min, 1.0 / alpha), 100.0 / alpha)
+                              target_real, np.maximum(r_min, 1.0 / alpha), 100.0 / alpha)
     k_cut = _solve_decreasing(lambda k: reciprocal_space_error(alpha, k, *stats),
-                              target_recip, max(k_min, 2.0 * alpha), 200.0 * alpha)
+                              target_recip, np.maximum(k_min, 2.0 * alpha), 200.0 * alpha)
+    if r_cut.ndim == 0:
+        return float(r_cut), float(k_cut)
     return r_cut, k_cut
 
 
 def predicted_cost(r_cut, k_cut, n_atoms, volume):
-    """Predicted relative cost of one energy + potentials evaluation."""
+    """Predicted relative cost of one energy + potentials evaluation (scalar or array)."""
     density = n_atoms / volume
     real_pairs = n_atoms * STENCIL_OVERHEAD * (4.0 / 3.0) * math.pi * r_cut ** 3 * density
     k_vectors = (4.0 / 3.0) * math.pi * k_cut ** 3 * volume / (16.0 * math.pi ** 3)
@@ -157,21 +165,19 @@ def choose(tol, n_atoms, volume, charge_sq_sum, charge_abs_sum, d_min, k_e, alph
 
     stats = (n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e)
 
-    def make(a):
-        r_cut, k_cut = cutoffs_for(a, share, share, stats)
-        return Choice(a, r_cut, k_cut,
-                      real_space_error(a, r_cut, *stats) / SAFETY,
-                      reciprocal_space_error(a, k_cut, *stats) / SAFETY,
-                      predicted_cost(r_cut, k_cut, n_atoms, volume))
+    def make(alphas):
+        r_cut, k_cut = cutoffs_for(alphas, share, share, stats)
+        cost = predicted_cost(r_cut, k_cut, n_atoms, volume)
+        best = int(np.argmin(cost))
+        a, r, k = float(alphas[best]), float(r_cut[best]), float(k_cut[best])
+        return Choice(a, r, k, float(real_space_error(a, r, *stats)) / SAFETY,
+                      float(reciprocal_space_error(a, k, *stats)) / SAFETY, float(cost[best]))
 
     if alpha is not None:
         if not (math.isfinite(alpha) and alpha > 0):
             raise InputError(f"alpha must be a positive number (1/Å), got {alpha!r}")
-        return make(float(alpha))
-    # the usual balance point sqrt(pi) (N / V^2)^(1/6) (equal real and reciprocal work)
+        return make(np.array([float(alpha)]))
+    # around the usual balance point sqrt(pi) (N / V^2)^(1/6), then refined near the best
     centre = math.sqrt(math.pi) * (n_atoms / volume ** 2) ** (1.0 / 6.0)
-    grid = centre * np.geomspace(0.1, 10.0, 61)
-    best = min((make(a) for a in grid), key=lambda c: c.predicted_cost)
-    # refine around the best grid point
-    fine = best.alpha * np.geomspace(0.93, 1.075, 15)
-    return min([best] + [make(a) for a in fine], key=lambda c: c.predicted_cost)
+    coarse = make(centre * np.geomspace(0.1, 10.0, 61))
+    return make(coarse.alpha * np.geomspace(0.93, 1.075, 15))

@@ -1,0 +1,78 @@
+"""Scaling: energy + potentials + forces of rattled rock-salt supercells against the NumPy baseline.
+
+Cases: cubic NaCl supercells (a = 5.64 Å, charges +-1, Gaussian displacements of 0.05 Å) with
+N = 64 ... 32768 ions at tol 1e-8. "ours" is madelung.ewald (best of 3 after a warm-up call);
+the baseline is benchmarks/baseline_numpy.py, a vectorised NumPy/SciPy Ewald sum (one call).
+The achieved error is |E - E_ref| / (k_e sum q^2 / d_min) with E_ref from madelung at tol 1e-13.
+
+Targets on the 2-core reference machine (issue: core engine): N = 4096 under 0.5 s,
+N = 32768 under 10 s, fitted exponent at most 1.6, at least 30x faster than the baseline at 4096.
+"""
+
+import argparse
+import os
+import sys
+
+import numpy as np
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from baseline_numpy import numpy_ewald  # noqa: E402
+from common import best_time, fit_exponent, print_table, rattled_rock_salt, verdict  # noqa: E402
+
+REPEATS = [2, 4, 8, 16]  # 64, 512, 4096, 32768 ions
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--tol", type=float, default=1e-8)
+    parser.add_argument("--baseline-max", type=int, default=32768, help="skip the baseline above this N")
+    parser.add_argument("--repeats", type=int, nargs="*", default=REPEATS, help="supercell repeats to run")
+    args = parser.parse_args(argv)
+
+    import madelung
+
+    warm = rattled_rock_salt(2)
+    madelung.ewald(warm, tol=args.tol, forces=True)  # compile or load the kernels first
+    rows = []
+    sizes, ours_times, speedups = [], [], {}
+    for reps in args.repeats:
+        crystal = rattled_rock_salt(reps)
+        n = len(crystal)
+        seconds, result = best_time(lambda: madelung.ewald(crystal, tol=args.tol, forces=True),
+                                    repeat=3 if n <= 4096 else 1)
+        reference = madelung.ewald(crystal, tol=1e-13).energy
+        achieved = abs(result.energy - reference) / result.energy_scale
+        if n <= args.baseline_max:
+            base_seconds, base = best_time(lambda: numpy_ewald(crystal.cell, crystal.positions, crystal.charges,
+                                                               tol=args.tol, forces=True), repeat=1)
+            base_error = abs(base["energy"] - reference) / result.energy_scale
+            ratio = base_seconds / seconds
+            speedups[n] = ratio
+            base_cells = [f"{base_seconds:.3f}", f"{ratio:.1f}x", f"{base_error:.1e}"]
+        else:
+            base_cells = ["—", "—", "—"]
+        sizes.append(n)
+        ours_times.append(seconds)
+        p = result.params
+        rows.append([n, f"{seconds:.4f}", *base_cells, f"{achieved:.1e}", f"{p.alpha:.3f}", f"{p.real_cutoff:.1f}",
+                     p.k_vectors])
+    print_table(["N ions", "ours / s", "NumPy / s", "speed-up", "NumPy error", "our error", "alpha / Å^-1",
+                 "r_cut / Å", "k-vectors"], rows,
+                title=f"Energy + potentials + forces, rattled rock salt, tol {args.tol:g}")
+    big = [i for i, n in enumerate(sizes) if n >= 512]
+    exponent = fit_exponent([sizes[i] for i in big], [ours_times[i] for i in big])
+    print(f"\nfitted exponent (N >= 512): {exponent:.2f}")
+    by_n = dict(zip(sizes, ours_times))
+    print("\ntargets:")
+    if 4096 in by_n:
+        print(f"  N = 4096 under 0.5 s: {by_n[4096]:.3f} s — {verdict(by_n[4096] < 0.5)}")
+    if 32768 in by_n:
+        print(f"  N = 32768 under 10 s: {by_n[32768]:.2f} s — {verdict(by_n[32768] < 10)}")
+    print(f"  exponent at most 1.6: {exponent:.2f} — {verdict(exponent <= 1.6)}")
+    if 4096 in speedups:
+        print(f"  at least 30x the baseline at N = 4096: {speedups[4096]:.1f}x — {verdict(speedups[4096] >= 30)}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
