@@ -51,6 +51,7 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None):
 
 
 from .constants import MadelungConstants, madelung_constants  # noqa: E402
+from .descriptors import describe  # noqa: E402
 
 __all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
-           "MadelungConstants", "InputError", "MadelungError", "MadelungWarning"]
+           "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning"]

@@ -632,7 +632,7 @@ def _run_screen(args):
         _print_json(summary.as_dict())
         return 0
     for source, status in summary.failures[:10]:
-        print(f"  failed  {source}: {status}")
+        print(f"  failed  {status if source in status else f'{source}: {status}'}")
     if len(summary.failures) > 10:
         print(f"  ... and {summary.failed - 10} more failed rows (status column of {summary.out})")
     print(summary.line())

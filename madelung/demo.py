@@ -66,7 +66,7 @@ class DemoResult:
                          f"{row['energy_per_atom_eV']:>10.4f} {row['energy_per_formula_unit_kJ_mol']:>14.1f} "
                          f"{row['madelung_charges_left_in']:>15.4f} {row['anion_potential_mean_V']:>12.4f}")
         for source, status in self.summary.failures:
-            lines.append(f"  failed  {os.path.basename(source)}: {status}")
+            lines.append(f"  failed  {os.path.basename(source)}: {status.replace(source + ': ', '')}")
         lines += [self.summary.line(),
                   f"  table {self.table}, sites {self.sites}, plot {self.plot}",
                   "  E: signed electrostatic energy of the point charges (more negative = more strongly bound); "

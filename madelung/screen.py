@@ -386,6 +386,12 @@ def screen_task(task, options):
 
 
 # ---------------------------------------------------------------- executors
+#: Modules the fork server imports once, so that every worker starts with them loaded (running a
+#: Numba kernel there is another matter: its OpenMP runtime does not survive a fork).
+PRELOAD = ("madelung.screen", "madelung.descriptors", "madelung.constants", "madelung.ewald.matrix",
+           "madelung.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib", "scipy.special")
+
+
 def _worker_main(connection, options):
     """Loop of a pool worker: receive a task, send back its result; stop at None or a closed pipe."""
     import signal
@@ -447,7 +453,7 @@ class LocalPool:
         methods = multiprocessing.get_all_start_methods()
         self.context = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
         if self.context.get_start_method() == "forkserver":
-            self.context.set_forkserver_preload(["madelung.screen"])
+            self.context.set_forkserver_preload(list(PRELOAD))
         self.workers = [_Worker(self.context, options) for _ in range(max(1, int(workers)))]
         self.capacity = len(self.workers)
 
