@@ -1,18 +1,29 @@
-"""Measure the cost ratio the tuner uses: one examined real-space pair against one
-(atom, k-vector) reciprocal term, on rattled rock-salt supercells at fixed splitting parameters.
+"""Measure the two cost constants the tuner uses (madelung/ewald/tuning.py): nanoseconds per
+real-space term inside the cutoff (both orders counted) and per (atom, half-space k-vector) term,
+forces included, on one thread, for rattled rock-salt supercells at fixed splitting parameters.
 
-Prints the seconds per unit of each and the ratio to put into madelung/ewald/tuning.py
-(REAL_PAIR_COST / RECIPROCAL_TERM_COST). Run on an otherwise idle machine.
+Uses process time on one thread, which is less disturbed by other work on the machine than
+wall time; still, run it on an otherwise idle machine.
 """
 
 import os
 import sys
 import time
 
+import numba
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from common import print_table, rattled_rock_salt  # noqa: E402
+
+
+def cpu_time(function, repeat=3):
+    best = np.inf
+    for _ in range(repeat):
+        started = time.process_time()
+        result = function()
+        best = min(best, time.process_time() - started)
+    return best, result
 
 
 def main():
@@ -20,38 +31,38 @@ def main():
     from madelung.ewald.direct import reciprocal_vectors
     from madelung.geometry import build_bins, wrapped_fractional
 
-    rows = []
-    ratios = []
+    numba.set_num_threads(1)
+    rows, real_costs, recip_costs = [], [], []
     for reps in (4, 8):
         crystal = rattled_rock_salt(reps)
-        cell, positions, charges = crystal.cell, crystal.positions, np.ascontiguousarray(crystal.charges)
+        charges = np.ascontiguousarray(crystal.charges)
         n = len(crystal)
-        for r_cut, k_cut in ((10.0, 1.5), (14.0, 2.5)):
-            bins = build_bins(cell, positions, r_cut)
-            args = (bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach, bins.bin_of,
-                    bins.bin_start, 0.3, r_cut, True, False)
+        for alpha, r_cut, k_cut in ((0.3, 12.0, 2.2), (0.22, 18.0, 2.8)):
+            bins = build_bins(crystal.cell, crystal.positions, r_cut)
+            args = (bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                    bins.bin_start, alpha, r_cut, True, False)
             kernels.real_space_terms(*args)
-            started = time.perf_counter()
-            kernels.real_space_terms(*args)
-            real_seconds = time.perf_counter() - started
-            examined = n * bins.examined_volume * n / crystal.volume
-            hkl, kvec, hmax = reciprocal_vectors(cell, k_cut)
-            frac = wrapped_fractional(cell, positions)
+            real_seconds, out = cpu_time(lambda: kernels.real_space_terms(*args))
+            pairs = out[3]
+            hkl, kvec, hmax = reciprocal_vectors(crystal.cell, k_cut)
+            frac = wrapped_fractional(crystal.cell, crystal.positions)
             weights = np.ones(len(hkl))
-            s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
-            started = time.perf_counter()
-            s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
-            kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvec, weights, s_re, s_im, True)
-            recip_seconds = time.perf_counter() - started
-            terms = n * len(hkl)
-            per_pair = real_seconds / examined
-            per_term = recip_seconds / terms
-            ratios.append(per_pair / per_term)
-            rows.append([n, r_cut, k_cut, f"{per_pair * 1e9:.2f}", f"{per_term * 1e9:.2f}", f"{per_pair / per_term:.2f}"])
-    print_table(["N", "r_cut", "k_cut", "ns / examined pair", "ns / (atom, k)", "ratio"], rows,
-                title="Cost of the two halves of the Ewald sum (forces on)")
-    print(f"\nmedian ratio {np.median(ratios):.2f}; tuning.py uses "
-          f"{tuning.REAL_PAIR_COST / tuning.RECIPROCAL_TERM_COST:.2f}")
+
+            def reciprocal():
+                s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
+                return kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvec, weights, s_re, s_im, True)
+
+            reciprocal()
+            recip_seconds, _ = cpu_time(reciprocal)
+            per_pair = real_seconds / pairs * 1e9
+            per_term = recip_seconds / (n * len(hkl)) * 1e9
+            real_costs.append(per_pair)
+            recip_costs.append(per_term)
+            rows.append([n, r_cut, pairs, f"{per_pair:.2f}", len(hkl), f"{per_term:.2f}"])
+    print_table(["N", "r_cut / Å", "real terms", "ns / real term", "k-vectors", "ns / (atom, k)"], rows,
+                title="Cost of the two halves of the Ewald sum, one thread, forces on")
+    print(f"\nmedian: {np.median(real_costs):.2f} ns per real term, {np.median(recip_costs):.2f} ns per (atom, k)")
+    print(f"tuning.py uses: {tuning.REAL_PAIR_COST:.2f} and {tuning.RECIPROCAL_TERM_COST:.2f}")
 
 
 if __name__ == "__main__":

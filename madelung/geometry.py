@@ -15,17 +15,20 @@ import numpy as np
 from . import geometry_kernels as gk
 
 
-#: Work predicted to cost fewer pair or k-vector terms than this runs on one thread: waking a
-#: thread team costs more than it saves for a small cell, and far more when other processes
-#: compete for the cores.
-SERIAL_BELOW = 5e5
+#: Work predicted to take less than this (ns of one thread) runs on one thread: waking a thread
+#: team costs more than it saves for a small cell, and far more when other processes compete
+#: for the cores.
+SERIAL_BELOW_NS = 2e6
+
+#: Rough cost of examining one candidate pair in a neighbour search, ns.
+EXAMINED_PAIR_NS = 2.5
 
 
 @contextmanager
-def thread_budget(predicted_terms):
+def thread_budget(predicted_ns):
     """Run the kernels inside on one thread when the work is small, else on all of Numba's threads."""
     previous = numba.get_num_threads()
-    numba.set_num_threads(1 if predicted_terms < SERIAL_BELOW else previous)
+    numba.set_num_threads(1 if predicted_ns < SERIAL_BELOW_NS else previous)
     try:
         yield
     finally:
@@ -63,6 +66,8 @@ class CellBins:
     order : (N,) original index of each sorted atom (``sorted = original[order]``).
     counts : (3,) bins along each lattice vector.
     reach : (3,) how many bins away a partner within the cutoff can be.
+    offsets : (K, 3) the bin offsets to search: those within ``reach`` whose bins can hold a pair
+        closer than the cutoff.
     bin_of : (N, 3) bin of each sorted atom.
     bin_start : (n_bins + 1,) where each bin's atoms start in sorted order.
     cutoff : the cutoff the bins were built for, Å.
@@ -73,6 +78,7 @@ class CellBins:
     order: np.ndarray
     counts: np.ndarray
     reach: np.ndarray
+    offsets: np.ndarray
     bin_of: np.ndarray
     bin_start: np.ndarray
     cutoff: float
@@ -91,10 +97,27 @@ class CellBins:
     def examined_volume(self) -> float:
         """Volume of the bin stencil searched around each atom, Å^3 (for cost models)."""
         volume = abs(np.linalg.det(self.cell))
-        return volume * float(np.prod((2 * self.reach + 1) / self.counts))
+        return volume * len(self.offsets) / float(np.prod(self.counts))
 
 
-def build_bins(cell, positions, cutoff, bins_per_cutoff=2, max_bins_per_atom=2.0) -> CellBins:
+def stencil_offsets(cell, counts, reach, cutoff):
+    """Bin offsets within ``reach`` whose bins may hold two points closer than ``cutoff``.
+
+    Two points in bins d apart differ by sum_a (d_a + t_a) e_a with |t_a| < 1 and e_a the bin edge
+    vectors, so their distance is at least sqrt(lambda_min(G)) |max(|d| - 1, 0)|, with G the
+    metric of the edge vectors. Offsets beyond that bound are left out; the bound is exact for
+    rectangular bins and only less sharp for oblique ones.
+    """
+    edges = np.asarray(cell, float) / np.asarray(counts, float)[:, None]
+    smallest = max(float(np.linalg.eigvalsh(edges @ edges.T)[0]), 0.0)
+    grids = np.meshgrid(*[np.arange(-r, r + 1) for r in reach], indexing="ij")
+    offsets = np.stack([g.ravel() for g in grids], axis=1).astype(np.int64)
+    gap = np.maximum(np.abs(offsets) - 1, 0).astype(float)
+    keep = smallest * np.einsum("ij,ij->i", gap, gap) <= cutoff * cutoff * (1 + 1e-12)
+    return np.ascontiguousarray(offsets[keep])
+
+
+def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0) -> CellBins:
     """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction."""
     cell = np.ascontiguousarray(cell, dtype=np.float64)
     n = len(positions)
@@ -103,19 +126,20 @@ def build_bins(cell, positions, cutoff, bins_per_cutoff=2, max_bins_per_atom=2.0
     limit = max(1.0, max_bins_per_atom * n)
     while np.prod(counts.astype(float)) > limit:
         counts = np.maximum(1, counts // 2)
-    reach = np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64)
+    reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 0)
     frac = wrapped_fractional(cell, positions)
     bin_of, order, start = gk.sort_into_bins(frac, counts)
     wrapped = np.ascontiguousarray(frac[order] @ cell)
-    return CellBins(cell, wrapped, order, counts, np.maximum(reach, 0), bin_of, start, float(cutoff))
+    return CellBins(cell, wrapped, order, counts, reach, stencil_offsets(cell, counts, reach, cutoff), bin_of, start,
+                    float(cutoff))
 
 
 def _nearest(cell, positions, charges, cutoff):
     bins = build_bins(cell, positions, cutoff)
     examined = len(positions) ** 2 * bins.examined_volume / abs(np.linalg.det(bins.cell))
-    with thread_budget(examined):
+    with thread_budget(examined * EXAMINED_PAIR_NS):
         nearest, partner, opposite = gk.nearest_neighbours(
-            bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach,
+            bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets,
             bins.bin_of, bins.bin_start, float(cutoff))
     partner = np.where(partner >= 0, bins.order[np.maximum(partner, 0)], -1)
     return bins.unsorted(nearest), bins.unsorted(partner), bins.unsorted(opposite)

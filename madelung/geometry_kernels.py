@@ -2,7 +2,8 @@
 
 Atoms are sorted into a grid of bins over the cell in fractional coordinates.
 A pair (i, j + image) within a cutoff always lies in a bin at most ``reach[a]``
-bins away along axis a, for any triclinic cell; bins beyond the cell edge wrap
+bins away along axis a, for any triclinic cell; the kernels walk a list of such bin
+offsets (the stencil, pruned of bins too far away); bins beyond the cell edge wrap
 round with a lattice shift. When the cell is thinner than the cutoff, one bin per
 axis and a reach of several bins enumerates the periodic images.
 
@@ -69,7 +70,7 @@ def sort_into_bins(frac, counts):
 
 
 @njit(parallel=True, cache=True)
-def nearest_neighbours(positions, charges, cell, counts, reach, bin_of, bin_start, cutoff):
+def nearest_neighbours(positions, charges, cell, counts, offsets, bin_of, bin_start, cutoff):
     """For every atom (sorted by bin): distance to the nearest other atom or image, the index of
     that atom, and the distance to the nearest atom of opposite charge sign, all within ``cutoff``
     (``inf`` and -1 where there is none)."""
@@ -85,24 +86,23 @@ def nearest_neighbours(positions, charges, cell, counts, reach, bin_of, bin_star
         best = np.inf
         best_j = -1
         best_opp = np.inf
-        for d0 in range(-reach[0], reach[0] + 1):
-            for d1 in range(-reach[1], reach[1] + 1):
-                for d2 in range(-reach[2], reach[2] + 1):
-                    b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], d0, d1, d2, counts)
-                    sx, sy, sz = image_shift(cell, s0, s1, s2)
-                    for j in range(bin_start[b], bin_start[b + 1]):
-                        if j == i and s0 == 0 and s1 == 0 and s2 == 0:
-                            continue
-                        dx = xi - positions[j, 0] - sx
-                        dy = yi - positions[j, 1] - sy
-                        dz = zi - positions[j, 2] - sz
-                        r2 = dx * dx + dy * dy + dz * dz
-                        if r2 < cut2:
-                            if r2 < best:
-                                best = r2
-                                best_j = j
-                            if charges[i] * charges[j] < 0.0 and r2 < best_opp:
-                                best_opp = r2
+        for o in range(offsets.shape[0]):
+            b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2],
+                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
+            sx, sy, sz = image_shift(cell, s0, s1, s2)
+            for j in range(bin_start[b], bin_start[b + 1]):
+                if j == i and s0 == 0 and s1 == 0 and s2 == 0:
+                    continue
+                dx = xi - positions[j, 0] - sx
+                dy = yi - positions[j, 1] - sy
+                dz = zi - positions[j, 2] - sz
+                r2 = dx * dx + dy * dy + dz * dz
+                if r2 < cut2:
+                    if r2 < best:
+                        best = r2
+                        best_j = j
+                    if charges[i] * charges[j] < 0.0 and r2 < best_opp:
+                        best_opp = r2
         nearest[i] = np.sqrt(best)
         partner[i] = best_j
         nearest_opposite[i] = np.sqrt(best_opp)

@@ -167,7 +167,7 @@ def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_m
         bins = build_bins(cell, positions, choice.real_cutoff)
         sorted_q = bins.sorted_values(charges)
         phi_r, f_r, w_r, pairs = kernels.real_space_terms(
-            bins.positions, sorted_q, bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start,
+            bins.positions, sorted_q, bins.cell, bins.counts, bins.offsets, bins.bin_of, bins.bin_start,
             a, choice.real_cutoff, bool(forces), bool(stress))
         phi_real = bins.unsorted(phi_r)
 

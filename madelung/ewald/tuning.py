@@ -17,10 +17,12 @@ systematic (whole shells or Bragg reflections left out), so we aim ``SAFETY`` be
 target; the convergence benchmark and the tests check the achieved error against
 independent high-precision values for every bundled prototype.
 
-Cost model: the real-space sum costs ``REAL_PAIR_COST`` per atom pair inside the stencil of
-bins searched, the reciprocal sum ``RECIPROCAL_TERM_COST`` per atom and half-space k-vector
-(both passes). Their ratio was measured with ``benchmarks/calibrate_cost.py`` on the 2-core
-reference machine; only the ratio matters.
+Cost model: the real-space sum costs ``REAL_PAIR_COST`` nanoseconds per (i, j, image) term inside
+the cutoff (counting both orders, as in the double sum) plus ``STENCIL_COST`` per atom and bin of
+the stencil searched around it; the reciprocal sum costs ``RECIPROCAL_TERM_COST`` nanoseconds per
+atom and half-space k-vector (structure factors and site terms together). All were measured on
+one thread of the 2-core reference machine with ``benchmarks/calibrate_cost.py``; the predicted
+cost is in nanoseconds of one thread.
 """
 
 from __future__ import annotations
@@ -35,18 +37,18 @@ from ..errors import InputError
 #: Aim this far below the requested error (crystal errors are systematic, not random).
 SAFETY = 0.05
 
-#: Relative cost of one examined real-space pair and one (atom, k-vector) reciprocal term.
-#: Measured by benchmarks/calibrate_cost.py (rock-salt supercells, 2 threads).
-REAL_PAIR_COST = 1.0
-RECIPROCAL_TERM_COST = 1.0
+#: Nanoseconds per real-space term, per (atom, stencil bin) and per (atom, k-vector) term, forces
+#: included, one thread. Measured by benchmarks/calibrate_cost.py (rattled rock-salt supercells,
+#: N = 512 and 4096): 20-35 ns per real term overall at r_cut 18-12 Å, 3.8-4.3 ns per (atom, k).
+REAL_PAIR_COST = 16.0
+STENCIL_COST = 16.0
+RECIPROCAL_TERM_COST = 4.0
+#: Bins in a typical stencil (three bins per cutoff, reach 3, corners pruned).
+STENCIL_BINS = 330
 
 #: The estimates hold once the sums have many terms; never go below these.
 MIN_REAL_NEIGHBOURS = 30.0
 MIN_K_VECTORS = 10.0
-
-#: Bin stencil volume over the cutoff sphere volume for two bins per cutoff (5/2)^3 / (4 pi / 3).
-STENCIL_OVERHEAD = (2.5 ** 3) / (4.0 * math.pi / 3.0)
-
 
 @dataclass(frozen=True)
 class Choice:
@@ -57,7 +59,7 @@ class Choice:
     reciprocal_cutoff: float
     real_error: float
     reciprocal_error: float
-    predicted_cost: float
+    predicted_cost: float  # ns of one thread
 
     @property
     def error_estimate(self) -> float:
@@ -132,11 +134,12 @@ def cutoffs_for(alpha, target_real, target_recip, stats):
 
 
 def predicted_cost(r_cut, k_cut, n_atoms, volume):
-    """Predicted relative cost of one energy + potentials evaluation (scalar or array)."""
+    """Predicted cost of one energy + potentials + forces evaluation, ns of one thread (scalar or array)."""
     density = n_atoms / volume
-    real_pairs = n_atoms * STENCIL_OVERHEAD * (4.0 / 3.0) * math.pi * r_cut ** 3 * density
+    real_pairs = n_atoms * (4.0 / 3.0) * math.pi * r_cut ** 3 * density
     k_vectors = (4.0 / 3.0) * math.pi * k_cut ** 3 * volume / (16.0 * math.pi ** 3)
-    return REAL_PAIR_COST * real_pairs + RECIPROCAL_TERM_COST * n_atoms * k_vectors
+    return (REAL_PAIR_COST * real_pairs + STENCIL_COST * STENCIL_BINS * n_atoms
+            + RECIPROCAL_TERM_COST * n_atoms * k_vectors)
 
 
 def choose(tol, n_atoms, volume, charge_sq_sum, charge_abs_sum, d_min, k_e, alpha=None) -> Choice:
