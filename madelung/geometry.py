@@ -194,5 +194,5 @@ def neighbour_pairs(cell, positions, cutoff, sites=None):
     rank = np.empty(n, dtype=np.int64)
     rank[bins.order] = np.arange(n)
     owner, partner, distance = gk.pairs_from(np.ascontiguousarray(rank[sites]), bins.positions, bins.cell,
-                                             bins.counts, bins.reach, bins.bin_of, bins.bin_start, float(cutoff))
+                                             bins.counts, bins.offsets, bins.bin_of, bins.bin_start, float(cutoff))
     return owner, bins.order[partner], distance

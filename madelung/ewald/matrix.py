@@ -17,11 +17,10 @@ from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 
 from ..errors import InputError
-from ..geometry import build_bins, nearest_neighbour_distances, neighbour_pairs, wrapped_fractional
+from ..geometry import build_bins, nearest_neighbour_distances, neighbour_pairs, thread_budget, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import kernels, tuning
 from .direct import reciprocal_vectors
@@ -70,20 +69,20 @@ def potentials_for_charge_sets(cell, positions, charge_sets, tol=1e-10, d_min=No
     frac = wrapped_fractional(cell, positions)
     k2 = np.einsum("ij,ij->i", kvectors, kvectors)
     weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * a * a)) / k2)
-    threads = numba.get_num_threads()
     out = np.empty((len(sets), n))
-    for m, charges in enumerate(sets):
-        charges = np.ascontiguousarray(charges)
-        phi_r, _, _, _ = kernels.real_space_terms(
-            bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach, bins.bin_of,
-            bins.bin_start, a, choice.real_cutoff, False, False)
-        phi = bins.unsorted(phi_r)
-        if len(hkl):
-            s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, threads)
-            phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_re, s_im, False)
-            phi = phi + phi_k
-        net = float(charges.sum())
-        out[m] = COULOMB_CONSTANT * (phi - 2.0 * a / math.sqrt(math.pi) * charges - math.pi * net / (volume * a * a))
+    with thread_budget(choice.predicted_cost):
+        for m, charges in enumerate(sets):
+            charges = np.ascontiguousarray(charges)
+            phi_r, _, _, _ = kernels.real_space_terms(
+                bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                bins.bin_start, a, choice.real_cutoff, False, False)
+            phi = bins.unsorted(phi_r)
+            if len(hkl):
+                s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
+                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_re, s_im, False)
+                phi = phi + phi_k
+            net = float(charges.sum())
+            out[m] = COULOMB_CONSTANT * (phi - 2.0 * a / math.sqrt(math.pi) * charges - math.pi * net / (volume * a * a))
     return out
 
 
