@@ -3,7 +3,6 @@
 import json
 import math
 import re
-import warnings
 from functools import lru_cache
 from pathlib import Path
 

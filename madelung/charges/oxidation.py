@@ -160,7 +160,8 @@ class OxidationAssignment:
         return self.best.charges
 
     def describe(self, candidate=None) -> str:
-        """One-line text of an assignment, e.g. ``"Fe1 (8a) Fe+3, Fe2 (16d) Fe+2.5 (Fe2+/Fe3+ average), O1 (32e) O-2"``."""
+        """One-line text of an assignment, e.g.
+        ``"Fe1 (8a) Fe+3, Fe2 (16d) Fe+2.5 (Fe2+/Fe3+ average), O1 (32e) O-2"``."""
         candidate = candidate or self.best
         parts = []
         for group, states in zip(self.groups, candidate.states):

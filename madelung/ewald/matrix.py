@@ -79,10 +79,12 @@ def potentials_for_charge_sets(cell, positions, charge_sets, tol=1e-10, d_min=No
             phi = bins.unsorted(phi_r)
             if len(hkl):
                 s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
-                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_re, s_im, False)
+                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
+                                                         s_re, s_im, False)
                 phi = phi + phi_k
             net = float(charges.sum())
-            out[m] = COULOMB_CONSTANT * (phi - 2.0 * a / math.sqrt(math.pi) * charges - math.pi * net / (volume * a * a))
+            self_and_background = 2.0 * a / math.sqrt(math.pi) * charges + math.pi * net / (volume * a * a)
+            out[m] = COULOMB_CONSTANT * (phi - self_and_background)
     return out
 
 
