@@ -389,6 +389,7 @@ def _candidate_json(assignment, candidate, rank):
 
 
 def _run_charges(args):
+    from .charges.oxidation import mixed_note
     from .crystal import parse_charge_rules, read_structure
 
     atoms = read_structure(args.file, max_atoms=args.max_atoms)
@@ -417,11 +418,7 @@ def _run_charges(args):
     print(f"  {'orbit':<10} {'species':<12} {'Wyckoff':>7} {'sites':>5}  {'state':<30} {'potential / V':>14} "
           f"{'BVS':>7}")
     for g, states, phi, bvs in zip(a.groups, a.best.states, a.best.potentials, a.best.bond_valence_sums):
-        text = " ".join(f"{el}{q:+g}" for (el, _), q in zip(g.species, states))
-        mixed = [f"{el}{_ion(math.floor(q))}/{el}{_ion(math.ceil(q))} average"
-                 for (el, _), q in zip(g.species, states) if abs(q - round(q)) > 1e-9]
-        if mixed:
-            text += " (" + ", ".join(mixed) + ")"
+        text = " ".join(f"{el}{q:+g}{mixed_note(el, q)}" for (el, _), q in zip(g.species, states))
         shown = "—" if bvs is None else f"{bvs:7.3f}"
         print(f"  {g.label:<10} {g.species_label:<12} {g.wyckoff:>7} {len(g.sites):>5}  {text:<30} {phi:>14.6f} "
               f"{shown:>7}")
@@ -443,10 +440,6 @@ def _run_charges(args):
     print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
           "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
     return 0
-
-
-def _ion(q):
-    return f"{abs(q)}{'+' if q > 0 else '-'}"
 
 
 def _auto_charged(atoms, rules, args):
