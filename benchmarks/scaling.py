@@ -17,7 +17,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from baseline_numpy import numpy_ewald  # noqa: E402
-from common import best_time, fit_exponent, print_table, rattled_rock_salt, verdict  # noqa: E402
+from common import RESULTS, best_time, fit_exponent, print_table, rattled_rock_salt, verdict  # noqa: E402
 
 REPEATS = [2, 4, 8, 16]  # 64, 512, 4096, 32768 ions
 
@@ -27,6 +27,7 @@ def main(argv=None):
     parser.add_argument("--tol", type=float, default=1e-8)
     parser.add_argument("--baseline-max", type=int, default=32768, help="skip the baseline above this N")
     parser.add_argument("--repeats", type=int, nargs="*", default=REPEATS, help="supercell repeats to run")
+    parser.add_argument("--no-plot", action="store_true")
     args = parser.parse_args(argv)
 
     import madelung
@@ -34,7 +35,7 @@ def main(argv=None):
     warm = rattled_rock_salt(2)
     madelung.ewald(warm, tol=args.tol, forces=True)  # compile or load the kernels first
     rows = []
-    sizes, ours_times, speedups = [], [], {}
+    sizes, ours_times, speedups, base_times = [], [], {}, {}
     for reps in args.repeats:
         crystal = rattled_rock_salt(reps)
         n = len(crystal)
@@ -48,6 +49,7 @@ def main(argv=None):
             base_error = abs(base["energy"] - reference) / result.energy_scale
             ratio = base_seconds / seconds
             speedups[n] = ratio
+            base_times[n] = base_seconds
             base_cells = [f"{base_seconds:.3f}", f"{ratio:.1f}x", f"{base_error:.1e}"]
         else:
             base_cells = ["—", "—", "—"]
@@ -71,7 +73,30 @@ def main(argv=None):
     print(f"  exponent at most 1.6: {exponent:.2f} — {verdict(exponent <= 1.6)}")
     if 4096 in speedups:
         print(f"  at least 30x the baseline at N = 4096: {speedups[4096]:.1f}x — {verdict(speedups[4096] >= 30)}")
+    if not args.no_plot:
+        plot(sizes, ours_times, base_times)
     return 0
+
+
+def plot(sizes, ours_times, base_times):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    os.makedirs(RESULTS, exist_ok=True)
+    fig, ax = plt.subplots(figsize=(6, 4.5))
+    ax.loglog(sizes, ours_times, "o-", label="madelung (direct Ewald, Numba)")
+    if base_times:
+        ax.loglog(sorted(base_times), [base_times[n] for n in sorted(base_times)], "s--", label="NumPy baseline")
+    ax.set_xlabel("ions N")
+    ax.set_ylabel("energy + potentials + forces / s")
+    ax.set_title("Rattled rock salt, tol 1e-8")
+    ax.legend()
+    fig.tight_layout()
+    path = os.path.join(RESULTS, "scaling.png")
+    fig.savefig(path, dpi=120)
+    print(f"plot: {path}")
 
 
 if __name__ == "__main__":

@@ -11,6 +11,7 @@ import argparse
 import json
 import math
 import os
+import re
 import sys
 import warnings
 
@@ -223,6 +224,9 @@ def _add_energy(sub):
     _common(parser)
     parser.add_argument("--forces", action="store_true", help="also compute forces (eV/Å)")
     parser.add_argument("--stress", action="store_true", help="also compute the stress tensor (eV/Å^3, GPa)")
+    parser.add_argument("--repulsion", metavar="PARAMS.json",
+                        help="short-range parameter file (from madelung fit): adds the repulsion, the lattice "
+                             "energy and the Born–Landé, Born–Mayer and Kapustinskii closed forms")
     return parser
 
 
@@ -232,6 +236,11 @@ def _run_energy(args):
 
     crystal = load_crystal(args)
     result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress)
+    lattice = None
+    if args.repulsion:
+        from .lattice import lattice_energy
+
+        lattice = lattice_energy(crystal, args.repulsion, tol=args.tol)
     z = crystal.formula_units
     if args.json:
         data = {"file": args.file, "formula": crystal.formula, "reduced_formula": crystal.reduced_formula,
@@ -244,6 +253,8 @@ def _run_energy(args):
             data["forces_eV_per_angstrom"] = result.forces
         if result.stress is not None:
             data["stress_eV_per_angstrom3"] = result.stress
+        if lattice is not None:
+            data["lattice"] = _lattice_json(lattice)
         _print_json(data)
         return 0
     per_fu = result.energy / z
@@ -264,6 +275,10 @@ def _run_energy(args):
         pressure = -np.trace(s) / 3 * EV_PER_A3_TO_GPA
         lines.append(f"  stress      xx {s[0, 0]:.6g} yy {s[1, 1]:.6g} zz {s[2, 2]:.6g} eV/Å^3; "
                      f"pressure {pressure:.4f} GPa")
+    if lattice is not None:
+        lines.append(f"  short-range terms from {args.repulsion}")
+        lines.extend(_lattice_lines(lattice))
+        lines.append(f"  note        {RIGID_ION_NOTE}")
     lines.append(f"  note        {MODEL_NOTE}")
     print("\n".join(lines))
     return 0
@@ -389,6 +404,7 @@ def _candidate_json(assignment, candidate, rank):
 
 
 def _run_charges(args):
+    from .charges.oxidation import mixed_note
     from .crystal import parse_charge_rules, read_structure
 
     atoms = read_structure(args.file, max_atoms=args.max_atoms)
@@ -417,11 +433,7 @@ def _run_charges(args):
     print(f"  {'orbit':<10} {'species':<12} {'Wyckoff':>7} {'sites':>5}  {'state':<30} {'potential / V':>14} "
           f"{'BVS':>7}")
     for g, states, phi, bvs in zip(a.groups, a.best.states, a.best.potentials, a.best.bond_valence_sums):
-        text = " ".join(f"{el}{q:+g}" for (el, _), q in zip(g.species, states))
-        mixed = [f"{el}{_ion(math.floor(q))}/{el}{_ion(math.ceil(q))} average"
-                 for (el, _), q in zip(g.species, states) if abs(q - round(q)) > 1e-9]
-        if mixed:
-            text += " (" + ", ".join(mixed) + ")"
+        text = " ".join(f"{el}{q:+g}{mixed_note(el, q)}" for (el, _), q in zip(g.species, states))
         shown = "—" if bvs is None else f"{bvs:7.3f}"
         print(f"  {g.label:<10} {g.species_label:<12} {g.wyckoff:>7} {len(g.sites):>5}  {text:<30} {phi:>14.6f} "
               f"{shown:>7}")
@@ -443,10 +455,6 @@ def _run_charges(args):
     print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
           "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
     return 0
-
-
-def _ion(q):
-    return f"{abs(q)}{'+' if q > 0 else '-'}"
 
 
 def _auto_charged(atoms, rules, args):
@@ -539,6 +547,180 @@ def _run_constant(args):
         if note:
             print(f"  {'':<16} {'':>15}   {note}")
     print(f"\n  estimated error of the constants {c.error_estimate:.1e}")
+    print(f"  note        {MODEL_NOTE}")
+    return 0
+
+
+# ---------------------------------------------------------------- defects
+def _frac(f):
+    return "(" + ", ".join(f"{x:.4f}" for x in f) + ")"
+
+
+def _series(text):
+    try:
+        return [int(x) for x in text.split(",") if x.strip()]
+    except ValueError:
+        raise InputError(f"--series {text!r} must be integers such as 1,2,3") from None
+
+
+def _dielectric_from(args):
+    from .defects import dielectric_tensor, read_dielectric_tensor
+
+    if getattr(args, "dielectric_tensor", None):
+        if args.dielectric is not None:
+            raise InputError("give either --dielectric or --dielectric-tensor, not both")
+        return read_dielectric_tensor(args.dielectric_tensor)
+    if args.dielectric is not None:
+        return dielectric_tensor(args.dielectric)
+    return None
+
+
+def _dielectric_options(parser):
+    parser.add_argument("--dielectric", type=float, metavar="EPS", help="scalar dielectric constant")
+    parser.add_argument("--dielectric-tensor", metavar="FILE",
+                        help="text file with the dielectric tensor: 9 numbers (3 rows), 3 (diagonal) or 1")
+
+
+def _supercell_options(parser):
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument("--supercell", metavar="NxMxK",
+                       help="supercell repeats, e.g. 3x3x3 (or nine integers, the rows of a matrix)")
+    group.add_argument("--min-length", type=float, metavar="Å",
+                       help="the smallest near-cubic supercell whose lattice-plane spacings all reach this length")
+
+
+def _eps_text(eps):
+    if np.allclose(eps, eps[0, 0] * np.eye(3)):
+        return f"{eps[0, 0]:g}"
+    return "[" + "; ".join(" ".join(f"{x:g}" for x in row) for row in eps) + "]"
+
+
+def _add_map(sub):
+    parser = sub.add_parser("map", help="potential on a grid (cube file) and a plane heat map (PNG)",
+                            description="Electrostatic potential on a regular grid over the cell, written as a "
+                                        "Gaussian cube file, and a PNG heat map of one lattice plane with its ions "
+                                        "marked. Ions are Gaussians of width --smearing (0: point ions).")
+    _common(parser)
+    parser.set_defaults(tol=1e-8)
+    parser.add_argument("--grid", type=float, default=0.2, metavar="Å", help="grid step (default 0.2 Å)")
+    parser.add_argument("--plane", default="001", metavar="HKL", help="lattice plane of the heat map (default 001)")
+    parser.add_argument("--offset", type=float, default=0.5,
+                        help="plane position: h*f1 + k*f2 + l*f3 = OFFSET (default 0.5)")
+    parser.add_argument("--smearing", type=float, default=0.3, metavar="Å",
+                        help="Gaussian width of the ions (default 0.3 Å; 0 = point ions, grid points on ions "
+                             "then hold the site potential)")
+    parser.add_argument("--output", metavar="PREFIX", help="output prefix (default: FILE name + '-potential')")
+    return parser
+
+
+def _run_map(args):
+    import os
+
+    from .defects import plane_section, potential_grid, write_cube, write_plane_png
+
+    crystal = load_crystal(args)
+    grid = potential_grid(crystal, args.grid, smearing=args.smearing, tol=args.tol)
+    section = plane_section(crystal, args.plane, args.offset, spacing=min(args.grid, 0.1),
+                            smearing=args.smearing, tol=args.tol)
+    prefix = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-potential"
+    cube, png = prefix + ".cube", prefix + ".png"
+    write_cube(cube, grid)
+    write_plane_png(png, section, title=f"{crystal.formula}: potential on ({args.plane}) at offset {args.offset:g}")
+    values = np.asarray(grid.values)
+    if args.json:
+        _print_json({"file": args.file, "cube_file": cube, "png_file": png, "grid_shape": list(grid.shape),
+                     "grid_step_angstrom": grid.spacing, "smearing_angstrom": grid.smearing,
+                     "potential_min_V": float(values.min()), "potential_max_V": float(values.max()),
+                     "potential_mean_V": float(values.mean()), "error_estimate_V": grid.error_estimate,
+                     "plane": list(section.miller), "offset": section.offset,
+                     "plane_min_V": float(section.values.min()), "plane_max_V": float(section.values.max()),
+                     "ions_in_plane": [{"label": a[2], "s": a[0], "t": a[1]} for a in section.atoms]})
+        return 0
+    n1, n2, n3 = grid.shape
+    lines = [f"madelung map  {args.file}", *_structure_lines(crystal),
+             f"  grid        {n1} x {n2} x {n3} points, step {', '.join(f'{x:.3f}' for x in grid.spacing)} Å; "
+             + (f"ions as Gaussians of width {grid.smearing:g} Å" if grid.smearing else
+                "point ions (grid points on ions hold the site potential)"),
+             f"  potential   min {values.min():.4f} V, max {values.max():.4f} V, cell average {values.mean():.2e} V "
+             "(Ewald convention: the average is zero)",
+             f"  accuracy    estimated error {grid.error_estimate:.1e} V per value",
+             f"  plane       ({' '.join(map(str, section.miller))}) at offset {section.offset:g}: "
+             f"{section.values.min():.4f} .. {section.values.max():.4f} V, {len(section.atoms)} ions marked",
+             f"  wrote       {cube} (Gaussian cube, values in V), {png}",
+             f"  note        {MODEL_NOTE}"]
+    print("\n".join(lines))
+    return 0
+
+
+def _add_interstitials(sub):
+    parser = sub.add_parser("interstitials", help="candidate interstitial sites of a probe charge",
+                            description="Local minima of a probe charge's energy (charge x potential plus a "
+                                        "Born-Mayer contact term with ionic radii) on a grid, refined, filtered by "
+                                        "a minimum distance to the ions and merged by symmetry.")
+    _common(parser)
+    parser.set_defaults(tol=1e-8)
+    parser.add_argument("--probe", type=float, default=1.0, metavar="Q", help="probe charge in e (default +1)")
+    parser.add_argument("--probe-radius", type=float, default=None, metavar="Å",
+                        help="probe radius (default 0.76 Å, about Li+)")
+    parser.add_argument("--radius", action="append", default=[], metavar="KEY=Å",
+                        help="ion radius by element or site label (default: Shannon effective ionic radii)")
+    parser.add_argument("--clearance", type=float, default=0.75,
+                        help="keep candidates at least CLEARANCE x (R_ion + R_probe) from every ion (default 0.75)")
+    parser.add_argument("--grid", type=float, default=0.2, metavar="Å", help="search-grid step (default 0.2 Å)")
+    return parser
+
+
+def _run_interstitials(args):
+    from .defects import DEFAULT_PROBE_RADIUS, find_interstitials
+
+    crystal = load_crystal(args)
+    radii = {}
+    for rule in args.radius:
+        key, sep, value = str(rule).partition("=")
+        try:
+            radii[key.strip()] = float(value)
+        except ValueError:
+            sep = ""
+        if not sep or not key.strip():
+            raise InputError(f"radius {rule!r} must look like ELEMENT=Å or LABEL=Å, e.g. O=1.40")
+    unknown = sorted(set(radii) - set(crystal.symbols) - set(crystal.labels))
+    if unknown:
+        raise InputError(f"{args.file}: radius given for {unknown[0]}, which is neither an element nor a site label "
+                         "of this structure")
+    probe_radius = DEFAULT_PROBE_RADIUS if args.probe_radius is None else args.probe_radius
+    search = find_interstitials(crystal, args.probe, spacing=args.grid, probe_radius=probe_radius, radii=radii,
+                                clearance=args.clearance, tol=args.tol)
+    rows = [{"fractional": s.fractional, "position_angstrom": s.position, "potential_V": s.potential,
+             "electrostatic_energy_eV": s.electrostatic_energy, "contact_energy_eV": s.contact_energy,
+             "total_energy_eV": s.total_energy, "nearest_ion": s.nearest_label,
+             "nearest_distance_angstrom": s.nearest_distance, "multiplicity": s.multiplicity}
+            for s in search.sites]
+    if args.json:
+        _print_json({"file": args.file, "probe_charge_e": search.probe, "probe_radius_angstrom": search.probe_radius,
+                     "radii_angstrom": search.radii, "clearance": search.clearance,
+                     "grid_shape": list(search.grid_shape), "grid_minima": search.grid_minima,
+                     "rejected": search.rejected, "sites": rows, "error_estimate_V": search.error_estimate})
+        return 0
+    print(f"madelung interstitials  {args.file}")
+    print("\n".join(_structure_lines(crystal)))
+    radii_text = ", ".join(f"{k} {v:.2f}" for k, v in search.radii.items())
+    print(f"  probe       charge {search.probe:+g} e, radius {search.probe_radius:.2f} Å; ion radii (Å) {radii_text}")
+    print(f"  search      grid {'x'.join(map(str, search.grid_shape))}, {search.grid_minima} grid minima, "
+          f"{search.rejected} rejected (nearer than {search.clearance:g} x (R_ion + R_probe) to an ion, or not a "
+          "minimum inside its refinement box)")
+    print()
+    print(f"  {'#':>3}  {'fractional position':<28} {'q*phi / eV':>11} {'contact / eV':>12} {'nearest ion':>14} "
+          f"{'mult':>5}")
+    for i, s in enumerate(search.sites, 1):
+        print(f"  {i:>3}  {_frac(s.fractional):<28} {s.electrostatic_energy:>11.4f} {s.contact_energy:>12.4f} "
+              f"{s.nearest_label + f' {s.nearest_distance:.3f} Å':>14} {s.multiplicity:>5}")
+    if not search.sites:
+        print("  no candidate site passed the filters: every empty site is a saddle of the probe's energy here "
+              "(a larger --probe-radius stiffens the contact term)")
+    print()
+    print("  q*phi: probe charge times the crystal's potential (ranked by it, lowest first); contact: Born-Mayer "
+          "term b exp((R_ion+R_probe-d)/rho), b = 0.211 eV, rho = 0.33 Å, which gives the minima (a bare point "
+          "charge has no stable site, Earnshaw). Unrelaxed lattice.")
     print(f"  note        {MODEL_NOTE}")
     return 0
 
@@ -662,6 +844,667 @@ def _run_demo(args):
         _print_json(result.as_dict())
         return 0
     print(result.report())
+def _add_defect(sub):
+    parser = sub.add_parser("defect", help="vacancy, substitution and interstitial electrostatics in a supercell",
+                            description="Unrelaxed electrostatic energy change of point defects in a supercell, the "
+                                        "change of the potential on the neighbouring sites and the Madelung-site-"
+                                        "potential estimate. A charged defect is summed with a uniform neutralizing "
+                                        "background unless you add a compensating defect yourself.")
+    _common(parser)
+    parser.add_argument("--vacancy", action="append", default=[], metavar="SITE",
+                        help="empty a site: LABEL (its copy in the first cell), LABEL@x,y,z (copy nearest that "
+                             "supercell fractional point) or #INDEX; repeat for several")
+    parser.add_argument("--substitute", action="append", default=[], metavar="SITE=EL[:Q]",
+                        help="replace the ion on SITE by element EL with charge Q, e.g. Mg1=Al:+3")
+    parser.add_argument("--interstitial", action="append", default=[], metavar="x,y,z=EL[:Q]",
+                        help="add an ion at fractional coordinates of the input cell, e.g. 0.5,0.5,0.5=Li")
+    parser.add_argument("--rank-vacancies", metavar="SPECIES",
+                        help="rank the inequivalent sites of anions, cations, an element or a label by vacancy "
+                             "electrostatics instead")
+    _supercell_options(parser)
+    parser.add_argument("--neighbour-radius", type=float, default=3.5, metavar="Å",
+                        help="report potential changes on sites within this distance (default 3.5 Å)")
+    parser.add_argument("--series", metavar="N,N,...",
+                        help="also repeat the supercell N times along each axis (e.g. 1,2,3) and check the 1/L "
+                             "extrapolation of the energy change")
+    _dielectric_options(parser)
+    return parser
+
+
+def _run_defect(args):
+    from .defects import defect_energy, vacancy_ranking
+
+    crystal = load_crystal(args)
+    if args.rank_vacancies:
+        if args.vacancy or args.substitute or args.interstitial:
+            raise InputError("--rank-vacancies ranks single vacancies; give it without other defects")
+        ranking = vacancy_ranking(crystal, args.rank_vacancies, supercell=args.supercell,
+                                  min_length=args.min_length, tol=args.tol)
+        return _print_ranking(args, crystal, ranking)
+    eps = _dielectric_from(args)
+    result = defect_energy(crystal, vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
+                           supercell=args.supercell, min_length=args.min_length, tol=args.tol,
+                           neighbour_radius=args.neighbour_radius, dielectric=eps)
+    series = None
+    if args.series:
+        from .defects import defect_series
+
+        series = defect_series(crystal, _series(args.series), supercell=args.supercell, min_length=args.min_length,
+                               vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
+                               tol=args.tol)
+    sc = result.supercell
+    background_text = ("uniform neutralizing background (the defects carry a net charge)" if result.background
+                       else "none needed (the defects are neutral overall)")
+    if args.json:
+        _print_json({
+            "file": args.file, "supercell": sc.describe(), "supercell_matrix": sc.matrix,
+            "supercell_ions": len(sc.crystal), "supercell_volume_angstrom3": sc.crystal.volume,
+            "defects": [{"kind": d.kind, "spec": d.spec, "label": d.label, "index": d.index,
+                         "element_before": d.element_before, "element_after": d.element_after,
+                         "charge_before_e": d.charge_before, "charge_after_e": d.charge_after,
+                         "delta_charge_e": d.delta_charge, "position_angstrom": d.position,
+                         "potential_V": d.potential, "madelung_estimate_eV": d.madelung_estimate}
+                        for d in result.defects],
+            "perfect_energy_eV": result.perfect_energy, "defective_energy_eV": result.defective_energy,
+            "energy_change_eV": result.energy_change, "defect_charge_e": result.defect_charge,
+            "charge_compensation": background_text, "madelung_estimate_eV": result.madelung_estimate,
+            "defect_array_energy_eV": result.defect_array_energy, "identity_residual_eV": result.identity_residual,
+            "image_correction_vacuum_eV": result.image_correction,
+            "energy_change_plus_image_correction_eV": result.energy_change + result.image_correction,
+            "dielectric_correction_eV": None if result.dielectric_correction is None
+            else result.dielectric_correction.energy,
+            "neighbours": [{"index": n.index, "label": n.label, "distance_angstrom": n.distance,
+                            "potential_before_V": n.potential_before, "potential_after_V": n.potential_after,
+                            "change_V": n.change} for n in result.neighbours],
+            "error_estimate_eV": result.error_estimate,
+            "series": None if series is None else {
+                "repeats": list(series.repeats), "lengths_angstrom": series.lengths,
+                "energy_changes_eV": series.energy_changes, "corrected_eV": series.corrected,
+                "fit_dilute_limit_eV": series.dilute_limit, "fit_slope_eV_angstrom": series.slope},
+            "sign_convention": "energy change = E(defective supercell) - E(perfect supercell); removed ions go to "
+                               "infinity, added ions come from infinity",
+        })
+        return 0
+    lines = [f"madelung defect  {args.file}", *_structure_lines(crystal),
+             f"  supercell   {sc.describe()} ({sc.size} cells, {len(sc.crystal)} ions, "
+             f"{sc.crystal.volume:.2f} Å^3, L = V^(1/3) = {sc.crystal.volume ** (1 / 3):.3f} Å)", ""]
+    lines.append(f"  {'defect':<22} {'site':<8} {'q before':>9} {'q after':>8} {'Dq':>6} {'phi / V':>11} "
+                 f"{'Dq*phi / eV':>12}")
+    for d in result.defects:
+        what = {"vacancy": f"vacancy {d.spec}", "substitution": f"subst. {d.spec}",
+                "interstitial": f"interst. {d.spec}"}[d.kind]
+        lines.append(f"  {what:<22} {d.label or '-':<8} {d.charge_before:>+9.3f} {d.charge_after:>+8.3f} "
+                     f"{d.delta_charge:>+6.2f} {d.potential:>11.5f} {d.madelung_estimate:>12.5f}")
+    lines += ["",
+              "  energies (eV; change = E(defective) - E(perfect), removed ions to infinity, unrelaxed)",
+              f"      supercell energy change             {result.energy_change:14.6f}",
+              f"      Madelung-site-potential estimate    {result.madelung_estimate:14.6f}   (sum Dq*phi, dilute limit)",
+              f"      defect-charge array term            {result.defect_array_energy:14.6f}   "
+              "(images + mutual interaction + background)",
+              f"      check: change - estimate - array    {result.identity_residual:14.2e}",
+              f"  compensation {background_text}; net defect charge {result.defect_charge:+g} e"]
+    if abs(result.defect_charge) > 0:
+        lines.append(f"      image correction, eps = 1           {result.image_correction:14.6f}   "
+                     f"(change + correction = {result.energy_change + result.image_correction:.6f})")
+    if result.dielectric_correction is not None:
+        dc = result.dielectric_correction
+        lines.append(f"      image correction, screened          {dc.energy:14.6f}   "
+                     f"(eps = {_eps_text(dc.dielectric)}; for a screened calculation of this supercell)")
+    if series is not None:
+        lines += ["", "  1/L check: the same defects in n x the supercell",
+                  f"  {'n':>3} {'L / Å':>9} {'change / eV':>14} {'+ image corr. / eV':>19}"]
+        for n, length, change, corr in zip(series.repeats, series.lengths, series.energy_changes, series.corrected):
+            lines.append(f"  {n:>3} {length:>9.3f} {change:>14.6f} {corr:>19.6f}")
+        lines.append(f"  fit change = E_dilute + a/L: E_dilute = {series.dilute_limit:.6f} eV (Madelung estimate "
+                     f"{series.madelung_estimate:.6f} eV), a = {series.slope:.4f} eV Å")
+    if result.neighbours:
+        lines += ["", f"  potential change on sites within {args.neighbour_radius:g} Å of a defect",
+                  f"  {'#':>6}  {'label':<8} {'distance / Å':>12} {'phi before / V':>15} {'phi after / V':>14} "
+                  f"{'change / V':>11}"]
+        for n in result.neighbours:
+            lines.append(f"  {n.index:>6}  {n.label:<8} {n.distance:>12.4f} {n.potential_before:>15.5f} "
+                         f"{n.potential_after:>14.5f} {n.change:>11.5f}")
+    lines += [f"  accuracy    estimated error {result.error_estimate:.1e} eV", f"  note        {MODEL_NOTE}"]
+    print("\n".join(lines))
+    return 0
+
+
+def _print_ranking(args, crystal, ranking):
+    if args.json:
+        _print_json({"file": args.file, "species": ranking.species,
+                     "supercell": None if ranking.supercell is None else ranking.supercell.describe(),
+                     "sites": [{"label": r.label, "element": r.element, "charge_e": r.charge, "index": r.index,
+                                "multiplicity": r.multiplicity, "potential_V": r.potential,
+                                "madelung_estimate_eV": r.madelung_estimate,
+                                "supercell_energy_change_eV": r.supercell_energy,
+                                "image_term_eV": r.image_term} for r in ranking.rows],
+                     "ranking": "lowest Madelung-site-potential estimate -q*phi first"})
+        return 0
+    lines = [f"madelung defect --rank-vacancies {ranking.species}  {args.file}", *_structure_lines(crystal), ""]
+    head = f"  {'rank':>4}  {'site':<8} {'charge':>7} {'mult':>5} {'phi / V':>11} {'-q*phi / eV':>12}"
+    if ranking.supercell is not None:
+        head += f" {'supercell / eV':>15} {'image / eV':>11}"
+    lines.append(head)
+    for i, r in enumerate(ranking.rows, 1):
+        line = (f"  {i:>4}  {r.label:<8} {r.charge:>+7.2f} {r.multiplicity:>5} {r.potential:>11.5f} "
+                f"{r.madelung_estimate:>12.5f}")
+        if r.supercell_energy is not None:
+            line += f" {r.supercell_energy:>15.5f} {r.image_term:>11.5f}"
+        lines.append(line)
+    lines.append("")
+    lines.append("  -q*phi: Madelung-site-potential estimate of the unrelaxed vacancy energy (ion removed to "
+                 "infinity, dilute limit); lowest first.")
+    if ranking.supercell is not None:
+        lines.append(f"  supercell {ranking.supercell.describe()}: direct energy change with a neutralizing "
+                     "background = -q*phi + image term (the lone-charge Ewald energy).")
+    lines.append(f"  note        {MODEL_NOTE}")
+    print("\n".join(lines))
+    return 0
+
+
+def _add_correction(sub):
+    parser = sub.add_parser("correction", help="charged-supercell image correction with a dielectric constant or tensor",
+                            description="Point-charge image correction of a defect of charge q in a periodic "
+                                        "supercell, screened by a scalar dielectric constant or a full 3x3 tensor "
+                                        "(anisotropic Ewald sum), with its 1/L check over a series of supercells.")
+    parser.add_argument("file", metavar="FILE", nargs="?",
+                        help="structure file whose cell is used (optional; or give --cell)")
+    parser.add_argument("--cell", metavar="SPEC",
+                        help="the cell instead of a file: L (cube), a,b,c, a,b,c,alpha,beta,gamma, nine numbers, "
+                             "or bcc:L / fcc:L (primitive cells of the cubic lattice constant L)")
+    parser.add_argument("--charge", type=float, required=True, metavar="Q", help="defect charge in e")
+    _dielectric_options(parser)
+    _supercell_options(parser)
+    parser.add_argument("--series", default="1,2,3,4", metavar="N,N,...",
+                        help="repeats of the supercell for the 1/L check (default 1,2,3,4)")
+    parser.add_argument("--tol", type=float, default=1e-10, help="relative accuracy of the lattice sum")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    return parser
+
+
+def parse_cell(text):
+    """A cell from a command-line spec (see ``madelung correction --help``)."""
+    from ase.geometry import cellpar_to_cell
+
+    text = str(text).strip().lower()
+    kind = None
+    if ":" in text:
+        kind, _, text = text.partition(":")
+    try:
+        values = [float(x) for x in re.split(r"[,\s]+", text) if x]
+    except ValueError:
+        raise InputError(f"cell {text!r} must be numbers (Å, degrees)") from None
+    if not values or not all(math.isfinite(v) for v in values):
+        raise InputError(f"cell {text!r} must be finite numbers")
+    if kind is not None:
+        if kind not in ("sc", "bcc", "fcc") or len(values) != 1:
+            raise InputError(f"cell {kind}:{text} must be sc:L, bcc:L or fcc:L")
+        length = values[0]
+        shape = {"sc": np.eye(3), "bcc": 0.5 * (np.ones((3, 3)) - 2 * np.eye(3)),
+                 "fcc": 0.5 * (np.ones((3, 3)) - np.eye(3))}[kind]
+        return length * shape
+    if len(values) == 1:
+        return values[0] * np.eye(3)
+    if len(values) == 3:
+        return np.diag(values)
+    if len(values) == 6:
+        return np.array(cellpar_to_cell(values))
+    if len(values) == 9:
+        return np.array(values).reshape(3, 3)
+    raise InputError(f"cell spec has {len(values)} numbers; give 1, 3, 6 or 9")
+
+
+def _run_correction(args):
+    from .crystal import read_structure
+    from .defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
+
+    if (args.file is None) == (args.cell is None):
+        raise InputError("give a structure file or --cell (one of them)")
+    if args.file is not None:
+        cell = np.array(read_structure(args.file).cell)
+        source = args.file
+    else:
+        cell = parse_cell(args.cell)
+        source = f"--cell {args.cell}"
+    if args.supercell is not None:
+        cell = parse_supercell(args.supercell) @ cell
+    elif args.min_length is not None:
+        from .crystal import Crystal
+
+        cell = make_supercell(Crystal(cell, [[0, 0, 0]], [1.0]), min_length=args.min_length).crystal.cell
+    eps = _dielectric_from(args)
+    if eps is None:
+        eps = np.eye(3)
+    main = charged_cell_correction(cell, args.charge, eps, tol=args.tol)
+    series = correction_series(cell, args.charge, eps, _series(args.series), tol=args.tol)
+    values = np.linalg.eigvalsh(eps)
+    if args.json:
+        _print_json({"cell_source": source, "cell_angstrom": cell, "volume_angstrom3": abs(np.linalg.det(cell)),
+                     "charge_e": args.charge, "dielectric": eps, "dielectric_eigenvalues": values,
+                     "correction_eV": main.energy, "madelung_potential_V": main.madelung_potential,
+                     "effective_constant": main.effective_constant, "error_estimate_eV": main.error_estimate,
+                     "alpha_per_angstrom": main.alpha, "real_terms": main.real_terms, "k_vectors": main.k_vectors,
+                     "series": [{"repeat": n, "length_angstrom": c.length, "correction_eV": c.energy,
+                                 "energy_times_length_eV_angstrom": c.energy * c.length}
+                                for n, c in zip(series.repeats, series.corrections)],
+                     "fit_slope_eV_angstrom": series.slope, "fit_intercept_eV": series.intercept,
+                     "relative_spread_of_E_times_L": series.spread,
+                     "sign_convention": "add the correction to the energy of the charged supercell"})
+        return 0
+    lengths = np.linalg.norm(cell, axis=1)
+    lines = [f"madelung correction  {source}",
+             f"  cell        |a| {lengths[0]:.4f}, |b| {lengths[1]:.4f}, |c| {lengths[2]:.4f} Å; volume "
+             f"{abs(np.linalg.det(cell)):.3f} Å^3; L = V^(1/3) = {main.length:.4f} Å",
+             f"  dielectric  {_eps_text(eps)} (eigenvalues {', '.join(f'{v:.4g}' for v in values)})",
+             f"  charge      {args.charge:+g} e",
+             "",
+             f"  image correction      {main.energy:14.6f} eV   (add to the charged-supercell energy)",
+             f"  Madelung potential    {main.madelung_potential:14.6f} V    (screened point-charge array with background, "
+             "own charge left out)",
+             f"  2 L E / (k_e q^2)     {main.effective_constant:14.6f}      (alpha_M / eps for a simple cube)",
+             f"  accuracy    estimated error {main.error_estimate:.1e} eV; alpha {main.alpha:.4f} 1/Å, "
+             f"{main.real_terms} real-space and {main.k_vectors} reciprocal terms",
+             "",
+             "  1/L check over supercells n x cell",
+             f"  {'n':>3} {'L / Å':>10} {'E / eV':>14} {'E*L / eV Å':>14}"]
+    for n, c in zip(series.repeats, series.corrections):
+        lines.append(f"  {n:>3} {c.length:>10.4f} {c.energy:>14.8f} {c.energy * c.length:>14.8f}")
+    lines += [f"  fit E = a/L + c: a = {series.slope:.8f} eV Å, c = {series.intercept:.2e} eV; "
+              f"E*L spread {series.spread:.1e} (a point-charge image energy falls exactly as 1/L)",
+              "  model: point-charge image term only (no quadrupole or potential-alignment terms); the "
+              "correction is a model estimate."]
+    print("\n".join(lines))
+    return 0
+
+
+# ---------------------------------------------------------------- lattice energies
+LATTICE_SIGN = ("lattice energy = positive energy to separate the solid into gaseous ions (handbook sign); "
+                "Coulomb and short-range energies are signed sums")
+RIGID_ION_NOTE = ("Rigid-ion model: formal point charges plus fitted short-range terms; no polarisation, "
+                  "covalency, zero-point or thermal energy. Results are model estimates.")
+
+
+def _parse_pairs(rules, what, number=True):
+    """``KEY=VALUE`` options into a dict (values as floats unless ``number`` is False)."""
+    result = {}
+    for rule in rules or []:
+        key, sep, value = str(rule).partition("=")
+        key = key.strip()
+        if not sep or not key:
+            raise InputError(f"{what} {rule!r} must look like KEY=VALUE")
+        if number:
+            try:
+                result[key] = float(value)
+            except ValueError:
+                raise InputError(f"{what} {rule!r}: {value!r} is not a number") from None
+        else:
+            result[key] = value.strip()
+    return result
+
+
+def _crystal_from(path, args):
+    return load_crystal(argparse.Namespace(file=path, charge=args.charge, min_distance=args.min_distance))
+
+
+def _lattice_json(result):
+    data = {"formula": result.formula, "formula_units": result.formula_units, "n_atoms": result.n_atoms,
+            "per_cell_eV": result.per_cell(), "per_atom_eV": result.per_atom(),
+            "per_formula_unit_eV": result.per_formula_unit(),
+            "lattice_energy_eV": result.lattice_energy,
+            "lattice_energy_kJ_per_mol": result.lattice_energy_kj_per_mol,
+            "pressure_GPa": result.pressure, "sign_convention": LATTICE_SIGN}
+    forms = result.closed_forms
+    if forms is not None:
+        data["closed_forms"] = {
+            "madelung_constant_handbook": forms.madelung_constant, "r0_angstrom": forms.r0,
+            "born_lande_kJ_per_mol": None if forms.born_lande is None else forms.born_lande * EV_TO_KJ_PER_MOL,
+            "born_exponent": forms.born_exponent, "born_exponent_source": forms.born_exponent_source,
+            "born_mayer_kJ_per_mol": None if forms.born_mayer is None else forms.born_mayer * EV_TO_KJ_PER_MOL,
+            "rho_angstrom": forms.rho, "rho_source": forms.rho_source,
+            "kapustinskii_kJ_per_mol": None if forms.kapustinskii is None else forms.kapustinskii * EV_TO_KJ_PER_MOL,
+            "shannon_radii_angstrom": forms.radii, "notes": forms.notes}
+    return data
+
+
+def _lattice_lines(result):
+    kj = EV_TO_KJ_PER_MOL
+    cell, atom, fu = result.per_cell(), result.per_atom(), result.per_formula_unit()
+    lines = ["  rigid-ion energy (signed sums)          per cell / eV    per ion / eV   per formula unit / eV   kJ/mol",
+             *[f"      {name:<32} {cell[key]:14.6f} {atom[key]:14.6f} {fu[key]:16.6f} {fu[key] * kj:14.2f}"
+               for name, key in (("Coulomb (Ewald)", "coulomb"), ("short range (repulsion)", "short_range"),
+                                 ("total", "total"))],
+             f"  lattice energy  U = {result.lattice_energy:.6f} eV = {result.lattice_energy_kj_per_mol:.2f} kJ/mol "
+             f"per {result.formula}   (positive: energy to separate the solid into gaseous ions)",
+             f"  pressure        {result.pressure:.5f} GPa (zero at the structure the parameters were fitted to)"]
+    forms = result.closed_forms
+    if forms is not None:
+        lines.append("  closed forms beside the model (kJ/mol per formula unit)")
+        if forms.madelung_constant is None:
+            lines.append(f"      Born–Landé, Born–Mayer not applicable: {forms.notes.get('born_mayer', '')}")
+        else:
+            lines.append(f"      Madelung constant (handbook convention) {forms.madelung_constant:.6f}, "
+                         f"r0 {forms.r0:.4f} Å, charges +{forms.charges[0]:g}/-{forms.charges[1]:g}")
+            if forms.born_lande is not None:
+                lines.append(f"      Born–Landé     {forms.born_lande * kj:10.2f}   n = {forms.born_exponent:g} "
+                             f"({forms.born_exponent_source})")
+            else:
+                lines.append(f"      Born–Landé     not applicable: {forms.notes.get('born_lande')}")
+            lines.append(f"      Born–Mayer     {forms.born_mayer * kj:10.2f}   rho = {forms.rho:.4f} Å "
+                         f"({forms.rho_source})")
+        if forms.kapustinskii is not None:
+            lines.append(f"      Kapustinskii   {forms.kapustinskii * kj:10.2f}   Shannon radii (VI) "
+                         f"r+ {forms.radii[0]:.3f} Å, r- {forms.radii[1]:.3f} Å")
+        elif "kapustinskii" in forms.notes:
+            lines.append(f"      Kapustinskii   not applicable: {forms.notes['kapustinskii']}")
+    return lines
+
+
+def _add_fit(sub):
+    parser = sub.add_parser("fit", help="fit short-range parameters to observed structures",
+                            description="Fit short-range (repulsion) parameters so that each observed structure "
+                                        "is stationary in the rigid-ion model: zero stress, zero forces, and "
+                                        "optionally a measured bulk modulus. Structures holding the same ion pair "
+                                        "share its parameters. Writes a JSON parameter file.")
+    parser.add_argument("files", metavar="FILE", nargs="+", help="observed structures (CIF, POSCAR, ...)")
+    parser.add_argument("--form", choices=("born-mayer", "buckingham", "born-lande"), default="born-mayer",
+                        help="form of the cation–anion terms (default born-mayer)")
+    parser.add_argument("--fix", action="append", default=[], metavar="NAME=VALUE",
+                        help="hold a parameter at a value for every pair, e.g. rho=0.345 or C=0; "
+                             "n=table takes n from the Born-exponent table")
+    parser.add_argument("--shared", action="append", default=[], metavar="NAME",
+                        help="fit one common value of this parameter for all pairs")
+    parser.add_argument("--free", action="append", default=[], metavar="NAME",
+                        help="fit this parameter separately for every pair (the prefactor A or B is by default)")
+    parser.add_argument("--start", action="append", default=[], metavar="NAME=VALUE",
+                        help="starting value of a fitted parameter (defaults rho 0.3, n 8, C 1)")
+    parser.add_argument("--bulk-modulus", action="append", default=[], metavar="KEY=GPa",
+                        help="measured bulk modulus of a structure, keyed by file or reduced formula, e.g. NaCl=24.0")
+    parser.add_argument("--bulk-modulus-sigma", type=float, default=0.02, metavar="FRACTION",
+                        help="weight of the bulk-modulus conditions as a relative uncertainty (default 0.02)")
+    parser.add_argument("--cutoff", type=float, default=None, metavar="Å", help="short-range cutoff (default 10 Å)")
+    parser.add_argument("--switch-width", type=float, default=None, metavar="Å",
+                        help="width of the smooth switch-off before the cutoff (default 2 Å)")
+    parser.add_argument("--max-evaluations", type=int, default=200, metavar="N",
+                        help="budget of the least-squares fit (default 200); running out is an error")
+    parser.add_argument("-o", "--output", default="repulsion.json", metavar="PARAMS.json",
+                        help="parameter file to write (default repulsion.json)")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="charge of an element or site label for every file, e.g. Na=+1")
+    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL", help="Ewald accuracy (default 1e-10)")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å", help=argparse.SUPPRESS)
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    return parser
+
+
+def _run_fit(args):
+    import os
+
+    from .lattice import FitTarget, fit_repulsion
+
+    fixed = _parse_pairs(args.fix, "--fix", number=False)
+    for name, value in fixed.items():
+        if value != "table":
+            try:
+                fixed[name] = float(value)
+            except ValueError:
+                raise InputError(f"--fix {name}={value}: not a number") from None
+    moduli = _parse_pairs(args.bulk_modulus, "--bulk-modulus")
+    crystals = [_crystal_from(path, args) for path in args.files]
+    used = set()
+    targets = []
+    for path, crystal in zip(args.files, crystals):
+        keys = [path, os.path.basename(path), crystal.reduced_formula]
+        key = next((k for k in keys if k in moduli), None)
+        if key is not None:
+            used.add(key)
+        value = moduli.get(key) if key else None
+        targets.append(FitTarget(crystal, value, None if value is None else args.bulk_modulus_sigma * value,
+                                 name=os.path.basename(path)))
+    unused = sorted(set(moduli) - used)
+    if unused:
+        raise InputError(f"--bulk-modulus {unused[0]}: matches no given file or formula")
+    result = fit_repulsion(targets, form=args.form, fixed=fixed, shared=args.shared, free=args.free,
+                           start=_parse_pairs(args.start, "--start"), cutoff=args.cutoff,
+                           switch_width=args.switch_width, tol=args.tol, max_evaluations=args.max_evaluations)
+    result.model.save(args.output)
+    if args.json:
+        _print_json({"output": args.output, "form": args.form,
+                     "parameters": [{"pairs": ["-".join(p) for p in x.pairs], "name": x.name, "value": x.value,
+                                     "uncertainty": x.uncertainty, "role": x.role} for x in result.parameters],
+                     "residuals": result.model.info["residuals"], "chi_square": result.chi_square,
+                     "degrees_of_freedom": result.degrees_of_freedom, "evaluations": result.evaluations,
+                     "message": result.message})
+        return 0
+    from .shortrange import PARAMETER_UNITS
+
+    print(f"madelung fit  {len(targets)} structure(s), {args.form} cation–anion terms -> {args.output}")
+    print("  parameters (± one standard deviation)")
+    for x in result.parameters:
+        pairs = ", ".join("-".join(p) for p in x.pairs)
+        error = "" if x.uncertainty is None else f" ± {x.uncertainty:.4g}"
+        print(f"      {pairs:<20} {x.name:<4} {x.value:14.6g}{error:<14} {PARAMETER_UNITS[x.name]:<8} ({x.role})")
+    print("  conditions (model value, wanted, sigma)")
+    for r in result.residuals:
+        print(f"      {r.target:<24} {r.quantity:<22} {r.value:12.5g} {r.wanted:10.4g} ±{r.sigma:<8.3g} {r.unit}")
+    print(f"  chi-square {result.chi_square:.3g} with {result.degrees_of_freedom} degree(s) of freedom; "
+          f"{result.evaluations} evaluations; {result.message}")
+    print(f"  note        {RIGID_ION_NOTE}")
+    return 0
+
+
+def _add_cycle(sub):
+    parser = sub.add_parser("cycle", help="Born–Haber cycle lattice energy from enthalpies",
+                            description="Lattice energy of a binary ionic solid from the Born–Haber cycle. "
+                                        "Enthalpies in kJ/mol from a TOML file and/or options (options win); "
+                                        "ionisation energies and first electron affinities come from the element "
+                                        "library when not given. With --structure the Kapustinskii estimate and, "
+                                        "with --repulsion too, the rigid-ion lattice energy are set beside it.")
+    parser.add_argument("input", metavar="INPUT.toml", nargs="?", help="cycle input file (see the README)")
+    parser.add_argument("--compound", help="formula, cation first, e.g. NaCl")
+    parser.add_argument("--formation", type=float, metavar="kJ/mol", help="standard enthalpy of formation of the solid")
+    parser.add_argument("--atomisation", action="append", default=[], metavar="EL=kJ/mol",
+                        help="enthalpy of atomisation per mole of gaseous atoms (sublimation for a metal)")
+    parser.add_argument("--dissociation", action="append", default=[], metavar="EL=kJ/mol",
+                        help="dissociation enthalpy of the X2 molecule (half is used per atom)")
+    parser.add_argument("--ionisation", action="append", default=[], metavar="EL=kJ/mol[,kJ/mol...]",
+                        help="ionisation energies IE1[,IE2,...] (default: element library)")
+    parser.add_argument("--electron-affinity", action="append", default=[], metavar="EL=kJ/mol[,kJ/mol...]",
+                        help="electron-attachment enthalpies, negative when released (Cl=-349; O=-141,798)")
+    parser.add_argument("--ion-charge", action="append", default=[], metavar="EL=Q",
+                        help="ion charges (default: from the common oxidation states)")
+    parser.add_argument("--structure", metavar="FILE", help="structure of the solid, for the model lattice energies")
+    parser.add_argument("--repulsion", metavar="PARAMS.json", help="short-range parameters for the rigid-ion value")
+    parser.add_argument("--covalent-threshold", type=float, default=0.08, metavar="FRACTION",
+                        help="flag covalent character when the model is this far below the cycle (default 0.08)")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[], help=argparse.SUPPRESS)
+    parser.add_argument("--tol", type=float, default=1e-10, help=argparse.SUPPRESS)
+    parser.add_argument("--min-distance", type=float, default=0.5, help=argparse.SUPPRESS)
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    return parser
+
+
+def _list_values(rules, what):
+    result = {}
+    for key, text in _parse_pairs(rules, what, number=False).items():
+        try:
+            result[key] = [float(v) for v in text.split(",")]
+        except ValueError:
+            raise InputError(f"{what} {key}={text}: values must be numbers separated by commas") from None
+    return result
+
+
+def _run_cycle(args):
+    from .thermochemistry import born_haber_cycle, read_cycle_file
+
+    data = read_cycle_file(args.input) if args.input else {}
+    if args.compound:
+        data["compound"] = args.compound
+    if args.formation is not None:
+        data["formation"] = args.formation
+    for key, rules, what in (("atomisation", args.atomisation, "--atomisation"),
+                             ("dissociation", args.dissociation, "--dissociation"),
+                             ("charges", args.ion_charge, "--ion-charge")):
+        data[key] = {**data.get(key, {}), **_parse_pairs(rules, what)}
+    for key, rules, what in (("ionisation", args.ionisation, "--ionisation"),
+                             ("electron_affinity", args.electron_affinity, "--electron-affinity")):
+        data[key] = {**data.get(key, {}), **_list_values(rules, what)}
+    missing = [k for k in ("compound", "formation") if k not in data]
+    if missing:
+        raise InputError("cycle: missing " + " and ".join(f"--{k}" for k in missing) +
+                         " (or give them in an input file)")
+    if not data["charges"]:
+        data["charges"] = None
+    cycle = born_haber_cycle(**data)
+
+    model = kapustinskii = None
+    if args.structure:
+        from .lattice import lattice_energy
+
+        crystal = _crystal_from(args.structure, args)
+        if args.repulsion:
+            result = lattice_energy(crystal, args.repulsion, tol=args.tol)
+            model = result.lattice_energy_kj_per_mol
+            forms = result.closed_forms
+        else:
+            from .lattice import closed_forms
+
+            forms = closed_forms(crystal, None, tol=args.tol)
+        if forms is not None and forms.kapustinskii is not None:
+            kapustinskii = forms.kapustinskii * EV_TO_KJ_PER_MOL
+    elif args.repulsion:
+        raise InputError("cycle: --repulsion needs --structure FILE for the model lattice energy")
+    if kapustinskii is None:
+        from .elements import shannon_radius
+        from .lattice import kapustinskii_energy
+
+        (m, zm, a), (x, zx, b) = cycle.cation, cycle.anion
+        try:
+            kapustinskii = kapustinskii_energy(a + b, zm, zx, shannon_radius(m, zm), shannon_radius(x, zx)) * \
+                EV_TO_KJ_PER_MOL
+        except InputError:
+            kapustinskii = None
+    comparisons = {}
+    for name, value in (("rigid-ion model", model), ("Kapustinskii", kapustinskii)):
+        if value is not None:
+            comparisons[name] = (value, *cycle.compare(value, args.covalent_threshold))
+    if args.json:
+        _print_json({"compound": cycle.compound, "steps": [{"step": s.text, "kJ_per_mol": s.value, "source": s.source}
+                                                            for s in cycle.steps],
+                     "lattice_energy_kJ_per_mol": cycle.lattice_energy,
+                     "electron_transfer_kJ_per_mol": cycle.electron_transfer,
+                     "comparisons": {k: {"lattice_energy_kJ_per_mol": v[0], "cycle_minus_model_kJ_per_mol": v[1],
+                                         "relative": v[2], "covalent_character": v[3]}
+                                     for k, v in comparisons.items()},
+                     "sign_convention": LATTICE_SIGN})
+        return 0
+    print(f"madelung cycle  {cycle.compound}   (kJ/mol per formula unit)")
+    for s in cycle.steps:
+        print(f"      {s.text:<66} {s.value:+11.2f}   {s.source}")
+    print(f"      {'':<66} {'-' * 11}")
+    print(f"      {'cycle lattice energy (solid -> gaseous ions)':<66} {cycle.lattice_energy:+11.2f}")
+    print(f"  gas-phase electron transfer alone (ionisation + attachment) {cycle.electron_transfer:+.2f} kJ/mol")
+    for name, (value, difference, fraction, covalent) in comparisons.items():
+        limit = 100 * args.covalent_threshold
+        verdict = (f"cycle exceeds the ionic model by more than {limit:g} %: binding beyond point charges, "
+                   "covalent character likely" if covalent else
+                   f"the ionic model accounts for the cycle value within {limit:g} %"
+                   if abs(fraction) <= args.covalent_threshold else
+                   f"the ionic model exceeds the cycle value by more than {limit:g} %")
+        print(f"  {name:<16} {value:10.2f} kJ/mol; cycle - model {difference:+9.2f} ({100 * fraction:+.1f} %): {verdict}")
+    print("  note        sign: lattice energy is the positive energy to separate the solid into gaseous ions; "
+          "electron attachment enthalpies are negative when energy is released")
+    return 0
+
+
+def _add_relax(sub):
+    parser = sub.add_parser("relax", help="relax a structure in the rigid-ion model",
+                            description="Relax ion positions and (by default) the cell with ASE's BFGS optimiser "
+                                        "in the rigid-ion model (Ewald Coulomb + short-range terms); writes the "
+                                        "relaxed structure and prints the volume change and energy gain.")
+    _common(parser)
+    parser.add_argument("--repulsion", required=True, metavar="PARAMS.json", help="short-range parameter file")
+    parser.add_argument("--positions-only", action="store_true", help="keep the cell fixed")
+    parser.add_argument("--fmax", type=float, default=1e-4, metavar="eV/Å", help="force criterion (default 1e-4)")
+    parser.add_argument("--steps", type=int, default=500, help="most optimiser steps (default 500)")
+    parser.add_argument("-o", "--output", metavar="OUT", help="relaxed structure (format from the extension; "
+                        "default FILE stem + '-relaxed.cif')")
+    return parser
+
+
+def _run_relax(args):
+    import os
+
+    import ase.io
+
+    from .calculator import relax
+
+    crystal = load_crystal(args)
+    result = relax(crystal, args.repulsion, cell=not args.positions_only, fmax=args.fmax, steps=args.steps,
+                   tol=args.tol)
+    output = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-relaxed.cif"
+    try:
+        ase.io.write(output, result.atoms)
+    except Exception as exc:
+        raise InputError(f"{output}: cannot write the relaxed structure ({exc})") from None
+    if not result.converged:
+        raise InputError(f"{args.file}: the relaxation did not converge in {result.steps} steps (fmax {args.fmax:g} "
+                         f"eV/Å); raise --steps or loosen --fmax (last structure written to {output})")
+    z = result.formula_units
+    if args.json:
+        _print_json({"file": args.file, "output": output, "converged": result.converged, "steps": result.steps,
+                     "cell_relaxed": result.cell_relaxed, "initial_volume_angstrom3": result.initial_volume,
+                     "final_volume_angstrom3": result.final_volume, "volume_change": result.volume_change,
+                     "initial_energy_eV": result.initial_energy, "final_energy_eV": result.final_energy,
+                     "energy_gain_eV": result.energy_gain,
+                     "energy_gain_kJ_per_mol_per_formula_unit": result.energy_gain / z * EV_TO_KJ_PER_MOL,
+                     "cell": np.array(result.atoms.cell)})
+        return 0
+    print(f"madelung relax  {args.file} -> {output}")
+    print(f"  {'positions and cell' if result.cell_relaxed else 'positions'} relaxed with BFGS: "
+          f"{result.steps} steps, converged (fmax {result.fmax:g} eV/Å)")
+    print(f"  volume      {result.initial_volume:.4f} -> {result.final_volume:.4f} Å^3 "
+          f"({100 * result.volume_change:+.3f} %)")
+    print(f"  energy      {result.initial_energy:.6f} -> {result.final_energy:.6f} eV per cell; gain "
+          f"{result.energy_gain:.6f} eV = {result.energy_gain / z * EV_TO_KJ_PER_MOL:.3f} kJ/mol per formula unit")
+    print(f"  note        {RIGID_ION_NOTE}")
+    return 0
+
+
+def _add_eos(sub):
+    parser = sub.add_parser("eos", help="energy–volume scan with a Birch–Murnaghan fit",
+                            description="Scan the rigid-ion energy over volumes (homogeneous scaling, fractional "
+                                        "coordinates kept) and fit the third-order Birch–Murnaghan equation of "
+                                        "state: equilibrium volume, bulk modulus and its pressure derivative.")
+    _common(parser)
+    parser.add_argument("--repulsion", required=True, metavar="PARAMS.json", help="short-range parameter file")
+    parser.add_argument("--span", type=float, default=0.06, help="relative volume range ± (default 0.06)")
+    parser.add_argument("--points", type=int, default=11, help="number of volumes (default 11)")
+    parser.add_argument("--plot", metavar="PNG", help="write a PNG of the scan and the fit")
+    return parser
+
+
+def _run_eos(args):
+    from .lattice import equation_of_state
+
+    crystal = load_crystal(args)
+    eos = equation_of_state(crystal, args.repulsion, span=args.span, points=args.points, tol=args.tol)
+    if args.plot:
+        eos.plot(args.plot)
+    z = eos.formula_units
+    if args.json:
+        _print_json({"file": args.file, "volumes_angstrom3": eos.volumes, "energies_eV": eos.energies,
+                     "e0_eV": eos.e0, "v0_angstrom3": eos.v0, "v0_per_formula_unit_angstrom3": eos.v0 / z,
+                     "b0_GPa": eos.b0, "b0_prime": eos.b0_prime, "rms_eV": eos.rms,
+                     "volume_change_from_input": eos.v0 / crystal.volume - 1, "plot": args.plot})
+        return 0
+    print(f"madelung eos  {args.file}   third-order Birch–Murnaghan fit of {len(eos.volumes)} volumes")
+    print(f"  V0          {eos.v0:.4f} Å^3 per cell = {eos.v0 / z:.4f} Å^3 per formula unit "
+          f"({100 * (eos.v0 / crystal.volume - 1):+.3f} % from the input structure)")
+    print(f"  B0          {eos.b0:.3f} GPa      B0' {eos.b0_prime:.3f}")
+    print(f"  E0          {eos.e0:.6f} eV per cell (signed total model energy); fit rms {eos.rms:.2e} eV")
+    if args.plot:
+        print(f"  plot        {args.plot}")
+    print(f"  note        {RIGID_ION_NOTE}")
     return 0
 
 
@@ -673,6 +1516,14 @@ COMMANDS = {
     "constant": (_add_constant, _run_constant),
     "screen": (_add_screen, _run_screen),
     "demo": (_add_demo, _run_demo),
+    "map": (_add_map, _run_map),
+    "interstitials": (_add_interstitials, _run_interstitials),
+    "defect": (_add_defect, _run_defect),
+    "correction": (_add_correction, _run_correction),
+    "fit": (_add_fit, _run_fit),
+    "cycle": (_add_cycle, _run_cycle),
+    "relax": (_add_relax, _run_relax),
+    "eos": (_add_eos, _run_eos),
 }
 
 

@@ -122,6 +122,7 @@ HALL_R3C_H = 460  # 167 R -3 c, hexagonal axes
 HALL_FD3M_2 = 526  # 227 F d -3 m, origin choice 2 (origin at -3m)
 HALL_R3_H = 436  # 148 R -3, hexagonal axes
 HALL_R3M_H = 458  # 166 R -3 m, hexagonal axes
+HALL_I4MMM = 424  # 139 I 4/m m m
 
 EXACT = 1e-4  # tolerance for distances fixed by geometry alone
 
@@ -364,6 +365,26 @@ PROTOTYPES: tuple[Prototype, ...] = (
         # Co-O about 1.92 A, Li-O about 2.09 A: textbook LiCoO2 values, from memory
         expected_nn={"Co1": (1.92, 0.03, "LiCoO2 Co-O, from memory"),
                      "Li1": (2.09, 0.03, "LiCoO2 Li-O, from memory")},
+    ),
+    # ------------------------------------------------- layered perovskite Sr2TiO4
+    Prototype(
+        filename="layered-perovskite-Sr2TiO4.cif",
+        title="Sr2TiO4, K2NiF4-type layered perovskite (n = 1 Ruddlesden-Popper phase)",
+        hall_number=HALL_I4MMM, sg_number=139, setting_note="",
+        # a = 3.884, c = 12.60 A; z(Sr) = 0.355, z(O2) = 0.152: S. N. Ruddlesden and P. Popper,
+        # Acta Cryst. 10, 538 (1957) (from memory). Two inequivalent oxide sites: O1 (4c) in the
+        # TiO2 planes, O2 (4e) apical, facing the SrO rock-salt layer.
+        cell=_tetragonal(3.884, 12.60),
+        sites=(Site("Sr1", "Sr2+", "4e", (0.0, 0.0, 0.355)),
+               Site("Ti1", "Ti4+", "2a", (0.0, 0.0, 0.0)),
+               Site("O1", "O2-", "4c", (0.0, 0.5, 0.0)),
+               Site("O2", "O2-", "4e", (0.0, 0.0, 0.152))),
+        oxidation={"Sr2+": 2, "Ti4+": 4, "O2-": -2},
+        formula_unit={"Sr": 2, "Ti": 1, "O": 4}, z=2,
+        source=("a = 3.884, c = 12.60 A, z(Sr) = 0.355, z(O2) = 0.152: S. N. Ruddlesden and P. Popper, "
+                "Acta Cryst. 10, 538 (1957) (from memory)"),
+        # shortest Ti-O is the apical z(O2)*c = 1.915 A (geometry of 2a/4e)
+        expected_nn={"Ti1": (0.152 * 12.60, EXACT, "z(O2)*c, geometry")},
     ),
 )
 

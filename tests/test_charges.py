@@ -3,7 +3,6 @@
 import json
 import math
 import re
-import warnings
 from functools import lru_cache
 from pathlib import Path
 
@@ -73,6 +72,12 @@ def test_assigned_states_are_the_accepted_formal_states(name):
     for label, q in zip(crystal.labels, result.charges):
         assert q == pytest.approx(FORMAL[name][label], abs=1e-12)
     assert abs(result.charges.sum()) < 1e-9
+
+
+@pytest.mark.parametrize("name", sorted(FORMAL))
+def test_every_prototype_file_is_usable_with_auto_charges(name):
+    crystal = Crystal.from_file(STRUCTURES / name, charges="auto")
+    assert [FORMAL[name][label] for label in crystal.labels] == pytest.approx(list(crystal.charges))
 
 
 @pytest.mark.parametrize("name", ["inverse-spinel-Fe3O4.cif", "spinel-MgAl2O4.cif", "ilmenite-FeTiO3.cif",
@@ -251,6 +256,15 @@ def test_equilibration_satisfies_its_own_stationarity_condition():
     mu = result.electronegativity + result.hardness * result.charges + matrix @ result.charges / result.dielectric
     assert np.ptp(mu) < 1e-6
     assert mu.mean() == pytest.approx(result.chemical_potential, abs=1e-6)
+
+
+def test_sites_command_with_equilibrated_charges_lists_every_site(capsys):
+    assert main(["sites", str(STRUCTURES / "rutile-TiO2.cif"), "--charges-from", "equilibrate", "--all",
+                 "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    charges = [row["charge_e"] for row in data["sites"]]
+    assert len(charges) == 6 and abs(sum(charges)) < 1e-10
+    assert charges == pytest.approx(list(equilibrated("rutile-TiO2.cif").charges), abs=1e-9)
 
 
 def test_charges_command_equilibrate_prints_one_row_per_orbit(capsys):

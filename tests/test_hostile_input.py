@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from madelung import Crystal, InputError, MadelungError, MadelungWarning
+from madelung import Crystal, InputError, MadelungWarning
 from madelung.cli import main
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"

@@ -29,8 +29,7 @@ import math
 
 import numpy as np
 
-from ..geometry import build_bins
-from . import kernels
+from ..geometry import neighbour_pairs
 
 #: The universal softness parameter b, Å (Brown & Altermatt 1985).
 B = 0.37
@@ -97,14 +96,9 @@ def r0(cation, state, anion):
 
 def neighbour_lists(crystal, sites, r_cut):
     """Partners (indices) and distances (Å) within ``r_cut`` of each site in ``sites``, images included."""
-    bins = build_bins(crystal.cell, crystal.positions, r_cut)
-    position_in_bins = np.empty(len(crystal), dtype=np.int64)
-    position_in_bins[bins.order] = np.arange(len(crystal))
-    chosen = np.ascontiguousarray(position_in_bins[np.asarray(sites, dtype=np.int64)])
-    owner, partner, distance = kernels.neighbours_of(chosen, bins.positions, bins.cell, bins.counts, bins.reach,
-                                                     bins.bin_of, bins.bin_start, float(r_cut))
-    partner = bins.order[partner]
-    return [(partner[owner == s], distance[owner == s]) for s in range(len(chosen))]
+    sites = np.asarray(sites, dtype=np.int64)
+    owner, partner, distance = neighbour_pairs(crystal.cell, crystal.positions, r_cut, sites)
+    return [(partner[owner == s], distance[owner == s]) for s in range(len(sites))]
 
 
 def search_radius(elements):

@@ -160,11 +160,12 @@ class OxidationAssignment:
         return self.best.charges
 
     def describe(self, candidate=None) -> str:
-        """One-line text of an assignment, e.g. ``"Fe1 (8a) Fe+3, Fe2 (16d) Fe+2.5 (Fe2+/Fe3+ average), O1 (32e) O-2"``."""
+        """One-line text of an assignment, e.g.
+        ``"Fe1 (8a) Fe+3, Fe2 (16d) Fe+2.5 (Fe2+/Fe3+ average), O1 (32e) O-2"``."""
         candidate = candidate or self.best
         parts = []
         for group, states in zip(self.groups, candidate.states):
-            text = " ".join(f"{el}{_state_text(q)}{_mixed_note(el, q)}" for (el, _), q in zip(group.species, states))
+            text = " ".join(f"{el}{_state_text(q)}{mixed_note(el, q)}" for (el, _), q in zip(group.species, states))
             parts.append(f"{group.label} ({group.wyckoff}) {text}")
         return ", ".join(parts)
 
@@ -173,11 +174,23 @@ def _state_text(q):
     return f"{q:+g}"
 
 
-def _mixed_note(element, q):
-    if abs(q - round(q)) < 1e-9:
+def mixed_pair(element, q):
+    """The two adjacent common states of ``element`` whose average ``q`` is, or None for a common state."""
+    states = sorted(int(s) for s in elements.common_oxidation_states(element))
+    if any(abs(q - s) < 1e-9 for s in states):
+        return None
+    for low, high in zip(states, states[1:]):
+        if low < q < high:
+            return low, high
+    return math.floor(q), math.ceil(q)
+
+
+def mixed_note(element, q):
+    """``" (Fe2+/Fe3+ average)"`` for a mixed-valence average, else ``""``."""
+    pair = mixed_pair(element, q)
+    if pair is None:
         return ""
-    low, high = math.floor(q), math.ceil(q)
-    return f" ({element}{_ion(low)}/{element}{_ion(high)} average)"
+    return f" ({element}{_ion(pair[0])}/{element}{_ion(pair[1])} average)"
 
 
 def _ion(q):
@@ -390,7 +403,8 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
         misfit = None
         if covered:
             misfit = math.sqrt(sum(m * ((s - q) / q) ** 2 for s, q, m in covered) / sum(m for *_, m in covered))
-        mixed = sum(1 for st in states if any(v.denominator != 1 for v in st))
+        mixed = sum(1 for group, st in zip(groups, states)
+                    if any(mixed_pair(el, float(v)) is not None for (el, _), v in zip(group.species, st)))
         charges = np.empty(n)
         for group, qg in zip(groups, q_group):
             charges[list(group.sites)] = qg

@@ -9,7 +9,7 @@ with a uniform neutralizing background; so ``phi = J @ q`` and, for a neutral ``
 
 :func:`potentials_for_charge_sets` costs one sum per charge set (use it for a few sets, e.g. one
 unit charge per symmetry orbit). :func:`coulomb_matrix` builds the whole N x N matrix with a
-pair-resolved real-space kernel and one matrix product for reciprocal space; its memory grows as
+pair list from the shared neighbour machinery and one matrix product for reciprocal space; its memory grows as
 N^2 and N times the number of k-vectors, so we refuse more than :data:`MAX_MATRIX_SITES` sites.
 """
 
@@ -17,11 +17,10 @@ from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 
 from ..errors import InputError
-from ..geometry import build_bins, nearest_neighbour_distances, wrapped_fractional
+from ..geometry import build_bins, nearest_neighbour_distances, neighbour_pairs, thread_budget, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import kernels, tuning
 from .direct import reciprocal_vectors
@@ -70,34 +69,37 @@ def potentials_for_charge_sets(cell, positions, charge_sets, tol=1e-10, d_min=No
     frac = wrapped_fractional(cell, positions)
     k2 = np.einsum("ij,ij->i", kvectors, kvectors)
     weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * a * a)) / k2)
-    threads = numba.get_num_threads()
     out = np.empty((len(sets), n))
-    for m, charges in enumerate(sets):
-        charges = np.ascontiguousarray(charges)
-        phi_r, _, _, _ = kernels.real_space_terms(
-            bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.reach, bins.bin_of,
-            bins.bin_start, a, choice.real_cutoff, False, False)
-        phi = bins.unsorted(phi_r)
-        if len(hkl):
-            s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, threads)
-            phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_re, s_im, False)
-            phi = phi + phi_k
-        net = float(charges.sum())
-        out[m] = COULOMB_CONSTANT * (phi - 2.0 * a / math.sqrt(math.pi) * charges - math.pi * net / (volume * a * a))
+    with thread_budget(choice.predicted_cost):
+        for m, charges in enumerate(sets):
+            charges = np.ascontiguousarray(charges)
+            phi_r, _, _, _ = kernels.real_space_terms(
+                bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                bins.bin_start, a, choice.real_cutoff, False, False)
+            phi = bins.unsorted(phi_r)
+            if len(hkl):
+                s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
+                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
+                                                         s_re, s_im, False)
+                phi = phi + phi_k
+            net = float(charges.sum())
+            self_and_background = 2.0 * a / math.sqrt(math.pi) * charges + math.pi * net / (volume * a * a)
+            out[m] = COULOMB_CONSTANT * (phi - self_and_background)
     return out
 
 
 def screened_pairs(cell, positions, types, alpha_by_type, r_cut):
     """(N, N) sum over images of ``erfc(alpha_ij r) / r`` within ``r_cut`` (Å^-1, no Coulomb constant),
     ``alpha_ij = alpha_by_type[types[i], types[j]]``; the site itself is left out, its images are not."""
-    from .matrix_kernels import screened_pair_matrix
+    from scipy.special import erfc
 
-    bins = build_bins(np.ascontiguousarray(cell, dtype=np.float64), positions, r_cut)
-    sorted_types = np.ascontiguousarray(np.asarray(types, dtype=np.int64)[bins.order])
-    block = screened_pair_matrix(bins.positions, sorted_types, np.ascontiguousarray(alpha_by_type, dtype=np.float64),
-                                 bins.cell, bins.counts, bins.reach, bins.bin_of, bins.bin_start, float(r_cut))
-    out = np.empty_like(block)
-    out[np.ix_(bins.order, bins.order)] = block
+    n = len(positions)
+    owner, partner, distance = neighbour_pairs(np.ascontiguousarray(cell, dtype=np.float64),
+                                               np.ascontiguousarray(positions, dtype=np.float64), r_cut)
+    types = np.asarray(types, dtype=np.int64)
+    alpha = np.asarray(alpha_by_type, dtype=np.float64)[types[owner], types[partner]]
+    out = np.zeros((n, n))
+    np.add.at(out, (owner, partner), erfc(alpha * distance) / distance)
     return out
 
 
@@ -117,7 +119,8 @@ def coulomb_matrix(cell, positions, tol=1e-10, d_min=None):
 
     Notes
     -----
-    Real space: :func:`screened_pairs` with the Ewald splitting parameter; reciprocal space:
+    Real space: :func:`screened_pairs` (pairs from the shared neighbour machinery) with the Ewald
+    splitting parameter; reciprocal space:
     ``sum_k 2 w(k) cos(k . (r_i - r_j))`` from the same half-space k-vectors and weights as
     the direct sum, as one matrix product of the phase factors.
 

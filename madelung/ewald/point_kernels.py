@@ -1,0 +1,194 @@
+"""Numba kernels for sums at arbitrary points of space (not only at the ions).
+
+The ions are sorted into bins by ``geometry.build_bins``; each point is given its own bin
+(from its wrapped fractional coordinates) and walks the same pruned stencil of neighbour bins (``CellBins.offsets``) with
+``geometry_kernels.neighbour_bin`` that the ion-ion sums use. One thread owns each point.
+
+    real space at a point r:   sum_j,n q_j [erfc(alpha d) - erfc(beta d)] / d,   d = |r - r_j - n|
+
+``beta`` is the width parameter of Gaussian-smeared ions, beta = 1 / (sqrt(2) sigma); a
+non-positive ``beta`` means point ions (the erfc(beta d) term is left out). The
+reciprocal-space part at points is ``kernels.reciprocal_site_terms`` with unit charges.
+
+Kernels do arithmetic only; the Python side (``madelung.defects``) validates and chooses.
+"""
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+from ..geometry_kernels import image_shift, neighbour_bin
+
+_TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
+
+
+@njit(parallel=True, cache=True)
+def real_space_at_points(points, point_bin, exclude, positions, charges, cell, counts, offsets, bin_start,
+                         alpha, beta, r_cut, coincide, want_field):
+    """Real-space Ewald potential and field at points, and the nearest ion of each point.
+
+    Parameters
+    ----------
+    points : (M, 3) wrapped Cartesian positions of the points, Å.
+    point_bin : (M, 3) bin of each point.
+    exclude : (M,) sorted index of an ion to leave out of the point's sum when it lies within
+        ``coincide`` of the point (-1: none).
+    positions, charges, cell, counts, offsets, bin_start : the binned ions (``CellBins``; ``offsets``
+        is its pruned stencil of bin offsets).
+    alpha : splitting parameter, 1/Å. beta : smearing parameter, 1/Å (<= 0: point ions).
+    r_cut : real-space cutoff, Å. coincide : distance below which a point sits on an ion, Å.
+
+    Returns
+    -------
+    potential (M,) in e/Å; field (M, 3) in e/Å^2 (zeros unless asked); nearest (M,) distance to
+    the nearest ion within ``r_cut`` (inf if none), Å; nearest_index (M,) its sorted index (-1);
+    pairs, the number of (point, ion, image) terms summed.
+    """
+    m = points.shape[0]
+    potential = np.zeros(m)
+    field = np.zeros((m, 3))
+    nearest = np.full(m, np.inf)
+    nearest_index = np.full(m, -1, dtype=np.int64)
+    pair_count = np.zeros(m, dtype=np.int64)
+    cut2 = r_cut * r_cut
+    co2 = coincide * coincide
+    a2 = alpha * alpha
+    b2 = beta * beta
+    smeared = beta > 0.0
+    for p in prange(m):
+        xp = points[p, 0]
+        yp = points[p, 1]
+        zp = points[p, 2]
+        phi = 0.0
+        ex = 0.0
+        ey = 0.0
+        ez = 0.0
+        best = np.inf
+        best_j = -1
+        count = 0
+        for o in range(offsets.shape[0]):
+            b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
+                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
+            sx, sy, sz = image_shift(cell, s0, s1, s2)
+            for j in range(bin_start[b], bin_start[b + 1]):
+                dx = xp - positions[j, 0] - sx
+                dy = yp - positions[j, 1] - sy
+                dz = zp - positions[j, 2] - sz
+                r2 = dx * dx + dy * dy + dz * dz
+                if r2 >= cut2:
+                    continue
+                if r2 < best:
+                    best = r2
+                    best_j = j
+                if j == exclude[p] and r2 < co2:
+                    continue
+                count += 1
+                q = charges[j]
+                if r2 < 1e-24:
+                    # only reachable for smeared ions (points on point ions are refused)
+                    if smeared:
+                        phi += q * _TWO_OVER_SQRT_PI * (beta - alpha)
+                    continue
+                r = math.sqrt(r2)
+                screened = math.erfc(alpha * r) / r
+                # g = -(1/r) d/dr of the pair function
+                g = (screened + _TWO_OVER_SQRT_PI * alpha * math.exp(-a2 * r2)) / r2
+                if smeared:
+                    wide = math.erfc(beta * r) / r
+                    screened -= wide
+                    g -= (wide + _TWO_OVER_SQRT_PI * beta * math.exp(-b2 * r2)) / r2
+                phi += q * screened
+                if want_field:
+                    ex += q * g * dx
+                    ey += q * g * dy
+                    ez += q * g * dz
+        potential[p] = phi
+        pair_count[p] = count
+        if best_j >= 0:
+            nearest[p] = math.sqrt(best)
+            nearest_index[p] = best_j
+        if want_field:
+            field[p, 0] = ex
+            field[p, 1] = ey
+            field[p, 2] = ez
+    return potential, field, nearest, nearest_index, pair_count.sum()
+
+
+@njit(parallel=True, cache=True)
+def contact_repulsion_at_points(points, point_bin, positions, radii, cell, counts, offsets, bin_start,
+                                probe_radius, prefactor, softness, r_cut, want_gradient):
+    """Born–Mayer contact energy of a probe at each point with the ions, and its gradient.
+
+    E(r) = sum_j,n prefactor * exp((R_j + R_probe - d) / softness) over ions within ``r_cut``,
+    d = |r - r_j - n|. Returns energy (M,) in the units of ``prefactor`` and the gradient
+    dE/dr (M, 3) per Å (zeros unless asked).
+    """
+    m = points.shape[0]
+    energy = np.zeros(m)
+    gradient = np.zeros((m, 3))
+    cut2 = r_cut * r_cut
+    for p in prange(m):
+        xp = points[p, 0]
+        yp = points[p, 1]
+        zp = points[p, 2]
+        e = 0.0
+        gx = 0.0
+        gy = 0.0
+        gz = 0.0
+        for o in range(offsets.shape[0]):
+            b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
+                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
+            sx, sy, sz = image_shift(cell, s0, s1, s2)
+            for j in range(bin_start[b], bin_start[b + 1]):
+                dx = xp - positions[j, 0] - sx
+                dy = yp - positions[j, 1] - sy
+                dz = zp - positions[j, 2] - sz
+                r2 = dx * dx + dy * dy + dz * dz
+                if r2 >= cut2 or r2 < 1e-24:
+                    continue
+                r = math.sqrt(r2)
+                term = prefactor * math.exp((radii[j] + probe_radius - r) / softness)
+                e += term
+                if want_gradient:
+                    h = -term / (softness * r)
+                    gx += h * dx
+                    gy += h * dy
+                    gz += h * dz
+        energy[p] = e
+        if want_gradient:
+            gradient[p, 0] = gx
+            gradient[p, 1] = gy
+            gradient[p, 2] = gz
+    return energy, gradient
+
+
+@njit(cache=True)
+def anisotropic_real_space_sum(cell, inverse_dielectric, alpha, r_cut, nmax):
+    """sum over lattice vectors n != 0 with s = sqrt(n . eps^-1 . n) < r_cut of erfc(alpha s) / s.
+
+    ``nmax`` (3,) bounds the integer triples searched. Returns ``(sum in 1/Å, terms)``; the caller
+    divides by sqrt(det eps).
+    """
+    total = 0.0
+    count = 0
+    cut2 = r_cut * r_cut
+    for i in range(-nmax[0], nmax[0] + 1):
+        for j in range(-nmax[1], nmax[1] + 1):
+            for k in range(-nmax[2], nmax[2] + 1):
+                if i == 0 and j == 0 and k == 0:
+                    continue
+                x = i * cell[0, 0] + j * cell[1, 0] + k * cell[2, 0]
+                y = i * cell[0, 1] + j * cell[1, 1] + k * cell[2, 1]
+                z = i * cell[0, 2] + j * cell[1, 2] + k * cell[2, 2]
+                s2 = (x * (inverse_dielectric[0, 0] * x + inverse_dielectric[0, 1] * y + inverse_dielectric[0, 2] * z)
+                      + y * (inverse_dielectric[1, 0] * x + inverse_dielectric[1, 1] * y
+                             + inverse_dielectric[1, 2] * z)
+                      + z * (inverse_dielectric[2, 0] * x + inverse_dielectric[2, 1] * y
+                             + inverse_dielectric[2, 2] * z))
+                if s2 >= cut2:
+                    continue
+                s = math.sqrt(s2)
+                total += math.erfc(alpha * s) / s
+                count += 1
+    return total, count
