@@ -72,7 +72,7 @@ import math
 import numpy as np
 
 from .errors import InputError
-from .units import EV_TO_KJ_PER_MOL
+from .units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 
 #: Length of the padded Ewald-sum-matrix spectrum (the screening benchmark's cells have up to 40 sites).
 SPECTRUM_LENGTH = 40
@@ -220,7 +220,9 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     row["charge_mean_abs_e"] = float(np.mean(np.abs(q)))
     row["charge_rms_e"] = float(np.sqrt(np.mean(q * q)))
     if spectrum_length:
-        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol)
+        # the shortest distance, known from the sum's energy scale k_e sum(q^2) / d_min
+        d_min = COULOMB_CONSTANT * float(np.dot(q, q)) / result.energy_scale
+        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol, d_min=d_min)
         row.update(zip(spectrum_columns(spectrum_length), (float(v) for v in values)))
     else:
         note = "not computed: spectrum length 0"

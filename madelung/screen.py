@@ -42,6 +42,7 @@ import sys
 import time
 import traceback
 import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -412,11 +413,33 @@ def _worker_main(connection, options):
             return
 
 
+@contextmanager
+def _main_module_hidden():
+    """Start workers without re-running the caller's main script in them.
+
+    A fork-server or spawned child normally imports the parent's ``__main__`` first, which runs a
+    script without an ``if __name__ == "__main__"`` guard again (and starts workers from the
+    workers). Our workers need nothing from it: their code lives in this module.
+    """
+    main = sys.modules.get("__main__")
+    saved = {name: main.__dict__[name] for name in ("__file__", "__spec__") if main is not None
+             and name in main.__dict__}
+    if main is not None:
+        main.__dict__.pop("__file__", None)
+        main.__spec__ = None
+    try:
+        yield
+    finally:
+        if main is not None:
+            main.__dict__.update(saved)
+
+
 class _Worker:
     def __init__(self, context, options):
         self.connection, child = context.Pipe()
         self.process = context.Process(target=_worker_main, args=(child, options), daemon=True)
-        self.process.start()
+        with _main_module_hidden():
+            self.process.start()
         child.close()
         self.task = None
         self.started = 0.0
