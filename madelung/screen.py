@@ -42,6 +42,7 @@ import sys
 import time
 import traceback
 import warnings
+from collections import deque
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 
@@ -947,7 +948,7 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     tasks = (t for t in iter_tasks(inputs, db, select) if t.source not in done_sources)
     window = 4 * executor.capacity + 2 * chunk_size   # tasks in flight or waiting for earlier rows
     ready = {}          # index -> (row, sites), waiting for the rows before it
-    order = []          # indices handed out, in input order
+    order = deque()     # indices handed out and not yet written, in input order
     pending_rows, pending_sites = [], []
     ok = failed = 0
     failures = []
@@ -967,24 +968,22 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
         last_flush = time.perf_counter()
 
     exhausted = False
-    position = 0        # next index (in `order`) to write
     try:
         while True:
-            while not exhausted and executor.idle() > 0 and len(order) - position < window:
+            while not exhausted and executor.idle() > 0 and len(order) < window:
                 task = next(tasks, None)
                 if task is None:
                     exhausted = True
                     break
                 order.append(task.index)
                 executor.submit(task)
-            if exhausted and executor.busy() == 0 and position == len(order):
+            if exhausted and executor.busy() == 0 and not order:
                 break
             for task, result in executor.collect():
                 ready[task.index] = result
             fresh_ok = fresh_failed = 0
-            while position < len(order) and order[position] in ready:
-                row, site_rows = ready.pop(order[position])
-                position += 1
+            while order and order[0] in ready:
+                row, site_rows = ready.pop(order.popleft())
                 pending_rows.append(row)
                 pending_sites.extend(site_rows)
                 if row["status"] == "ok":
@@ -993,9 +992,6 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
                     fresh_failed += 1
                     if len(failures) < 1000:
                         failures.append((row["source"], row["status"]))
-            if position == len(order):
-                del order[:]
-                position = 0
             ok += fresh_ok
             failed += fresh_failed
             meter.update(fresh_ok, fresh_failed)

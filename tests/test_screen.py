@@ -214,3 +214,34 @@ def test_kill_midway_then_resume(tmp_path):
     resumed = _values(out)
     assert resumed["source"].is_unique and len(resumed) == len(names)
     _assert_same(resumed, _values(reference))
+
+
+def test_a_killed_worker_is_recorded_and_replaced(tmp_path):
+    import ase.db
+
+    from madelung.screen import LocalPool, ScreenOptions, Task
+
+    path = str(tmp_path / "big.db")
+    crystal = madelung.Crystal.from_file(structure("rocksalt-NaCl"))
+    with ase.db.connect(path) as db:
+        big = db.write(crystal.repeat((4, 4, 4)).to_ase())     # 512 sites: a second or more of work
+        small = db.write(crystal.to_ase())
+    pool = LocalPool(1, ScreenOptions())
+    try:
+        pool.submit(Task(0, f"{path}@{big}", path, big))
+        time.sleep(0.2)
+        os.kill(pool.workers[0].process.pid, signal.SIGKILL)
+        done = []
+        deadline = time.time() + 30
+        while not done and time.time() < deadline:
+            done = pool.collect()
+        (task, (row, _)), = done
+        assert task.index == 0 and row["status"].startswith("worker crashed (exit code -9)")
+        assert math.isnan(row["energy_eV"])
+        pool.submit(Task(1, f"{path}@{small}", path, small))   # the replacement worker goes on
+        done = []
+        while not done and time.time() < deadline:
+            done = pool.collect()
+        assert done[0][1][0]["status"] == "ok"
+    finally:
+        pool.close(kill=True)
