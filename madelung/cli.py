@@ -76,7 +76,20 @@ def _structure_options(parser, charges_from=True):
                         help=f"symmetry tolerance (default {DEFAULT_SYMPREC:g} Å, suits experimental CIFs)")
 
 
+def _structure_defaults(args):
+    """Fill the structure options for commands whose parser does not declare them."""
+    from .crystal import DEFAULT_MAX_ATOMS
+    from .symmetry import DEFAULT_SYMPREC
+
+    for name, value in (("min_distance", 0.5), ("occupancy", "average"), ("max_atoms", DEFAULT_MAX_ATOMS),
+                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input")):
+        if not hasattr(args, name):
+            setattr(args, name, value)
+    return args
+
+
 def _crystal_options(args):
+    _structure_defaults(args)
     return dict(source=args.file, min_distance=args.min_distance, occupancy=args.occupancy,
                 max_atoms=args.max_atoms)
 
@@ -85,7 +98,8 @@ def load_crystal(args):
     """The crystal named on the command line, with its charges, in the cell asked for."""
     from .symmetry import standard_cell
 
-    return standard_cell(_load_charged(args), getattr(args, "cell", "input"), symprec=args.symprec)
+    _structure_defaults(args)
+    return standard_cell(_load_charged(args), args.cell, symprec=args.symprec)
 
 
 def _load_charged(args):

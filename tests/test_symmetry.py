@@ -32,6 +32,7 @@ ITA = {
     "perovskite-SrTiO3.cif": (221, "Pm-3m", {"Sr1": "1a", "Ti1": "1b", "O1": "3c"}),
     "ilmenite-FeTiO3.cif": (148, "R-3", {"Fe1": "6c", "Ti1": "6c", "O1": "18f"}),
     "layered-rocksalt-LiCoO2.cif": (166, "R-3m", {"Li1": "3a", "Co1": "3b", "O1": "6c"}),
+    "layered-perovskite-Sr2TiO4.cif": (139, "I4/mmm", {"Sr1": "4e", "Ti1": "2a", "O1": "4c", "O2": "4e"}),
 }
 
 
@@ -69,6 +70,7 @@ def test_multiplicity_is_per_conventional_cell_whatever_cell_is_analysed():
     ("corundum-Al2O3.cif", 10),        # R centring on hexagonal axes: 30 / 3
     ("layered-rocksalt-LiCoO2.cif", 4),  # 12 / 3
     ("rutile-TiO2.cif", 6),            # primitive already
+    ("layered-perovskite-Sr2TiO4.cif", 7),  # I centring: 14 / 2
 ])
 def test_primitive_and_conventional_cells_give_the_same_energy_per_formula_unit(name, primitive_sites):
     crystal = load(name)
