@@ -805,7 +805,8 @@ class Progress:
         left = (self.total - self.done) / rate if rate > 0 and self.total else math.nan
         share = f" ({100 * self.done / self.total:.0f}%)" if self.total else ""
         eta = f", ETA {left:.0f} s" if math.isfinite(left) else ""
-        return f"screen: {self.done}/{self.total}{share} done, {self.failed} failed, {rate:.1f}/s{eta}"
+        waiting = "; workers starting (a first run compiles the Numba kernels once)" if self.done == 0 else ""
+        return f"screen: {self.done}/{self.total}{share} done, {self.failed} failed, {rate:.1f}/s{eta}{waiting}"
 
     def close(self):
         if self.bar is not None:
