@@ -2,7 +2,7 @@
 
 Cases: 1000 cells of up to 40 sites made from the bundled prototypes (rock salt, caesium chloride,
 fluorite, rutile, zinc blende, wurtzite, perovskite, layered rock salt, corundum, ilmenite), each
-strained by up to +-4 % per axis and rattled by 0.03 Å (seeded), some as 2x1x1 or 2x2x1
+strained by up to +-4 % per axis and rattled by 0.03 Å (seeded), some as 2x1x1, 2x2x1 or 2x2x2
 supercells. They are written once as P1 CIFs with oxidation numbers, and once into an ASE
 database (SQLite) with the charges as initial charges. Each input is screened end to end
 (``madelung.screen.screen``: reading, charges, space group, Ewald sum, Madelung constants,
@@ -44,7 +44,7 @@ def make_cells(count, seed=0, max_sites=40):
     cells = []
     while len(cells) < count:
         base = bases[len(cells) % len(bases)]
-        repeat = [(1, 1, 1), (2, 1, 1), (2, 2, 1)][int(rng.integers(3))]
+        repeat = [(1, 1, 1), (2, 1, 1), (2, 2, 1), (2, 2, 2)][int(rng.integers(4))]
         crystal = base.repeat(repeat) if len(base) * np.prod(repeat) <= max_sites else base
         strain = np.diag(1 + rng.uniform(-0.04, 0.04, size=3))
         cell = crystal.cell @ strain
@@ -82,7 +82,7 @@ def run(inputs, db, workers, out, tol):
     summary = screen(inputs, out, db=db, workers=workers, tol=tol, progress=False, chunk_size=500)
     wall = time.perf_counter() - started
     rows = TableWriter(out, table_columns()).read()
-    parts = {name: sum(r[f"seconds_{name}"] for r in rows) for name in ("read", "charges", "sums", "total")}
+    parts = {name: sum(r[f"seconds_{name}"] for r in rows) for name in ("read", "charges", "sums", "total", "cpu")}
     return summary, wall, parts
 
 
@@ -111,12 +111,15 @@ def main(argv=None):
                              f"{(figures[(label, workers)] / figures.get((label, 1), rate)):.2f}x",
                              f"{100 * parts['read'] / busy:.0f}%", f"{100 * parts['charges'] / busy:.0f}%",
                              f"{100 * parts['sums'] / busy:.0f}%", f"{1000 * busy / summary.total:.1f}",
-                             f"{load:.1f}"])
+                             f"{1000 * parts['cpu'] / summary.total:.1f}",
+                             f"{workers * summary.total / parts['cpu']:.0f}", f"{load:.1f}"])
     print_table(["input", "workers", "structures", "failed", "wall s", "structures/s", "speed-up", "reading",
-                 "charges+sg", "sums", "ms/structure", "load avg"], rows,
+                 "charges+sg", "sums", "wall ms/str", "cpu ms/str", "cpu-bound /s", "load avg"], rows,
                 title=f"Screening {args.count} cells of {min(sizes)}-{max(sizes)} sites (mean {np.mean(sizes):.1f}) "
                       f"at tol {args.tol:g}, end to end")
-    print("  shares: of the summed per-structure time inside the workers; ms/structure likewise (one worker's time)")
+    print("  shares: of the summed per-structure wall time inside the workers; wall and cpu ms/str: per structure "
+          "in one worker;\n  cpu-bound /s = workers / cpu s per structure, the rate if every worker had a core to "
+          "itself (an estimate, not a measurement; wall ms above cpu ms means other jobs took the cores)")
     for label in ("CIF files", "ASE database"):
         if (label, 2) in figures and (label, 1) in figures:
             rate, ratio = figures[(label, 2)], figures[(label, 2)] / figures[(label, 1)]

@@ -56,10 +56,11 @@ ID_COLUMNS = {"index": "int", "source": "str", "db_id": "int", "status": "str", 
 
 #: Columns that come after the descriptors: warnings raised for the structure, and timings (s).
 TAIL_COLUMNS = {"notes": "str", "seconds_read": "float", "seconds_charges": "float",
-                "seconds_sums": "float", "seconds_total": "float"}
+                "seconds_sums": "float", "seconds_total": "float", "seconds_cpu": "float"}
 
-#: Columns that differ between identical runs (timings).
-TIMING_COLUMNS = ("seconds_read", "seconds_charges", "seconds_sums", "seconds_total")
+#: Columns that differ between identical runs (timings: wall seconds of each stage, and the CPU
+#: seconds of the worker process for the whole structure; wall above CPU means a busy machine).
+TIMING_COLUMNS = ("seconds_read", "seconds_charges", "seconds_sums", "seconds_total", "seconds_cpu")
 
 #: File endings read from a folder.
 STRUCTURE_ENDINGS = (".cif", ".mcif", ".vasp", ".poscar", ".xyz", ".extxyz", ".traj", ".json", ".xsf", ".res")
@@ -321,7 +322,7 @@ def failed_row(task, status, options, seconds=math.nan) -> dict:
             "space_group": "", "space_group_number": -1, "charges_from": _charges_from(options),
             **empty_row(options.spectrum_length), "notes": "",
             "seconds_read": math.nan, "seconds_charges": math.nan, "seconds_sums": math.nan,
-            "seconds_total": seconds}
+            "seconds_total": seconds, "seconds_cpu": math.nan}
 
 
 def _charges_from(options):
@@ -347,6 +348,7 @@ def screen_task(task, options):
 
     prepare_process()
     started = time.perf_counter()
+    cpu_started = time.process_time()
     read = charged = summed = math.nan
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -374,14 +376,15 @@ def screen_task(task, options):
     notes = "; ".join(dict.fromkeys(_one_line(w.message) for w in caught
                                     if not issubclass(w.category, (DeprecationWarning, ResourceWarning))))
     total = time.perf_counter() - started
+    cpu = time.process_time() - cpu_started
     if status != "ok":
         row = failed_row(task, status, options, total)
-        row.update(seconds_read=read, seconds_charges=charged, notes=notes[:500])
+        row.update(seconds_read=read, seconds_charges=charged, notes=notes[:500], seconds_cpu=cpu)
         return row, []
     row = {"index": task.index, "source": task.source, "db_id": task.db_id, "status": "ok", "space_group": group,
            "space_group_number": number, "charges_from": _charges_from(options), **descriptors,
            "notes": notes[:500], "seconds_read": read, "seconds_charges": charged, "seconds_sums": summed,
-           "seconds_total": total}
+           "seconds_total": total, "seconds_cpu": cpu}
     for site in sites:
         site["index"], site["source"] = task.index, task.source
     return row, sites
