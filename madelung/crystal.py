@@ -24,9 +24,11 @@ from .errors import InputError, MadelungWarning
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
 DEFAULT_MIN_DISTANCE = 0.5
 
-#: Structures with more sites than this are refused before any sum is attempted (memory and
-#: time grow with the number of sites); raise it with ``max_atoms=`` or ``--max-atoms``.
-DEFAULT_MAX_ATOMS = 20000
+#: Structure files with more sites than this are refused before any sum is attempted (memory and
+#: time grow with the number of sites); raise it with ``max_atoms=`` or ``--max-atoms``. The
+#: engines handle a million ions; crystals built in Python from arrays or ``ase.Atoms`` have no
+#: limit unless one is given.
+DEFAULT_MAX_ATOMS = 2_000_000
 
 #: Ways of getting charges named by a string: from the structure file, assigned oxidation
 #: states (:mod:`madelung.charges.oxidation`), or charge equilibration (:mod:`madelung.charges.equilibrate`).
@@ -293,7 +295,7 @@ class Crystal:
     # --------------------------------------------------------- constructors
     @classmethod
     def from_ase(cls, atoms, charges=None, *, labels=None, source=None, min_distance=DEFAULT_MIN_DISTANCE,
-                 occupancy="average", max_atoms=DEFAULT_MAX_ATOMS, **charge_options):
+                 occupancy="average", max_atoms=None, **charge_options):
         """Build from an ``ase.Atoms``.
 
         Parameters
@@ -309,8 +311,9 @@ class Crystal:
         occupancy : "average" or "error"
             What to do with mixed or partly occupied sites: give them the occupancy-weighted mean
             charge with a warning (the virtual-crystal average), or refuse the structure.
-        max_atoms : int
-            Refuse structures with more sites than this (default :data:`DEFAULT_MAX_ATOMS`).
+        max_atoms : int, optional
+            Refuse structures with more sites than this (default: no limit; files read with
+            :meth:`from_file` default to :data:`DEFAULT_MAX_ATOMS`).
         **charge_options
             Passed on to the charge assignment or equilibration (e.g. ``symprec``).
         """
@@ -373,7 +376,10 @@ class Crystal:
 
 
 def check_size(n_atoms, max_atoms, source=None):
-    """Refuse a structure with more than ``max_atoms`` sites (before it can exhaust memory)."""
+    """Refuse a structure with more than ``max_atoms`` sites (before it can exhaust memory);
+    ``None`` sets no limit."""
+    if max_atoms is None:
+        return
     try:
         limit = int(max_atoms)
     except (TypeError, ValueError):
