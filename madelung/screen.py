@@ -928,6 +928,9 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     done_sources = set()
     if resume:
         kept = [row for row in table.read() if row.get("status") == "ok"]
+        if kept and set(kept[0]) != set(columns):
+            raise InputError(f"{table.path}: the table has other columns than this run writes (another spectrum "
+                             "length or madelung version?); resume into a new file instead")
         done_sources = {row["source"] for row in kept}
         if site_writer is not None:
             site_writer.start([r for r in site_writer.read() if r.get("source") in done_sources])
