@@ -62,7 +62,7 @@ class DemoResult:
                  f"  {'rank':>4}  {'candidate':<22} {'prototype':<17} {'space group':<11} {'E/atom eV':>10} "
                  f"{'E/f.u. kJ/mol':>14} {'M (charges in)':>15} {'anion phi V':>12}"]
         for row in self.ranked:
-            lines.append(f"  {row['rank']:>4}  {row['formula']:<22} {row['prototype']:<17} {row['space_group']:<11} "
+            lines.append(f"  {row['rank']:>4}  {row['reduced_formula']:<22} {row['prototype']:<17} {row['space_group']:<11} "
                          f"{row['energy_per_atom_eV']:>10.4f} {row['energy_per_formula_unit_kJ_mol']:>14.1f} "
                          f"{row['madelung_charges_left_in']:>15.4f} {row['anion_potential_mean_V']:>12.4f}")
         for source, status in self.summary.failures:
@@ -91,7 +91,7 @@ def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folde
     for row in rows:
         row["prototype"] = prototype_of(row["source"])
     rows.sort(key=lambda r: r["energy_per_atom_eV"])
-    keep = ("formula", "prototype", "space_group", "energy_per_atom_eV", "energy_per_formula_unit_kJ_mol",
+    keep = ("reduced_formula", "prototype", "space_group", "energy_per_atom_eV", "energy_per_formula_unit_kJ_mol",
             "madelung_charges_left_in", "anion_potential_mean_V", "source")
     ranked = [{"rank": k + 1, **{name: row[name] for name in keep}} for k, row in enumerate(rows[:max(0, top)])]
     save_plot(rows, plot)
@@ -117,14 +117,14 @@ def save_plot(rows, path):
             axes.scatter([r["anion_potential_mean_V"] for r in chosen], [r["energy_per_atom_eV"] for r in chosen],
                          c=colours[prototype], marker=markers[kind], s=42, edgecolors="white", linewidths=0.6,
                          label=f"{prototype}, {'oxides' if kind == 'O' else 'halides'}")
-    labelled = {}
-    for row in sorted(rows, key=lambda r: r["energy_per_atom_eV"]):
-        point = (round(row["anion_potential_mean_V"], 2), round(row["energy_per_atom_eV"], 2))
-        if point in labelled or len(labelled) == 3:
-            continue   # the same point twice (same cell, other A ion): label it once
-        labelled[point] = row["formula"]
-        axes.annotate(row["formula"], (row["anion_potential_mean_V"], row["energy_per_atom_eV"]),
-                      textcoords="offset points", xytext=(6, 4 - 10 * len(labelled)), fontsize=8)
+    for prototype in PROTOTYPES:   # label the most strongly bound candidate of each prototype
+        chosen = [r for r in rows if r["prototype"] == prototype]
+        if chosen:
+            best = min(chosen, key=lambda r: r["energy_per_atom_eV"])
+            axes.annotate(best["reduced_formula"], (best["anion_potential_mean_V"], best["energy_per_atom_eV"]),
+                          textcoords="offset points", xytext=(7, -11), fontsize=8,
+                          arrowprops=dict(arrowstyle="-", lw=0.5, color="#444444"))
+    axes.margins(x=0.14, y=0.08)
     axes.set_xlabel("mean electrostatic potential at the anion sites (V)")
     axes.set_ylabel("electrostatic energy per atom (eV)")
     axes.set_title("Coating candidates: point-charge electrostatics (model estimates)", fontsize=10)
