@@ -78,9 +78,10 @@ from .shortrange import PairPotential, RepulsionModel, shortrange  # noqa: E402
 from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy  # noqa: E402
 from .thermochemistry import born_haber_cycle  # noqa: E402
 from .calculator import RigidIonCalculator, relax  # noqa: E402
+from .descriptors import describe  # noqa: E402
 
 __all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
-           "MadelungConstants", "InputError", "MadelungError", "MadelungWarning",
+           "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning",
            "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
            "charged_cell_correction", "correction_series",
            "PairPotential", "RepulsionModel", "shortrange", "FitTarget", "fit_repulsion", "lattice_energy",

@@ -55,38 +55,130 @@ def _common(parser):
     parser.add_argument("--method", choices=("auto", "direct", "mesh"), default="auto",
                         help="Ewald engine: direct sum, particle mesh, or the one predicted faster (default auto)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
+                        help="use the cell as read (default) or spglib's standardized primitive or conventional "
+                             "cell (same energy per formula unit)")
+    _structure_options(parser)
+
+
+def _structure_options(parser, charges_from=True):
+    from .crystal import DEFAULT_MAX_ATOMS
+    from .symmetry import DEFAULT_SYMPREC
+
+    if charges_from:
+        parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
+                            help="where charges come from: the file (default), assigned oxidation states (auto; "
+                                 "states in the file and --charge rules are kept) or charge equilibration")
+    parser.add_argument("--occupancy", choices=("average", "error"), default="average",
+                        help="mixed or partly occupied sites: occupancy-weighted mean charge with a warning "
+                             "(average, default) or refuse the file (error)")
+    parser.add_argument("--max-atoms", type=int, default=DEFAULT_MAX_ATOMS, metavar="N",
+                        help=f"refuse structures with more sites than this (default {DEFAULT_MAX_ATOMS})")
+    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å",
+                        help=f"symmetry tolerance (default {DEFAULT_SYMPREC:g} Å, suits experimental CIFs)")
+
+
+def _structure_defaults(args):
+    """Fill the structure options for commands whose parser does not declare them."""
+    from .crystal import DEFAULT_MAX_ATOMS
+    from .symmetry import DEFAULT_SYMPREC
+
+    for name, value in (("min_distance", 0.5), ("occupancy", "average"), ("max_atoms", DEFAULT_MAX_ATOMS),
+                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input")):
+        if not hasattr(args, name):
+            setattr(args, name, value)
+    return args
+
+
+def _crystal_options(args):
+    _structure_defaults(args)
+    return dict(source=args.file, min_distance=args.min_distance, occupancy=args.occupancy,
+                max_atoms=args.max_atoms)
 
 
 def load_crystal(args):
-    """The crystal named on the command line, with its charges."""
+    """The crystal named on the command line, with its charges, in the cell asked for."""
+    from .symmetry import standard_cell
+
+    _structure_defaults(args)
+    return standard_cell(_load_charged(args), args.cell, symprec=args.symprec)
+
+
+def _load_charged(args):
     from .crystal import Crystal, parse_charge_rules, read_structure
 
     rules = parse_charge_rules(args.charge)
-    atoms = read_structure(args.file)
-    crystal = Crystal.from_ase(atoms, None, source=args.file, min_distance=args.min_distance) if not rules \
+    atoms = read_structure(args.file, max_atoms=args.max_atoms)
+    method = getattr(args, "charges_from", "file")
+    if method == "auto":
+        return _auto_assignment(atoms, rules, args)[0]
+    if method == "equilibrate":
+        if rules:
+            raise InputError(f"{args.file}: --charge cannot be combined with --charges-from equilibrate")
+        return Crystal.from_ase(atoms, "equilibrate", **_crystal_options(args))
+    crystal = Crystal.from_ase(atoms, None, **_crystal_options(args)) if not rules \
         else _with_rules(atoms, rules, args)
     return crystal
 
 
-def _with_rules(atoms, rules, args):
-    """Charges from rules; sites the rules do not name keep the charges read from the file."""
-    from .crystal import Crystal, charges_in_structure
+def _auto_assignment(atoms, rules, args, ignore_file_states=False):
+    """Assigned oxidation states: file states (unless ignored) and --charge rules are kept."""
+    from .charges import assign_oxidation_states
+    from .crystal import Crystal, file_states
 
-    base = charges_in_structure(atoms)
-    if base is None:
-        return Crystal.from_ase(atoms, rules, source=args.file, min_distance=args.min_distance)
-    symbols = atoms.get_chemical_symbols()
-    labels = [str(x) for x in atoms.arrays["labels"]] if "labels" in atoms.arrays else symbols
-    unknown = sorted(set(rules) - set(symbols) - set(labels))
+    options = _crystal_options(args)
+    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **options)
+    known = [(None,) * len(base.species_of(i)) for i in range(len(base))] if ignore_file_states \
+        else [tuple(s) for s in file_states(atoms)]
+    unknown = sorted(set(rules) - set(base.symbols) - set(base.labels)
+                     - {el for i in range(len(base)) for el, _ in base.species_of(i)})
     if unknown:
         raise InputError(f"{args.file}: charge given for {unknown[0]}, which is neither an element nor a site label "
                          "of this structure")
-    charges = np.array([rules.get(label, rules.get(symbol, q)) for label, symbol, q in zip(labels, symbols, base)])
-    missing = [label for label, q in zip(labels, charges) if not np.isfinite(q)]
-    if missing:
-        raise InputError(f"{args.file}: site {missing[0]} has no charge in the file or the rules; "
-                         f"add --charge {missing[0]}=Q")
-    return Crystal.from_ase(atoms, charges, source=args.file, min_distance=args.min_distance)
+    for i in range(len(base)):
+        parts = base.species_of(i)
+        label = base.labels[i]
+        known[i] = tuple(rules.get(label, rules.get(el, known[i][k] if k < len(known[i]) else None))
+                         for k, (el, _) in enumerate(parts))
+    assignment = assign_oxidation_states(base, known_states=known, symprec=args.symprec,
+                                         mixing_denominator=getattr(args, "mixing_denominator", 2))
+    return base.with_charges(assignment.charges), assignment
+
+
+def _with_rules(atoms, rules, args):
+    """Charges from rules; species the rules do not name keep the charges read from the file.
+
+    A rule gives the charge of an ion; mixed or partly occupied sites get the occupancy-weighted sum."""
+    from .crystal import Crystal
+
+    symbols = atoms.get_chemical_symbols()
+    labels = [str(x) for x in atoms.arrays["labels"]] if "labels" in atoms.arrays else None
+    entries = atoms.arrays.get("site_species")
+    if entries is None:
+        if "oxidation_states" in atoms.arrays:
+            known = np.array(atoms.arrays["oxidation_states"], dtype=float)
+        elif np.any(atoms.get_initial_charges() != 0):
+            known = atoms.get_initial_charges()
+        else:
+            return Crystal.from_ase(atoms, rules, **_crystal_options(args))
+        entries = [((el, 1.0, float(q)),) for el, q in zip(symbols, known)]
+    elements = {el for e in entries for el, _, _ in e} | set(symbols)
+    unknown = sorted(set(rules) - elements - set(labels or ()))
+    if unknown:
+        raise InputError(f"{args.file}: charge given for {unknown[0]}, which is neither an element nor a site label "
+                         "of this structure")
+    charges = np.empty(len(atoms))
+    for i, parts in enumerate(entries):
+        label = labels[i] if labels else None
+        total = 0.0
+        for element, occ, state in parts:
+            value = rules.get(label, rules.get(element, state))
+            if value is None or not np.isfinite(value):
+                raise InputError(f"{args.file}: site {label or i} ({element}) has no charge in the file or the "
+                                 f"rules; add --charge {label or element}=Q")
+            total += occ * value
+        charges[i] = total
+    return Crystal.from_ase(atoms, charges, **_crystal_options(args))
 
 
 def _charge_summary(crystal):
@@ -212,42 +304,225 @@ def _run_energy(args):
 
 # ---------------------------------------------------------------- sites
 def _add_sites(sub):
-    parser = sub.add_parser("sites", help="electrostatic potential at every site",
+    parser = sub.add_parser("sites", help="electrostatic potential at every crystallographic site",
                             description="Electrostatic potential at each ion from all the other ions (V), "
-                                        "with the site Madelung constant M_i = -phi_i r0 / (k_e q_i).")
+                                        "with the site Madelung constant M_i = -phi_i r0 / (k_e q_i): one row per "
+                                        "orbit of symmetry-equivalent sites (Wyckoff letter and multiplicity), "
+                                        "or every site with --all.")
     _common(parser)
+    parser.add_argument("--all", action="store_true", help="one row per site instead of one per orbit")
     return parser
 
 
 def _run_sites(args):
     from .constants import madelung_constants
+    from .symmetry import crystal_symmetry
 
     crystal = load_crystal(args)
+    symmetry = crystal_symmetry(crystal, symprec=args.symprec)
     constants = madelung_constants(crystal, tol=args.tol, method=args.method)
     potentials = constants.ewald.potentials
-    rows = [{"index": i, "label": crystal.labels[i], "element": crystal.symbols[i],
-             "charge_e": float(crystal.charges[i]), "potential_V": float(potentials[i]),
-             "site_constant": None if math.isnan(constants.site[i]) else float(constants.site[i]),
-             "site_energy_eV": float(crystal.charges[i] * potentials[i])}
-            for i in range(len(crystal))]
+    z = crystal.formula_units
+    energy_per_fu = constants.ewald.energy / z
+
+    def row(i, orbit):
+        return {"index": i, "label": crystal.labels[i], "element": crystal.species_label(i),
+                "wyckoff": orbit.wyckoff, "multiplicity": orbit.multiplicity, "sites_in_cell": len(orbit.sites),
+                "charge_e": float(crystal.charges[i]), "potential_V": float(potentials[i]),
+                "site_constant": None if math.isnan(constants.site[i]) else float(constants.site[i]),
+                "site_energy_eV": float(crystal.charges[i] * potentials[i]),
+                "averaged": crystal.is_averaged(i)}
+
+    orbit_rows = []
+    for orbit in symmetry.orbits:
+        entry = row(orbit.representative, orbit)
+        spread = float(np.ptp(potentials[list(orbit.sites)]))
+        entry["potential_spread_V"] = spread
+        orbit_rows.append(entry)
+    site_rows = [row(i, symmetry.orbits[symmetry.orbit_of[i]]) for i in range(len(crystal))]
     if args.json:
-        _print_json({"file": args.file, "r0_angstrom": constants.r0, "sites": rows,
+        _print_json({"file": args.file, "cell": args.cell, "space_group": symmetry.symbol,
+                     "space_group_number": symmetry.number, "symprec_angstrom": symmetry.symprec,
+                     "formula_units": z, "energy_per_formula_unit_eV": energy_per_fu,
+                     "r0_angstrom": constants.r0, "orbits": orbit_rows, "sites": site_rows,
                      "site_constant_convention": "M_i = -phi_i r0 / (k_e q_i)",
                      "error_estimate_eV": constants.ewald.error_estimate})
         return 0
     print(f"madelung sites  {args.file}")
     print("\n".join(_structure_lines(crystal)))
+    print(f"  symmetry    {symmetry.symbol} (No. {symmetry.number}), {len(symmetry.orbits)} orbits, "
+          f"tolerance {symmetry.symprec:g} Å; cell: {args.cell}")
+    print(f"  energy      {energy_per_fu:.8f} eV per formula unit {crystal.reduced_formula} "
+          "(signed electrostatic energy)")
     print(f"  r0 (shortest cation–anion distance) {constants.r0:.5f} Å")
     print()
-    print(f"  {'#':>5}  {'label':<8} {'elem':<4} {'charge':>8}  {'potential / V':>15}  {'M_i':>11}  {'q*phi / eV':>12}")
-    for row in rows:
-        m = "—" if row["site_constant"] is None else f"{row['site_constant']:11.6f}"
-        print(f"  {row['index']:>5}  {row['label']:<8} {row['element']:<4} {row['charge_e']:>+8.3f}  "
-              f"{row['potential_V']:>15.8f}  {m:>11}  {row['site_energy_eV']:>12.6f}")
+    first = "#" if args.all else "sites"
+    print(f"  {first:>5}  {'label':<10} {'species':<12} {'Wyckoff':>7} {'charge':>8}  {'potential / V':>15}  "
+          f"{'M_i':>11}  {'q*phi / eV':>12}")
+    for r in (site_rows if args.all else orbit_rows):
+        m = "—" if r["site_constant"] is None else f"{r['site_constant']:11.6f}"
+        count = r["index"] if args.all else r["sites_in_cell"]
+        wyckoff = f"{r['multiplicity']}{r['wyckoff']}"
+        print(f"  {count:>5}  {r['label']:<10} {r['element']:<12} {wyckoff:>7} {r['charge_e']:>+8.3f}  "
+              f"{r['potential_V']:>15.8f}  {m:>11}  {r['site_energy_eV']:>12.6f}")
     print()
     print("  M_i = -phi_i r0 / (k_e q_i): the site potential in units of k_e q_i / r0 (positive = held by its "
           "surroundings); E = 1/2 sum q_i phi_i")
+    if any(r["averaged"] for r in site_rows):
+        print("  averaged    mixed or partly occupied sites carry occupancy-weighted mean charges (virtual crystal)")
     print(f"  note        {MODEL_NOTE}")
+    return 0
+
+
+# ---------------------------------------------------------------- charges
+def _add_charges(sub):
+    parser = sub.add_parser("charges", help="assign oxidation states or equilibrate partial charges",
+                            description="Charges for the point-charge model. 'auto' enumerates charge-neutral "
+                                        "assignments of the common oxidation states per orbit of equivalent sites "
+                                        "and ranks them by electronegativity order, site-potential signs, "
+                                        "bond-valence sums and Madelung energy; 'equilibrate' computes partial "
+                                        "charges by charge equilibration in the periodic cell.")
+    parser.add_argument("file", metavar="FILE", help="structure file: CIF, POSCAR, extended XYZ, ... (read by ASE)")
+    parser.add_argument("--method", choices=("auto", "equilibrate"), default="auto",
+                        help="oxidation-state assignment (auto, default) or charge equilibration")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="fix the state of an element or site label, e.g. Fe1=+3 (auto only; repeat as needed)")
+    parser.add_argument("--ignore-file-states", action="store_true",
+                        help="assign every site afresh, ignoring oxidation states written in the file")
+    parser.add_argument("--mixing-denominator", type=int, default=2, metavar="D",
+                        help="allow mixed-valence averages on an orbit in steps of 1/D (default 2; 1: integers only)")
+    parser.add_argument("--kernel", choices=("gaussian", "point"), default="gaussian",
+                        help="equilibration: Gaussian-shielded (default) or point-charge interaction")
+    parser.add_argument("--dielectric", type=float, default=2.0, metavar="EPS",
+                        help="equilibration: relative permittivity dividing the inter-site interaction (default 2)")
+    parser.add_argument("--total-charge", type=float, default=0.0, metavar="Q",
+                        help="net charge of the cell, e (default 0)")
+    parser.add_argument("--tol", type=float, default=1e-8, metavar="TOL", help="accuracy of the Ewald sums (1e-8)")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
+                        help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
+    parser.add_argument("--json", action="store_true", help="print JSON: every ranked candidate")
+    _structure_options(parser, charges_from=False)
+    return parser
+
+
+def _candidate_json(assignment, candidate, rank):
+    return {"rank": rank, "assignment": assignment.describe(candidate),
+            "states": [{"label": g.label, "wyckoff": g.wyckoff, "sites_in_cell": len(g.sites),
+                        "species": [{"element": el, "occupancy": occ, "state": q}
+                                    for (el, occ), q in zip(g.species, states)],
+                        "potential_V": phi, "bond_valence_sum": bvs}
+                       for g, states, phi, bvs in zip(assignment.groups, candidate.states, candidate.potentials,
+                                                      candidate.bond_valence_sums)],
+            "electronegativity_violations": candidate.electronegativity_violations,
+            "wrong_sign_sites": candidate.wrong_sign_sites,
+            "bond_valence_misfit": candidate.bond_valence_misfit,
+            "mixed_valence_orbits": candidate.mixed_groups,
+            "energy_per_formula_unit_eV": candidate.energy_per_formula_unit,
+            "energy_per_formula_unit_kJ_per_mol": candidate.energy_per_formula_unit * EV_TO_KJ_PER_MOL}
+
+
+def _run_charges(args):
+    from .charges.oxidation import mixed_note
+    from .crystal import parse_charge_rules, read_structure
+
+    atoms = read_structure(args.file, max_atoms=args.max_atoms)
+    if args.method == "equilibrate":
+        return _run_equilibrate(args, atoms)
+    rules = parse_charge_rules(args.charge)
+    args.charges_from = "auto"
+    crystal, a = _auto_assignment(atoms, rules, args, ignore_file_states=args.ignore_file_states) \
+        if args.total_charge == 0 else _auto_charged(atoms, rules, args)
+    if args.json:
+        _print_json({"file": args.file, "formula": crystal.reduced_formula, "space_group": a.space_group,
+                     "method": "oxidation-state assignment", "reason": a.reason,
+                     "bond_valence_used_in_ranking": a.used_bond_valence, "truncated": a.truncated,
+                     "candidates": [_candidate_json(a, c, k + 1) for k, c in enumerate(a.candidates)],
+                     "note": "formal oxidation states: bookkeeping of the ionic limit, not measured charges"})
+        return 0
+    print(f"madelung charges  {args.file}")
+    print(f"  structure   {crystal.formula} ({crystal.formula_units} x {crystal.reduced_formula}), "
+          f"{len(crystal)} sites, {a.space_group}, {len(a.groups)} orbits")
+    fixed = [g.label for g in a.groups if any(v is not None for v in g.fixed)]
+    if fixed:
+        print(f"  kept        states given for {', '.join(fixed)} (file or --charge)")
+    print(f"  candidates  {len(a.candidates)} charge-neutral assignment(s)"
+          + (" (enumeration stopped at the limit)" if a.truncated else ""))
+    print()
+    print(f"  {'orbit':<10} {'species':<12} {'Wyckoff':>7} {'sites':>5}  {'state':<30} {'potential / V':>14} "
+          f"{'BVS':>7}")
+    for g, states, phi, bvs in zip(a.groups, a.best.states, a.best.potentials, a.best.bond_valence_sums):
+        text = " ".join(f"{el}{q:+g}{mixed_note(el, q)}" for (el, _), q in zip(g.species, states))
+        shown = "—" if bvs is None else f"{bvs:7.3f}"
+        print(f"  {g.label:<10} {g.species_label:<12} {g.wyckoff:>7} {len(g.sites):>5}  {text:<30} {phi:>14.6f} "
+              f"{shown:>7}")
+    print()
+    best = a.best
+    misfit = "—" if best.bond_valence_misfit is None else f"{best.bond_valence_misfit:.1%}"
+    print(f"  chosen      {a.describe()}")
+    print(f"              E = {best.energy_per_formula_unit:.4f} eV per formula unit "
+          f"({best.energy_per_formula_unit * EV_TO_KJ_PER_MOL:.1f} kJ/mol, signed electrostatic), "
+          f"bond-valence misfit {misfit}")
+    if a.runner_up is not None:
+        r = a.runner_up
+        misfit = "—" if r.bond_valence_misfit is None else f"{r.bond_valence_misfit:.1%}"
+        print(f"  runner-up   {a.describe(r)}")
+        print(f"              E = {r.energy_per_formula_unit:.4f} eV per formula unit, bond-valence misfit {misfit}")
+    print(f"  why         {a.reason}")
+    if not a.used_bond_valence:
+        print("  bond valence  not used in the ranking (parameters missing for some bonds or sites averaged)")
+    print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
+          "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
+    return 0
+
+
+def _auto_charged(atoms, rules, args):
+    raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
+                     "assigned for a neutral cell")
+
+
+def _run_equilibrate(args, atoms):
+    from .charges import equilibrate
+    from .crystal import Crystal
+    from .symmetry import crystal_symmetry
+
+    if args.charge:
+        raise InputError(f"{args.file}: --charge cannot be combined with --method equilibrate")
+    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **_crystal_options(args))
+    result = equilibrate(base, total_charge=args.total_charge, kernel=args.kernel, dielectric=args.dielectric,
+                         tol=args.tol)
+    crystal = base.with_charges(result.charges)
+    symmetry = crystal_symmetry(base, symprec=args.symprec, by_charge=False)
+    rows = []
+    for orbit in symmetry.orbits:
+        q = result.charges[list(orbit.sites)]
+        i = orbit.representative
+        rows.append({"label": crystal.labels[i], "species": crystal.species_label(i), "wyckoff": orbit.wyckoff,
+                     "multiplicity": orbit.multiplicity, "sites_in_cell": len(orbit.sites),
+                     "charge_e": float(q.mean()), "charge_spread_e": float(np.ptp(q)),
+                     "electronegativity_eV": float(result.electronegativity[i]),
+                     "hardness_eV": float(result.hardness[i])})
+    if args.json:
+        _print_json({"file": args.file, "method": "charge equilibration", "kernel": result.kernel,
+                     "dielectric": result.dielectric, "total_charge_e": result.total_charge,
+                     "chemical_potential_eV": result.chemical_potential, "model_energy_eV": result.energy,
+                     "parameters": result.parameter_source, "orbits": rows, "charges_e": result.charges,
+                     "note": "equilibrated charges are model estimates of charge transfer"})
+        return 0
+    print(f"madelung charges  {args.file}  (charge equilibration)")
+    print(f"  structure   {crystal.formula}, {len(crystal)} sites, {symmetry.symbol} (No. {symmetry.number})")
+    print(f"  model       {result.kernel} kernel, inter-site interaction / {result.dielectric:g}; "
+          f"{result.parameter_source}")
+    print(f"  total       {float(np.sum(result.charges)):+.6f} e (fixed at {result.total_charge:+g}); "
+          f"equalized electronegativity {result.chemical_potential:.4f} eV")
+    print()
+    print(f"  {'orbit':<10} {'species':<12} {'Wyckoff':>7} {'sites':>5} {'charge / e':>11} {'chi / eV':>9} "
+          f"{'J / eV':>8}")
+    for r in rows:
+        print(f"  {r['label']:<10} {r['species']:<12} {r['multiplicity']:>6}{r['wyckoff']} {r['sites_in_cell']:>5} "
+              f"{r['charge_e']:>+11.4f} {r['electronegativity_eV']:>9.3f} {r['hardness_eV']:>8.3f}")
+    print()
+    print("  note        equilibrated charges are model estimates of charge transfer (parameter- and kernel-"
+          "dependent), smaller than formal charges; they are not measured charges")
     return 0
 
 
@@ -501,6 +776,92 @@ def _constant_table(args, files):
     return 0
 
 
+# ---------------------------------------------------------------- screen
+def _add_screen(sub):
+    from .descriptors import SPECTRUM_LENGTH
+
+    parser = sub.add_parser("screen", help="descriptors of many structures into one table",
+                            description="Screen many structures: one row per structure (identifiers, status, "
+                                        "timings, electrostatic descriptors) in a Parquet, CSV or JSON-lines table "
+                                        "chosen by the ending of --out. Inputs are files, folders, globs or ASE "
+                                        "databases. A structure that fails gets its message in the status column and "
+                                        "the job goes on; the exit code is 0 when the job finishes.")
+    parser.add_argument("inputs", nargs="*", metavar="INPUT", help="structure files, folders, globs ('**' allowed) "
+                                                                   "or ASE databases (*.db)")
+    parser.add_argument("--out", required=True, metavar="TABLE", help="results table: .parquet, .csv or .jsonl")
+    parser.add_argument("--db", metavar="FILE", help="ASE database (SQLite by default) to screen")
+    parser.add_argument("--select", metavar="QUERY", help="ASE database selection, e.g. 'natoms<100'")
+    parser.add_argument("--write-db", action="store_true",
+                        help="store the results in the database rows as madelung_* key-value pairs")
+    parser.add_argument("--sites", metavar="TABLE", help="also write one row per site to this table")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="charge of an element or a site label for every structure, e.g. O=-2 (repeat)")
+    parser.add_argument("--tol", type=float, default=1e-8, metavar="TOL",
+                        help="relative accuracy of every sum (default 1e-8)")
+    parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="run on this Dask distributed scheduler (e.g. tcp://10.0.0.5:8786) instead of the "
+                             "local pool; needs pip install 'madelung[dask]'")
+    parser.add_argument("--timeout", type=float, metavar="S", help="seconds allowed per structure")
+    parser.add_argument("--resume", action="store_true", help="keep rows already ok in --out, screen the rest")
+    parser.add_argument("--chunk", type=int, default=256, metavar="N", help="rows written at once, at least "
+                                                                             "(default 256)")
+    parser.add_argument("--spectrum-length", type=int, default=SPECTRUM_LENGTH, metavar="L",
+                        help=f"padded length of the Ewald-sum-matrix spectrum (default {SPECTRUM_LENGTH})")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
+                        help="refuse ions closer than this (default 0.5 Å)")
+    parser.add_argument("--no-progress", action="store_true", help="no progress bar or progress lines")
+    parser.add_argument("--json", action="store_true", help="print the summary as JSON")
+    _structure_options(parser)
+    return parser
+
+
+def _run_screen(args):
+    from .crystal import parse_charge_rules
+    from .screen import screen
+
+    if not args.inputs and not args.db:
+        raise InputError("nothing to screen: give files, folders, globs or --db FILE")
+    summary = screen(args.inputs, args.out, db=args.db, select=args.select, charges=args.charges_from,
+                     charge_rules=parse_charge_rules(args.charge), tol=args.tol, workers=args.workers,
+                     scheduler=args.scheduler, timeout=args.timeout, resume=args.resume, sites=args.sites,
+                     write_db=args.write_db, chunk_size=args.chunk, progress=not args.no_progress,
+                     spectrum_length=args.spectrum_length, symprec=args.symprec, min_distance=args.min_distance,
+                     max_atoms=args.max_atoms, occupancy=args.occupancy)
+    if args.json:
+        _print_json(summary.as_dict())
+        return 0
+    for source, status in summary.failures[:10]:
+        print(f"  failed  {status if source in status else f'{source}: {status}'}")
+    if len(summary.failures) > 10:
+        print(f"  ... and {summary.failed - 10} more failed rows (status column of {summary.out})")
+    print(summary.line())
+    return 0
+
+
+# ---------------------------------------------------------------- demo
+def _add_demo(sub):
+    parser = sub.add_parser("demo", help="screen the bundled candidate coatings and plot them",
+                            description="Screen the invented candidate structures in structures/demo/ (ternary "
+                                        "oxides and halides on rock-salt, spinel and perovskite prototypes) on the "
+                                        "local pool, write the table, print the ranked top rows and save a PNG "
+                                        "scatter plot.")
+    parser.add_argument("--out-dir", default="madelung-demo", metavar="DIR",
+                        help="where the table and the plot go (default ./madelung-demo)")
+    parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
+    parser.add_argument("--top", type=int, default=10, metavar="N", help="rows shown (default 10)")
+    parser.add_argument("--json", action="store_true", help="print the ranked rows as JSON")
+    return parser
+
+
+def _run_demo(args):
+    from .demo import run_demo
+
+    result = run_demo(args.out_dir, workers=args.workers, top=args.top, progress=not args.json)
+    if args.json:
+        _print_json(result.as_dict())
+        return 0
+    print(result.report())
 def _add_defect(sub):
     parser = sub.add_parser("defect", help="vacancy, substitution and interstitial electrostatics in a supercell",
                             description="Unrelaxed electrostatic energy change of point defects in a supercell, the "
@@ -1169,7 +1530,10 @@ def _run_eos(args):
 COMMANDS = {
     "energy": (_add_energy, _run_energy),
     "sites": (_add_sites, _run_sites),
+    "charges": (_add_charges, _run_charges),
     "constant": (_add_constant, _run_constant),
+    "screen": (_add_screen, _run_screen),
+    "demo": (_add_demo, _run_demo),
     "map": (_add_map, _run_map),
     "interstitials": (_add_interstitials, _run_interstitials),
     "defect": (_add_defect, _run_defect),

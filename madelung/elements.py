@@ -23,10 +23,36 @@ def _element(symbol):
         raise InputError(f"unknown element symbol {symbol!r}") from None
 
 
+@lru_cache(maxsize=None)
+def _tables():
+    """The library's element, oxidation-state and ionisation-energy tables, read once.
+
+    Reading whole tables costs about as much as looking up two elements one by one, and every
+    later look-up is then free; the values are the ones ``mendeleev.element`` returns.
+    """
+    from mendeleev.fetch import fetch_table
+
+    elements = fetch_table("elements").set_index("symbol")
+    return elements, fetch_table("oxidationstates"), fetch_table("ionizationenergies")
+
+
+def _row(symbol):
+    elements = _tables()[0]
+    if str(symbol) not in elements.index:
+        raise InputError(f"unknown element symbol {symbol!r}")
+    return elements.loc[str(symbol)]
+
+
+def _value(x):
+    import math
+
+    return None if x is None or (isinstance(x, float) and math.isnan(x)) else float(x)
+
+
 def is_element(symbol) -> bool:
     """True if ``symbol`` names a chemical element."""
     try:
-        _element(symbol)
+        _row(symbol)
         return True
     except InputError:
         return False
@@ -35,7 +61,10 @@ def is_element(symbol) -> bool:
 @lru_cache(maxsize=None)
 def common_oxidation_states(symbol) -> tuple:
     """The element's main oxidation states (as the library lists them), e.g. Fe -> (2, 3)."""
-    return tuple(int(x) for x in (_element(symbol).oxistates or ()))
+    number = int(_row(symbol)["atomic_number"])
+    table = _tables()[1]
+    rows = table[(table["atomic_number"] == number) & (table["category"] == "main")]
+    return tuple(sorted(int(x) for x in rows["oxidation_state"]))
 
 
 @lru_cache(maxsize=None)
@@ -48,21 +77,22 @@ def all_oxidation_states(symbol) -> tuple:
 @lru_cache(maxsize=None)
 def electronegativity(symbol) -> float | None:
     """Pauling electronegativity, or None where the library has none (noble gases)."""
-    value = _element(symbol).electronegativity("pauling")
-    return None if value is None else float(value)
+    return _value(_row(symbol)["en_pauling"])
 
 
 @lru_cache(maxsize=None)
 def ionisation_energies(symbol) -> dict:
     """Successive ionisation energies in eV, keyed by the charge reached (1 for M -> M+)."""
-    return {int(k): float(v) for k, v in (_element(symbol).ionenergies or {}).items()}
+    number = int(_row(symbol)["atomic_number"])
+    table = _tables()[2]
+    rows = table[(table["atomic_number"] == number) & table["ionization_energy"].notna()]
+    return {int(k) + 1: float(v) for k, v in zip(rows["ion_charge"], rows["ionization_energy"])}
 
 
 @lru_cache(maxsize=None)
 def electron_affinity(symbol) -> float | None:
     """First electron affinity in eV (energy released on X + e -> X-; positive when bound)."""
-    value = _element(symbol).electron_affinity
-    return None if value is None else float(value)
+    return _value(_row(symbol)["electron_affinity"])
 
 
 @lru_cache(maxsize=None)

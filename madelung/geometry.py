@@ -179,3 +179,20 @@ def closest_pair_within(cell, positions, limit):
     if to_any[i] < limit:
         return i, int(partner[i]), float(to_any[i])
     return None
+
+
+def neighbour_pairs(cell, positions, cutoff, sites=None):
+    """Every partner within ``cutoff`` of each site in ``sites`` (default: all), images included.
+
+    Returns ``(owner, partner, distance)`` arrays, one entry per pair: ``owner`` indexes ``sites``,
+    ``partner`` is the original index of the partner atom, ``distance`` is in Å. A site is not
+    its own partner; its periodic images are.
+    """
+    n = len(positions)
+    sites = np.arange(n) if sites is None else np.asarray(sites, dtype=np.int64)
+    bins = build_bins(cell, positions, cutoff)
+    rank = np.empty(n, dtype=np.int64)
+    rank[bins.order] = np.arange(n)
+    owner, partner, distance = gk.pairs_from(np.ascontiguousarray(rank[sites]), bins.positions, bins.cell,
+                                             bins.counts, bins.offsets, bins.bin_of, bins.bin_start, float(cutoff))
+    return owner, bins.order[partner], distance

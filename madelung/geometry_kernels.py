@@ -10,6 +10,8 @@ axis and a reach of several bins enumerates the periodic images.
 Kernels here do arithmetic only; the Python side (``geometry.py``) builds the bins.
 """
 
+import math
+
 import numpy as np
 from numba import njit, prange
 
@@ -105,3 +107,45 @@ def nearest_neighbours(positions, charges, cell, counts, offsets, bin_of, bin_st
         partner[i] = best_j
         nearest_opposite[i] = np.sqrt(best_opp)
     return nearest, partner, nearest_opposite
+
+
+@njit(cache=True)
+def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut):
+    """All partners (images included) within ``r_cut`` of each sorted site in ``sites``.
+
+    Returns ``(owner, partner, distance)``: ``owner[p]`` is the position in ``sites``,
+    ``partner[p]`` the sorted index of the partner, ``distance[p]`` in Å. Two passes: count, fill.
+    """
+    cut2 = r_cut * r_cut
+    total = 0
+    owner = np.empty(0, dtype=np.int64)
+    partner = np.empty(0, dtype=np.int64)
+    distance = np.empty(0)
+    for pass_number in range(2):
+        if pass_number == 1:
+            owner = np.empty(total, dtype=np.int64)
+            partner = np.empty(total, dtype=np.int64)
+            distance = np.empty(total)
+        p = 0
+        for s in range(sites.shape[0]):
+            i = sites[s]
+            for o in range(offsets.shape[0]):
+                b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2],
+                                              offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
+                sx, sy, sz = image_shift(cell, s0, s1, s2)
+                for j in range(bin_start[b], bin_start[b + 1]):
+                    if j == i and s0 == 0 and s1 == 0 and s2 == 0:
+                        continue
+                    dx = positions[i, 0] - positions[j, 0] - sx
+                    dy = positions[i, 1] - positions[j, 1] - sy
+                    dz = positions[i, 2] - positions[j, 2] - sz
+                    r2 = dx * dx + dy * dy + dz * dz
+                    if r2 >= cut2:
+                        continue
+                    if pass_number == 1:
+                        owner[p] = s
+                        partner[p] = j
+                        distance[p] = math.sqrt(r2)
+                    p += 1
+        total = p
+    return owner, partner, distance

@@ -109,7 +109,7 @@ def _solve_decreasing(func, target, low, high):
         above = func(mid) > target
         low = np.where(above, mid, low)
         high = np.where(above, high, mid)
-        if np.all(high / low < 1.0 + 1e-10):
+        if np.all(high / low < 1.0 + 1e-6):  # cutoffs need no more digits than this
             break
     return np.where(done, low, high)
 

@@ -1,0 +1,142 @@
+"""The main-job demo: screen the invented coating candidates of ``structures/demo/`` and plot them.
+
+:func:`run_demo` makes the candidate files if they are missing (``structures/demo/make_demo.py``),
+screens them with :func:`madelung.screen.screen` on the local pool, writes the table and the
+per-site table, ranks the candidates by electrostatic energy per atom (most strongly bound
+first) and saves a scatter plot of that energy against the mean potential at the anion sites.
+
+The ranking is a point-charge model estimate with formal charges: it orders candidates by how
+strongly their ions bind electrostatically, which overstates real, partly covalent bonding, and
+it says nothing about whether a compound can be made.
+"""
+
+from __future__ import annotations
+
+import os
+import runpy
+from dataclasses import dataclass
+
+from .errors import InputError
+
+#: Where the demo candidates live in a checkout of the project.
+DEMO_FOLDER = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "structures", "demo")
+
+PROTOTYPES = ("perovskite", "spinel", "layered-rocksalt")
+
+
+def prototype_of(source):
+    """The prototype a demo file is named for (``perovskite-SrTiO3.cif`` -> ``perovskite``)."""
+    name = os.path.basename(source)
+    return next((p for p in PROTOTYPES if name.startswith(p + "-")), "other")
+
+
+def demo_structures(folder=DEMO_FOLDER):
+    """The demo candidate files, made by the folder's ``make_demo.py`` if they are not there yet."""
+    script = os.path.join(folder, "make_demo.py")
+    present = sorted(f for f in os.listdir(folder) if f.endswith(".cif")) if os.path.isdir(folder) else []
+    if not present:
+        if not os.path.exists(script):
+            raise InputError(f"{folder}: no demo structures and no make_demo.py; run the demo from a checkout "
+                             "of the project (pip install -e .)")
+        runpy.run_path(script)["make"](folder)
+    return folder
+
+
+@dataclass(frozen=True)
+class DemoResult:
+    """What the demo produced: the summary, the ranked rows and the files written."""
+
+    summary: object
+    ranked: list
+    table: str
+    sites: str
+    plot: str
+
+    def as_dict(self):
+        return {"summary": self.summary.as_dict(), "ranked": self.ranked, "table": self.table, "sites": self.sites,
+                "plot": self.plot}
+
+    def report(self):
+        lines = ["madelung demo  hypothetical coating candidates (ternary oxides and halides; idealized cells, "
+                 "formal charges)",
+                 f"  {'rank':>4}  {'candidate':<22} {'prototype':<17} {'space group':<11} {'E/atom eV':>10} "
+                 f"{'E/f.u. kJ/mol':>14} {'M (charges in)':>15} {'anion phi V':>12}"]
+        for row in self.ranked:
+            lines.append(f"  {row['rank']:>4}  {row['reduced_formula']:<22} {row['prototype']:<17} {row['space_group']:<11} "
+                         f"{row['energy_per_atom_eV']:>10.4f} {row['energy_per_formula_unit_kJ_mol']:>14.1f} "
+                         f"{row['madelung_charges_left_in']:>15.4f} {row['anion_potential_mean_V']:>12.4f}")
+        for source, status in self.summary.failures:
+            lines.append(f"  failed  {os.path.basename(source)}: {status.replace(source + ': ', '')}")
+        lines += [self.summary.line(),
+                  f"  table {self.table}, sites {self.sites}, plot {self.plot}",
+                  "  E: signed electrostatic energy of the point charges (more negative = more strongly bound); "
+                  "M in the charges-left-in convention, E_fu = -M k_e / r0; anion phi: mean site potential at the "
+                  "anions.",
+                  "  note  Point-charge model with formal charges: it overstates real, partly covalent bonding. "
+                  "A ranking of model estimates, not of measured stabilities."]
+        return "\n".join(lines)
+
+
+def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folder=DEMO_FOLDER) -> DemoResult:
+    """Screen the demo candidates, rank them and plot them (see the module docstring)."""
+    from .screen import TableWriter, screen, table_columns
+
+    folder = demo_structures(folder)
+    os.makedirs(out_dir, exist_ok=True)
+    table = os.path.join(out_dir, "candidates.parquet")
+    sites = os.path.join(out_dir, "candidate_sites.parquet")
+    plot = os.path.join(out_dir, "candidates.png")
+    summary = screen([folder], table, sites=sites, workers=workers, progress=progress)
+    rows = [r for r in TableWriter(table, table_columns()).read() if r["status"] == "ok"]
+    for row in rows:
+        row["prototype"] = prototype_of(row["source"])
+    rows.sort(key=lambda r: r["energy_per_atom_eV"])
+    keep = ("reduced_formula", "prototype", "space_group", "energy_per_atom_eV", "energy_per_formula_unit_kJ_mol",
+            "madelung_charges_left_in", "anion_potential_mean_V", "source")
+    ranked = [{"rank": k + 1, **{name: row[name] for name in keep}} for k, row in enumerate(rows[:max(0, top)])]
+    save_plot(rows, plot)
+    return DemoResult(summary=summary, ranked=ranked, table=table, sites=sites, plot=plot)
+
+
+def save_plot(rows, path):
+    """Scatter of energy per atom against the mean anion-site potential, one colour per prototype."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    figure, axes = plt.subplots(figsize=(7.5, 5.0), dpi=120)
+    markers = {"O": "o", "halide": "^"}
+    colours = {"perovskite": "#1b6f9e", "spinel": "#c4572b", "layered-rocksalt": "#3f8f3a", "other": "#777777"}
+    for prototype in (*PROTOTYPES, "other"):
+        for kind in ("O", "halide"):
+            chosen = [r for r in rows if r["prototype"] == prototype
+                      and (("O" in _elements(r["reduced_formula"])) == (kind == "O"))]
+            if not chosen:
+                continue
+            axes.scatter([r["anion_potential_mean_V"] for r in chosen], [r["energy_per_atom_eV"] for r in chosen],
+                         c=colours[prototype], marker=markers[kind], s=42, edgecolors="white", linewidths=0.6,
+                         label=f"{prototype}, {'oxides' if kind == 'O' else 'halides'}")
+    for prototype in PROTOTYPES:   # label the most strongly bound candidate of each prototype
+        chosen = [r for r in rows if r["prototype"] == prototype]
+        if chosen:
+            best = min(chosen, key=lambda r: r["energy_per_atom_eV"])
+            axes.annotate(best["reduced_formula"], (best["anion_potential_mean_V"], best["energy_per_atom_eV"]),
+                          textcoords="offset points", xytext=(7, -11), fontsize=8,
+                          arrowprops=dict(arrowstyle="-", lw=0.5, color="#444444"))
+    axes.margins(x=0.14, y=0.08)
+    axes.set_xlabel("mean electrostatic potential at the anion sites (V)")
+    axes.set_ylabel("electrostatic energy per atom (eV)")
+    axes.set_title("Coating candidates: point-charge electrostatics (model estimates)", fontsize=10)
+    axes.grid(alpha=0.3)
+    axes.legend(fontsize=8, frameon=False)
+    figure.tight_layout()
+    figure.savefig(path)
+    plt.close(figure)
+    return path
+
+
+def _elements(formula):
+    import re
+
+    return set(re.findall(r"[A-Z][a-z]?", formula))

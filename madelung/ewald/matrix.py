@@ -1,0 +1,151 @@
+"""Site potentials for many charge sets at once, and the periodic Coulomb interaction matrix.
+
+The Ewald sum is linear in the charges. For a fixed cell and positions, the splitting parameter,
+the bins and the reciprocal vectors are chosen once and every charge set reuses them with the
+same kernels as :func:`madelung.ewald.direct.ewald_direct`. Column ``j`` of the Coulomb matrix is
+the potential (V) at every site from a unit charge on site ``j`` and all its periodic images,
+with a uniform neutralizing background; so ``phi = J @ q`` and, for a neutral ``q``,
+``E = q @ J @ q / 2`` reproduce the direct sum (the background terms cancel).
+
+:func:`potentials_for_charge_sets` costs one sum per charge set (use it for a few sets, e.g. one
+unit charge per symmetry orbit). :func:`coulomb_matrix` builds the whole N x N matrix with a
+pair list from the shared neighbour machinery and one matrix product for reciprocal space; its memory grows as
+N^2 and N times the number of k-vectors, so we refuse more than :data:`MAX_MATRIX_SITES` sites.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..errors import InputError
+from ..geometry import build_bins, nearest_neighbour_distances, neighbour_pairs, thread_budget, wrapped_fractional
+from ..units import COULOMB_CONSTANT
+from . import kernels, tuning
+from .direct import reciprocal_vectors
+
+#: Largest number of sites for which a full N x N Coulomb matrix is built.
+MAX_MATRIX_SITES = 600
+
+
+def potentials_for_charge_sets(cell, positions, charge_sets, tol=1e-10, d_min=None):
+    """Ewald site potentials (V) of several charge sets on the same sites.
+
+    Parameters
+    ----------
+    cell : (3, 3) lattice vectors as rows, Å.
+    positions : (N, 3) Cartesian positions, Å.
+    charge_sets : (M, N) array: M charge vectors, e.
+    tol : wanted error relative to ``k_e * max_m sum(q_m^2) / d_min`` (as :func:`madelung.ewald`).
+    d_min : shortest interionic distance, Å (computed if not given).
+
+    Returns
+    -------
+    (M, N) array of potentials, V: row m is the potential at every site from charge set m
+    (own charge excluded, own images included, neutralizing background for a net charge).
+
+    References
+    ----------
+    P. P. Ewald, Ann. Phys. 369 (1921) 253.
+    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351 (accuracy control, via ``tuning``).
+    """
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    positions = np.ascontiguousarray(positions, dtype=np.float64)
+    sets = np.atleast_2d(np.asarray(charge_sets, dtype=np.float64))
+    n = len(positions)
+    if sets.shape[1] != n:
+        raise InputError(f"charge sets have {sets.shape[1]} entries for {n} sites")
+    volume = abs(float(np.linalg.det(cell)))
+    if d_min is None:
+        to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(n))
+        d_min = float(np.min(to_any))
+    q2 = float(np.max(np.einsum("mi,mi->m", sets, sets)))
+    q1 = float(np.max(np.abs(sets).sum(axis=1)))
+    choice = tuning.choose(tol, n, volume, q2, q1, d_min, COULOMB_CONSTANT)
+    a = choice.alpha
+    bins = build_bins(cell, positions, choice.real_cutoff)
+    hkl, kvectors, hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
+    frac = wrapped_fractional(cell, positions)
+    k2 = np.einsum("ij,ij->i", kvectors, kvectors)
+    weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * a * a)) / k2)
+    out = np.empty((len(sets), n))
+    with thread_budget(choice.predicted_cost):
+        for m, charges in enumerate(sets):
+            charges = np.ascontiguousarray(charges)
+            phi_r, _, _, _ = kernels.real_space_terms(
+                bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                bins.bin_start, a, choice.real_cutoff, False, False)
+            phi = bins.unsorted(phi_r)
+            if len(hkl):
+                s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
+                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
+                                                         s_re, s_im, False)
+                phi = phi + phi_k
+            net = float(charges.sum())
+            self_and_background = 2.0 * a / math.sqrt(math.pi) * charges + math.pi * net / (volume * a * a)
+            out[m] = COULOMB_CONSTANT * (phi - self_and_background)
+    return out
+
+
+def screened_pairs(cell, positions, types, alpha_by_type, r_cut):
+    """(N, N) sum over images of ``erfc(alpha_ij r) / r`` within ``r_cut`` (Å^-1, no Coulomb constant),
+    ``alpha_ij = alpha_by_type[types[i], types[j]]``; the site itself is left out, its images are not."""
+    from scipy.special import erfc
+
+    n = len(positions)
+    owner, partner, distance = neighbour_pairs(np.ascontiguousarray(cell, dtype=np.float64),
+                                               np.ascontiguousarray(positions, dtype=np.float64), r_cut)
+    types = np.asarray(types, dtype=np.int64)
+    alpha = np.asarray(alpha_by_type, dtype=np.float64)[types[owner], types[partner]]
+    out = np.zeros((n, n))
+    np.add.at(out, (owner, partner), erfc(alpha * distance) / distance)
+    return out
+
+
+def coulomb_matrix(cell, positions, tol=1e-10, d_min=None):
+    """The periodic Coulomb interaction matrix of point charges, V per e.
+
+    Parameters
+    ----------
+    cell, positions : lattice vectors (rows) and Cartesian positions, Å.
+    tol : accuracy as for :func:`potentials_for_charge_sets` (for unit charges on every site).
+    d_min : shortest interionic distance, Å (computed if not given).
+
+    Returns
+    -------
+    (N, N) symmetric array ``J`` with ``J[i, j]`` the potential at site i from a unit charge on
+    site j and its images, neutralizing background included (``J[i, i]``: own images only).
+
+    Notes
+    -----
+    Real space: :func:`screened_pairs` (pairs from the shared neighbour machinery) with the Ewald
+    splitting parameter; reciprocal space:
+    ``sum_k 2 w(k) cos(k . (r_i - r_j))`` from the same half-space k-vectors and weights as
+    the direct sum, as one matrix product of the phase factors.
+
+    References
+    ----------
+    P. P. Ewald, Ann. Phys. 369 (1921) 253.
+    """
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    positions = np.ascontiguousarray(positions, dtype=np.float64)
+    n = len(positions)
+    if n > MAX_MATRIX_SITES:
+        raise InputError(f"a full Coulomb matrix of {n} sites is more than the limit of {MAX_MATRIX_SITES}")
+    volume = abs(float(np.linalg.det(cell)))
+    if d_min is None:
+        to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(n))
+        d_min = float(np.min(to_any))
+    choice = tuning.choose(tol, n, volume, float(n), float(n), d_min, COULOMB_CONSTANT)
+    a = choice.alpha
+    real = screened_pairs(cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), choice.real_cutoff)
+    _, kvectors, _ = reciprocal_vectors(cell, choice.reciprocal_cutoff)
+    k2 = np.einsum("ij,ij->i", kvectors, kvectors)
+    weights = 2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * a * a)) / k2
+    phase = positions @ kvectors.T                       # (N, M)
+    cos, sin = np.cos(phase), np.sin(phase)
+    recip = (cos * weights) @ cos.T + (sin * weights) @ sin.T
+    matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (volume * a * a)
+    matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
+    return matrix
