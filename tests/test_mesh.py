@@ -194,3 +194,20 @@ def test_bad_mesh_options_are_input_errors():
         ewald_mesh(crystal, tol=1e-6, mesh=3, order=6)
     with pytest.raises(madelung.InputError):
         ewald_mesh(crystal, tol=1e-6, check="sometimes")
+
+
+def test_failed_check_refines_the_mesh(monkeypatch, rng):
+    # an estimate 10^4 times too optimistic picks too coarse a mesh; the subsample check must
+    # catch it and refine the mesh until the measured error meets the target
+    optimistic = {n: (a * 1e-4, s) for n, (a, s) in mesh_module.MESH_ERROR_MODEL.items()}
+    monkeypatch.setattr(mesh_module, "MESH_ERROR_MODEL", optimistic)
+    base = load("rocksalt-NaCl")
+    crystal = base.replace(positions=base.positions + rng.normal(0.0, 0.1, base.positions.shape))
+    tol = 1e-7
+    coarse = ewald_mesh(crystal, tol=tol, check=False)
+    refined = ewald_mesh(crystal, tol=tol, check=True)
+    reference = ewald_direct(crystal, tol=1e-12)
+    assert abs(coarse.energy - reference.energy) > tol * reference.energy_scale  # the trap is real
+    assert refined.params.extra["check"]["attempt"] >= 1
+    assert np.prod(refined.params.extra["mesh"]) > np.prod(coarse.params.extra["mesh"])
+    assert abs(refined.energy - reference.energy) <= tol * reference.energy_scale
