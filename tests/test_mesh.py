@@ -60,6 +60,8 @@ def test_net_charge_is_summed_with_the_same_background(rng):
     charged = crystal.with_charges(np.asarray(crystal.charges) + 0.3)
     mesh, reference = _compare(charged, 1e-6)
     assert mesh.background and reference.background
+    # energy of the uniform neutralizing background, -k_e pi Q^2 / (2 V alpha^2) with Q = 6 x 0.3 e
+    # (fact of the trade)
     assert mesh.components["background"] == pytest.approx(
         -COULOMB_CONSTANT * math.pi * (1.8 ** 2) / (2 * charged.volume * mesh.params.alpha ** 2), rel=1e-6)
 
