@@ -280,8 +280,6 @@ def _self_check():
     import os
     import sys
 
-    import mpmath
-
     sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "tests"))
     from reference_mpmath import mp_ewald_energy
 

@@ -16,8 +16,6 @@ import argparse
 import os
 import sys
 
-import numpy as np
-
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from baseline_numpy import numpy_ewald  # noqa: E402
 from common import RESULTS, best_time, fit_exponent, print_table, rattled_rock_salt, verdict  # noqa: E402

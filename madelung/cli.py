@@ -105,80 +105,19 @@ def load_crystal(args):
 
 
 def _load_charged(args):
-    from .crystal import Crystal, parse_charge_rules, read_structure
+    return _charged(args)[0]
+
+
+def _charged(args, ignore_file_states=False):
+    """The crystal of the file on the command line and, for --charges-from auto, its assignment."""
+    from .charges import charged_crystal
+    from .crystal import parse_charge_rules, read_structure
 
     rules = parse_charge_rules(args.charge)
     atoms = read_structure(args.file, max_atoms=args.max_atoms)
-    method = getattr(args, "charges_from", "file")
-    if method == "auto":
-        return _auto_assignment(atoms, rules, args)[0]
-    if method == "equilibrate":
-        if rules:
-            raise InputError(f"{args.file}: --charge cannot be combined with --charges-from equilibrate")
-        return Crystal.from_ase(atoms, "equilibrate", **_crystal_options(args))
-    crystal = Crystal.from_ase(atoms, None, **_crystal_options(args)) if not rules \
-        else _with_rules(atoms, rules, args)
-    return crystal
-
-
-def _auto_assignment(atoms, rules, args, ignore_file_states=False):
-    """Assigned oxidation states: file states (unless ignored) and --charge rules are kept."""
-    from .charges import assign_oxidation_states
-    from .crystal import Crystal, file_states
-
-    options = _crystal_options(args)
-    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **options)
-    known = [(None,) * len(base.species_of(i)) for i in range(len(base))] if ignore_file_states \
-        else [tuple(s) for s in file_states(atoms)]
-    unknown = sorted(set(rules) - set(base.symbols) - set(base.labels)
-                     - {el for i in range(len(base)) for el, _ in base.species_of(i)})
-    if unknown:
-        raise InputError(f"{args.file}: charge given for {unknown[0]}, which is neither an element nor a site label "
-                         "of this structure")
-    for i in range(len(base)):
-        parts = base.species_of(i)
-        label = base.labels[i]
-        known[i] = tuple(rules.get(label, rules.get(el, known[i][k] if k < len(known[i]) else None))
-                         for k, (el, _) in enumerate(parts))
-    assignment = assign_oxidation_states(base, known_states=known, symprec=args.symprec,
-                                         mixing_denominator=getattr(args, "mixing_denominator", 2))
-    return base.with_charges(assignment.charges), assignment
-
-
-def _with_rules(atoms, rules, args):
-    """Charges from rules; species the rules do not name keep the charges read from the file.
-
-    A rule gives the charge of an ion; mixed or partly occupied sites get the occupancy-weighted sum."""
-    from .crystal import Crystal
-
-    symbols = atoms.get_chemical_symbols()
-    labels = [str(x) for x in atoms.arrays["labels"]] if "labels" in atoms.arrays else None
-    entries = atoms.arrays.get("site_species")
-    if entries is None:
-        if "oxidation_states" in atoms.arrays:
-            known = np.array(atoms.arrays["oxidation_states"], dtype=float)
-        elif np.any(atoms.get_initial_charges() != 0):
-            known = atoms.get_initial_charges()
-        else:
-            return Crystal.from_ase(atoms, rules, **_crystal_options(args))
-        entries = [((el, 1.0, float(q)),) for el, q in zip(symbols, known)]
-    elements = {el for e in entries for el, _, _ in e} | set(symbols)
-    unknown = sorted(set(rules) - elements - set(labels or ()))
-    if unknown:
-        raise InputError(f"{args.file}: charge given for {unknown[0]}, which is neither an element nor a site label "
-                         "of this structure")
-    charges = np.empty(len(atoms))
-    for i, parts in enumerate(entries):
-        label = labels[i] if labels else None
-        total = 0.0
-        for element, occ, state in parts:
-            value = rules.get(label, rules.get(element, state))
-            if value is None or not np.isfinite(value):
-                raise InputError(f"{args.file}: site {label or i} ({element}) has no charge in the file or the "
-                                 f"rules; add --charge {label or element}=Q")
-            total += occ * value
-        charges[i] = total
-    return Crystal.from_ase(atoms, charges, **_crystal_options(args))
+    return charged_crystal(atoms, getattr(args, "charges_from", "file"), rules, symprec=args.symprec,
+                           mixing_denominator=getattr(args, "mixing_denominator", 2),
+                           ignore_file_states=ignore_file_states, **_crystal_options(args))
 
 
 def _charge_summary(crystal):
@@ -423,15 +362,15 @@ def _candidate_json(assignment, candidate, rank):
 
 def _run_charges(args):
     from .charges.oxidation import mixed_note
-    from .crystal import parse_charge_rules, read_structure
+    from .crystal import read_structure
 
-    atoms = read_structure(args.file, max_atoms=args.max_atoms)
     if args.method == "equilibrate":
-        return _run_equilibrate(args, atoms)
-    rules = parse_charge_rules(args.charge)
+        return _run_equilibrate(args, read_structure(args.file, max_atoms=args.max_atoms))
+    if args.total_charge != 0:
+        raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
+                         "assigned for a neutral cell")
     args.charges_from = "auto"
-    crystal, a = _auto_assignment(atoms, rules, args, ignore_file_states=args.ignore_file_states) \
-        if args.total_charge == 0 else _auto_charged(atoms, rules, args)
+    crystal, a = _charged(args, ignore_file_states=args.ignore_file_states)
     if args.json:
         _print_json({"file": args.file, "formula": crystal.reduced_formula, "space_group": a.space_group,
                      "method": "oxidation-state assignment", "reason": a.reason,
@@ -473,11 +412,6 @@ def _run_charges(args):
     print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
           "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
     return 0
-
-
-def _auto_charged(atoms, rules, args):
-    raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
-                     "assigned for a neutral cell")
 
 
 def _run_equilibrate(args, atoms):

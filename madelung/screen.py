@@ -257,46 +257,11 @@ def _read_atoms(task, options):
 
 def _charged_crystal(atoms, task, options):
     """The crystal of ``atoms`` with charges as the options say."""
-    from .crystal import Crystal, file_states
+    from .charges import charged_crystal
 
-    common = dict(source=task.source, min_distance=options.min_distance, occupancy=options.occupancy,
-                  max_atoms=options.max_atoms)
-    rules = dict(options.rules)
-    if options.charges == "equilibrate":
-        if rules:
-            raise InputError(f"{task.source}: charge rules cannot be combined with charge equilibration")
-        return Crystal.from_ase(atoms, "equilibrate", **common)
-    if options.charges == "auto" and not rules:
-        return Crystal.from_ase(atoms, "auto", symprec=options.symprec, **common)
-    if not rules:
-        return Crystal.from_ase(atoms, None, **common)
-    # rules over the file's states, species by species (a mixed site sums occupancy x charge)
-    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **common)
-    states = file_states(atoms)
-    known = []
-    for i in range(len(base)):
-        parts = base.species_of(i)
-        label = base.labels[i]
-        file_parts = states[i] if len(states[i]) == len(parts) else (None,) * len(parts)
-        known.append(tuple(rules.get(label, rules.get(el, None if s is None or not np.isfinite(s) else s))
-                           for (el, _), s in zip(parts, file_parts)))
-    named = set(base.symbols) | set(base.labels) | {el for i in range(len(base)) for el, _ in base.species_of(i)}
-    unknown = sorted(set(rules) - named)
-    if unknown:
-        raise InputError(f"{task.source}: charge given for {unknown[0]}, which is neither an element nor a site "
-                         "label of this structure")
-    if options.charges == "auto":
-        from .charges import assign_oxidation_states
-
-        return base.with_charges(assign_oxidation_states(base, known_states=known, symprec=options.symprec).charges)
-    charges = np.empty(len(base))
-    for i, values in enumerate(known):
-        missing = [el for (el, _), v in zip(base.species_of(i), values) if v is None]
-        if missing:
-            raise InputError(f"{task.source}: site {base.labels[i]} ({missing[0]}) has no charge in the file or the "
-                             f"rules; add --charge {missing[0]}=Q")
-        charges[i] = sum(occ * v for (_, occ), v in zip(base.species_of(i), values))
-    return base.with_charges(charges)
+    return charged_crystal(atoms, options.charges, options.rules, symprec=options.symprec, source=task.source,
+                           min_distance=options.min_distance, occupancy=options.occupancy,
+                           max_atoms=options.max_atoms)[0]
 
 
 def _space_group(crystal, symprec):

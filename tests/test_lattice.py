@@ -4,7 +4,6 @@ the textbook trends, the equation of state, and the fitting errors."""
 import json
 from pathlib import Path
 
-import numpy as np
 import pytest
 
 from madelung import Crystal, InputError

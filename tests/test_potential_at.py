@@ -1,7 +1,6 @@
 """Potentials at arbitrary points and on grids (madelung.potential_at, madelung.defects.potential_grid)."""
 
 import math
-import warnings
 from pathlib import Path
 
 import numpy as np

@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import InputError, MadelungWarning
+from ..errors import MadelungWarning
 from ..geometry import build_bins, nearest_neighbour_distances, thread_budget, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import kernels, tuning
