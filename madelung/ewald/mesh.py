@@ -57,10 +57,11 @@ TUNED_ORDERS = (4, 6, 8)
 ALLOWED_ORDERS = (4, 5, 6, 7, 8)
 
 #: Calibrated estimate of the mesh error (see :func:`mesh_error`): order -> (A_n, s_n). The
-#: exponents s_n are least-squares fits and A_n 1.5 times the largest prefactor seen, both
-#: printed by benchmarks/calibrate_mesh.py (largest A: 12.7, 1221, 317, 1.55e4, 1.32e4).
-MESH_ERROR_MODEL = {4: (19.0, 4.206), 5: (1830.0, 6.784), 6: (475.0, 7.121), 7: (2.32e4, 9.076),
-                    8: (1.98e4, 9.799)}
+#: exponents s_n are least-squares fits and A_n twice the largest prefactor seen, both printed by
+#: benchmarks/calibrate_mesh.py (largest A: 14.6, 1222, 420, 2.33e4, 2.56e4 for orders 4..8,
+#: set by small strongly skewed cells; medians 5.1, 190, 98, 2.3e3, 2.8e3).
+MESH_ERROR_MODEL = {4: (29.3, 4.220), 5: (2444.0, 6.784), 6: (840.0, 7.055), 7: (4.65e4, 9.148),
+                    8: (5.12e4, 9.779)}
 
 #: Nanoseconds of one thread per unit of work of the mesh part, measured with
 #: ``benchmarks/scaling_mesh.py --calibrate`` (process time, one thread, rattled rock salt,
@@ -70,6 +71,9 @@ MESH_ERROR_MODEL = {4: (19.0, 4.206), 5: (1830.0, 6.784), 6: (475.0, 7.121), 7: 
 SPLINE_POINT_NS = 1.8       # one (ion, mesh point) weight, in spreading or in interpolation
 FFT_POINT_LOG_NS = 0.45     # one point x log2(points) of one real-to-complex FFT
 MESH_POINT_NS = 8.0         # influence function, energy/virial and array work per mesh point
+
+#: The tuner puts at least this many times the spline order of mesh points along each axis.
+MIN_MESH_PER_ORDER = 2
 
 #: Largest mesh the tuner picks, in bytes of peak mesh memory (16 bytes per point: the real
 #: mesh and its half spectrum are alive together during each FFT); keeps N = 10^6 under 4 GB
@@ -114,9 +118,10 @@ def mesh_error(alpha, spacings, order, charge_sq_sum, k_e):
     higher orders. ``A_n`` and ``s_n`` (MESH_ERROR_MODEL) were
     fitted to the measured mesh error, against the direct reciprocal sum at the same alpha, of
     every bundled prototype (as given, and as 2x2x2 supercells with random displacements) and
-    random neutral triclinic cells, at alpha d_min = 2, 3, 4.5 and alpha h / pi = 0.06 to 0.3; the
+    random neutral triclinic cells (some small and strongly skewed), at alpha d_min = 2, 3, 4.5
+    and alpha h / pi = 0.06 to 0.3 with at least two spline widths per axis; the
     larger of the coherent potential error 1/2 sum|q_i| rms(dphi) and the energy difference was
-    fitted, and A_n is 1.5 times the largest value seen.
+    fitted, and A_n is twice the largest value seen.
     """
     prefactor, power = MESH_ERROR_MODEL[order]
     mean = sum((alpha * h / math.pi) ** power for h in spacings) / 3.0
@@ -128,7 +133,10 @@ def mesh_shape_for(alpha, order, target, plane, charge_sq_sum, k_e):
     prefactor, power = MESH_ERROR_MODEL[order]
     x = (target / (k_e * 0.5 * charge_sq_sum * alpha * prefactor)) ** (1.0 / power)
     h = x * math.pi / alpha
-    return tuple(int(scipy.fft.next_fast_len(max(order + 1, int(math.ceil(d / h))), real=True)) for d in plane)
+    # at least two spline widths per axis: with fewer, each ion's spline wraps round most of the
+    # cell and the calibrated estimate was seen to be optimistic (skewed cells of a few ions)
+    return tuple(int(scipy.fft.next_fast_len(max(MIN_MESH_PER_ORDER * order, int(math.ceil(d / h))), real=True))
+                 for d in plane)
 
 
 def predicted_mesh_ns(r_cut, shape, order, n_atoms, volume):
