@@ -7,6 +7,9 @@ The achieved error is |E - E_ref| / (k_e sum q^2 / d_min) with E_ref from madelu
 
 Targets on the 2-core reference machine (issue: core engine): N = 4096 under 0.5 s,
 N = 32768 under 10 s, fitted exponent at most 1.6, at least 30x faster than the baseline at 4096.
+
+Then the direct and the particle-mesh engines side by side, N = 64 ... 314432 (10^6 with
+--largest), at tol 1e-6 and 1e-8: see benchmarks/scaling_mesh.py (--skip-mesh leaves it out).
 """
 
 import argparse
@@ -25,6 +28,8 @@ def main(argv=None):
     parser.add_argument("--tol", type=float, default=1e-8)
     parser.add_argument("--baseline-max", type=int, default=32768, help="skip the baseline above this N")
     parser.add_argument("--repeats", type=int, nargs="*", default=REPEATS, help="supercell repeats to run")
+    parser.add_argument("--skip-mesh", action="store_true", help="leave out the direct/mesh side-by-side table")
+    parser.add_argument("--largest", action="store_true", help="side-by-side table: also N = 10^6 (mesh only)")
     parser.add_argument("--no-plot", action="store_true")
     args = parser.parse_args(argv)
 
@@ -71,6 +76,10 @@ def main(argv=None):
     print(f"  exponent at most 1.6: {exponent:.2f} — {verdict(exponent <= 1.6)}")
     if 4096 in speedups:
         print(f"  at least 30x the baseline at N = 4096: {speedups[4096]:.1f}x — {verdict(speedups[4096] >= 30)}")
+    if not args.skip_mesh:
+        from scaling_mesh import side_by_side
+
+        side_by_side(largest=args.largest)
     if not args.no_plot:
         plot(sizes, ours_times, base_times)
     return 0

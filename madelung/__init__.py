@@ -12,7 +12,10 @@ from .ewald import EwaldParameters, EwaldResult
 __version__ = "0.1.0"
 
 
-def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None):
+METHODS = ("auto", "direct", "mesh")
+
+
+def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="auto"):
     """Electrostatic energy, site potentials and optionally forces and stress of a crystal.
 
     Parameters
@@ -26,6 +29,11 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None):
         Also compute forces (eV/Å) and the stress tensor (eV/Å^3, ASE sign convention).
     alpha : float, optional
         Fix the Ewald splitting parameter (1/Å); by default it is chosen for the least work.
+    method : {"auto", "direct", "mesh"}, optional
+        "direct": the Ewald sum over k-vectors (cost about N^1.5); "mesh": smooth particle-mesh
+        Ewald (about N log N); "auto" (default): the one predicted to be faster at this ``tol``,
+        each with its own tuned parameters. ``result.params.method`` says which ran, and for
+        "auto" ``result.params.extra["predicted_seconds_by_method"]`` holds both predictions.
 
     Returns
     -------
@@ -42,12 +50,25 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None):
     ----------
     P. P. Ewald, Ann. Phys. 369 (1921) 253.
     A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351.
+    U. Essmann et al., J. Chem. Phys. 103 (1995) 8577 (smooth particle-mesh Ewald).
     """
-    from .ewald.direct import ewald_direct
+    from .ewald.direct import ewald_direct, shortest_distance
+    from .ewald.mesh import ewald_mesh, predicted_seconds
 
     if not isinstance(crystal, Crystal):
         raise InputError(f"ewald() needs a madelung.Crystal, got {type(crystal).__name__}")
-    return ewald_direct(crystal, tol=tol, forces=forces, stress=stress, alpha=alpha)
+    if method not in METHODS:
+        raise InputError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
+    d_min = shortest_distance(crystal)
+    predictions = None
+    if method == "auto":
+        predictions = predicted_seconds(crystal, tol, alpha=alpha, d_min=d_min)
+        method = min(predictions, key=predictions.get)
+    run = ewald_mesh if method == "mesh" else ewald_direct
+    result = run(crystal, tol=tol, forces=forces, stress=stress, alpha=alpha, d_min=d_min)
+    if predictions is not None:
+        result.params.extra["predicted_seconds_by_method"] = predictions
+    return result
 
 
 from .constants import MadelungConstants, madelung_constants  # noqa: E402

@@ -52,6 +52,8 @@ def _common(parser):
                         help="wanted error of the energy relative to k_e*sum(q^2)/d_min (default 1e-10)")
     parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
                         help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
+    parser.add_argument("--method", choices=("auto", "direct", "mesh"), default="auto",
+                        help="Ewald engine: direct sum, particle mesh, or the one predicted faster (default auto)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
     parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
                         help="use the cell as read (default) or spglib's standardized primitive or conventional "
@@ -152,7 +154,9 @@ def _accuracy_lines(result):
             f"(k_e sum q^2 / d_min); estimated error {result.error_estimate:.2e} eV",
             f"  Ewald sum   {p.method}: alpha {p.alpha:.5f} 1/Å, real cutoff {p.real_cutoff:.3f} Å "
             f"({p.real_space_pairs} terms), reciprocal cutoff {p.reciprocal_cutoff:.3f} 1/Å "
-            f"({p.k_vectors} k-vectors), {result.seconds * 1000:.1f} ms"]
+            f"({p.k_vectors} k-vectors), {result.seconds * 1000:.1f} ms"] + (
+        [f"  mesh        {'x'.join(str(k) for k in p.extra['mesh'])} points, B-spline order {p.extra['order']}"]
+        if p.method == "mesh" else [])
 
 
 def _ewald_json(result):
@@ -188,7 +192,7 @@ def _run_energy(args):
     from .units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
-    result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress)
+    result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress, method=args.method)
     lattice = None
     if args.repulsion:
         from .lattice import lattice_energy
@@ -255,7 +259,7 @@ def _run_sites(args):
 
     crystal = load_crystal(args)
     symmetry = crystal_symmetry(crystal, symprec=args.symprec)
-    constants = madelung_constants(crystal, tol=args.tol)
+    constants = madelung_constants(crystal, tol=args.tol, method=args.method)
     potentials = constants.ewald.potentials
     z = crystal.formula_units
     energy_per_fu = constants.ewald.energy / z
@@ -475,7 +479,7 @@ def _run_constant(args):
     if len(files) > 1:
         return _constant_table(args, files)
     crystal = load_crystal(args)
-    c = madelung_constants(crystal, tol=args.tol)
+    c = madelung_constants(crystal, tol=args.tol, method=args.method)
     if args.json:
         _print_json({"file": args.file, **c.as_dict()})
         return 0
@@ -681,7 +685,7 @@ def _constant_table(args, files):
     for path in files:
         args.file = path
         try:
-            c = madelung_constants(load_crystal(args), tol=args.tol)
+            c = madelung_constants(load_crystal(args), tol=args.tol, method=args.method)
             rows.append({"file": path, "status": "ok", **c.as_dict()})
         except InputError as exc:
             rows.append({"file": path, "status": str(exc)})

@@ -109,7 +109,7 @@ def _common_factor(charges):
     return numerator / denominator
 
 
-def madelung_constants(crystal, tol=1e-10) -> MadelungConstants:
+def madelung_constants(crystal, tol=1e-10, method="auto") -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 
     Parameters
@@ -118,6 +118,8 @@ def madelung_constants(crystal, tol=1e-10) -> MadelungConstants:
         A neutral crystal with at least one cation and one anion.
     tol : float
         Relative accuracy of the underlying Ewald sum.
+    method : {"auto", "direct", "mesh"}
+        Engine of the underlying sum (see :func:`madelung.ewald`).
 
     Returns
     -------
@@ -133,7 +135,7 @@ def madelung_constants(crystal, tol=1e-10) -> MadelungConstants:
     where = f"{crystal.source}: " if crystal.source else ""
     if not (np.any(charges > 0) and np.any(charges < 0)):
         raise InputError(f"{where}a Madelung constant needs both cations and anions")
-    result = ewald(crystal, tol=tol)
+    result = ewald(crystal, tol=tol, method=method)
     if result.background:
         raise InputError(f"{where}the cell carries a net charge of {result.net_charge:+.6g} e; "
                          "Madelung constants are defined for neutral crystals")

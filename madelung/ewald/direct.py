@@ -133,6 +133,64 @@ def shortest_distance(crystal) -> float:
     return float(np.min(to_any))
 
 
+def warn_if_charged(crystal, net, charge_sq_sum) -> bool:
+    """Whether the cell carries a net charge (then a neutralizing background is added, with a warning)."""
+    background = abs(net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(charge_sq_sum))
+    if background:
+        warnings.warn(f"{crystal.source + ': ' if crystal.source else ''}the cell carries a net charge of "
+                      f"{net:+.6g} e; a uniform neutralizing background was added", MadelungWarning,
+                      stacklevel=4)
+    return background
+
+
+def real_space_part(cell, positions, charges, alpha, r_cut, forces, stress):
+    """Real-space sum in Gaussian units, in the original atom order.
+
+    Returns ``(potentials (N,), forces (N, 3) or None, virial (6,) or None, pairs, image reach)``.
+    """
+    bins = build_bins(cell, positions, r_cut)
+    phi_r, f_r, w_r, pairs = kernels.real_space_terms(
+        bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
+        bins.bin_start, alpha, r_cut, bool(forces), bool(stress))
+    return (bins.unsorted(phi_r), bins.unsorted(f_r) if forces else None, w_r.sum(axis=0) if stress else None,
+            int(pairs), tuple(int(x) for x in bins.reach))
+
+
+def symmetric(w):
+    """3x3 tensor from its six components xx, yy, zz, yz, xz, xy."""
+    return np.array([[w[0], w[5], w[4]], [w[5], w[1], w[3]], [w[4], w[3], w[2]]])
+
+
+def assemble(charges, phi_real, phi_recip, e_recip, alpha, volume, net, background, k_e,
+             force_parts=None, virial_parts=None):
+    """Add the self and background terms and the units.
+
+    ``phi_real``, ``phi_recip`` (e/Å), ``e_recip`` (e^2/Å), the real and reciprocal ``force_parts``
+    (e^2/Å^2) and ``virial_parts`` (3x3 dE/d strain, e^2/Å) are in Gaussian units; the parts are
+    None when not computed. Returns ``(potentials V, energy eV, components eV, forces eV/Å or
+    None, stress eV/Å^3 or None)``, the arrays read-only.
+    """
+    q2 = float(np.dot(charges, charges))
+    self_potential = -2.0 * alpha / math.sqrt(math.pi) * charges
+    background_potential = -math.pi * net / (volume * alpha * alpha) if background else 0.0
+    potentials = k_e * (phi_real + phi_recip + self_potential + background_potential)
+    components = {
+        "real": 0.5 * k_e * float(np.dot(charges, phi_real)),
+        "reciprocal": k_e * e_recip,
+        "self": -k_e * alpha / math.sqrt(math.pi) * q2,
+        "background": -k_e * math.pi * net * net / (2.0 * volume * alpha * alpha) if background else 0.0,
+    }
+    forces = None if force_parts is None else k_e * (force_parts[0] + force_parts[1])
+    stress = None
+    if virial_parts is not None:
+        bg_virial = (math.pi * net * net / (2.0 * volume * alpha * alpha)) * np.eye(3) if background else 0.0
+        stress = k_e * (virial_parts[0] + virial_parts[1] + bg_virial) / volume
+    for array in (potentials, forces, stress):
+        if array is not None:
+            array.setflags(write=False)
+    return potentials, sum(components.values()), components, forces, stress
+
+
 def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_min=None) -> EwaldResult:
     """Ewald sum with cutoffs chosen for relative energy error ``tol``.
 
@@ -156,20 +214,11 @@ def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_m
     choice = tuning.choose(tol, n, volume, q2, float(np.abs(charges).sum()), d_min, k_e, alpha=alpha)
     a = choice.alpha
 
-    background = abs(net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(q2))
-    if background:
-        warnings.warn(f"{crystal.source + ': ' if crystal.source else ''}the cell carries a net charge of "
-                      f"{net:+.6g} e; a uniform neutralizing background was added", MadelungWarning,
-                      stacklevel=3)
+    background = warn_if_charged(crystal, net, q2)
 
     with thread_budget(choice.predicted_cost):
-        # real space
-        bins = build_bins(cell, positions, choice.real_cutoff)
-        sorted_q = bins.sorted_values(charges)
-        phi_r, f_r, w_r, pairs = kernels.real_space_terms(
-            bins.positions, sorted_q, bins.cell, bins.counts, bins.offsets, bins.bin_of, bins.bin_start,
-            a, choice.real_cutoff, bool(forces), bool(stress))
-        phi_real = bins.unsorted(phi_r)
+        phi_real, force_real, real_w, pairs, reach = real_space_part(
+            cell, positions, charges, a, choice.real_cutoff, forces, stress)
 
         # reciprocal space
         hkl, kvectors, hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
@@ -186,40 +235,22 @@ def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_m
             s2 = np.zeros(0)
             phi_k, f_k = np.zeros(n), np.zeros((n, 3))
 
-    self_potential = -2.0 * a / math.sqrt(math.pi) * charges
-    background_potential = -math.pi * net / (volume * a * a) if background else 0.0
-    potentials = k_e * (phi_real + phi_k + self_potential + background_potential)
-
-    e_real = 0.5 * k_e * float(np.dot(charges, phi_real))
-    e_recip = k_e * 0.5 * float(np.dot(weights, s2))
-    e_self = -k_e * a / math.sqrt(math.pi) * q2
-    e_background = -k_e * math.pi * net * net / (2.0 * volume * a * a) if background else 0.0
-    energy = e_real + e_recip + e_self + e_background
-
-    force_array = None
-    if forces:
-        force_array = k_e * (bins.unsorted(f_r) + f_k)
-        force_array.setflags(write=False)
-
-    stress_array = None
+    recip_virial = None
     if stress:
-        w = w_r.sum(axis=0)
-        real_virial = np.array([[w[0], w[5], w[4]], [w[5], w[1], w[3]], [w[4], w[3], w[2]]])
         # d E_recip / d strain_ab = sum_half 2 w(k)/2 |S|^2 [-delta_ab + 2 k_a k_b (1/k^2 + 1/(4 alpha^2))]
         half = 0.5 * weights * s2
         factor = 2.0 * (1.0 / k2 + 1.0 / (4.0 * a * a)) * half
         recip_virial = -half.sum() * np.eye(3) + np.einsum("m,ma,mb->ab", factor, kvectors, kvectors)
-        bg_virial = (math.pi * net * net / (2.0 * volume * a * a)) * np.eye(3) if background else 0.0
-        stress_array = k_e * (real_virial + recip_virial + bg_virial) / volume
-        stress_array.setflags(write=False)
+    potentials, energy, components, force_array, stress_array = assemble(
+        charges, phi_real, phi_k, 0.5 * float(np.dot(weights, s2)), a, volume, net, background, k_e,
+        (force_real, f_k) if forces else None, (symmetric(real_w), recip_virial) if stress else None)
 
-    potentials.setflags(write=False)
     params = EwaldParameters(
         method="direct", alpha=a, real_cutoff=choice.real_cutoff,
         reciprocal_cutoff=choice.reciprocal_cutoff, real_space_pairs=int(pairs),
-        k_vectors=int(len(hkl)), image_reach=tuple(int(x) for x in bins.reach))
+        k_vectors=int(len(hkl)), image_reach=reach)
     return EwaldResult(
         energy=energy, potentials=potentials, forces=force_array, stress=stress_array, params=params,
         error_estimate=choice.error_estimate, tol=float(tol), energy_scale=k_e * q2 / d_min,
-        components={"real": e_real, "reciprocal": e_recip, "self": e_self, "background": e_background},
-        net_charge=net, background=bool(background), n_atoms=n, seconds=time.perf_counter() - started)
+        components=components, net_charge=net, background=bool(background), n_atoms=n,
+        seconds=time.perf_counter() - started)
