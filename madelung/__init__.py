@@ -33,7 +33,8 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="au
         "direct": the Ewald sum over k-vectors (cost about N^1.5); "mesh": smooth particle-mesh
         Ewald (about N log N); "auto" (default): the one predicted to be faster at this ``tol``,
         each with its own tuned parameters. ``result.params.method`` says which ran, and for
-        "auto" ``result.params.extra["predicted_seconds_by_method"]`` holds both predictions.
+        "auto" ``result.params.extra["predicted_seconds_by_method"]`` holds both predictions
+        (the mesh's is None for sums too small to be worth tuning it).
 
     Returns
     -------
@@ -66,8 +67,9 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="au
         method = min(predictions, key=predictions.get)
     run = ewald_mesh if method == "mesh" else ewald_direct
     result = run(crystal, tol=tol, forces=forces, stress=stress, alpha=alpha, d_min=d_min)
-    if predictions is not None:
-        result.params.extra["predicted_seconds_by_method"] = predictions
+    if predictions is not None:  # None: not predicted (the mesh is not tuned for small sums)
+        result.params.extra["predicted_seconds_by_method"] = {
+            name: (None if seconds == float("inf") else seconds) for name, seconds in predictions.items()}
     return result
 
 

@@ -439,15 +439,26 @@ def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=
         seconds=time.perf_counter() - started)
 
 
+#: Below this predicted direct time (s of one thread) method="auto" takes the direct sum without
+#: tuning the mesh: tuning the mesh and its fixed costs take longer than the mesh could save
+#: (measured on rattled rock salt: the engines break even near 1000 ions, about 20 ms).
+AUTO_DIRECT_BELOW_SECONDS = 0.015
+
+
 def predicted_seconds(crystal, tol, alpha=None, d_min=None):
     """Predicted wall time of each engine at accuracy ``tol``: ``{"direct": s, "mesh": s}``.
 
     Each engine's own tuner picks its parameters and predicts its cost in seconds of one thread
-    of the 2-core reference machine (only the comparison matters for method="auto").
+    of the 2-core reference machine (only the comparison matters for method="auto"). When the
+    direct sum is predicted to take less than :data:`AUTO_DIRECT_BELOW_SECONDS` the mesh is not
+    tuned and its entry is ``inf``.
     """
     cell, _, charges, volume, q2, q_abs, _, d_min = _charge_sums(crystal, d_min)
     n = len(charges)
     k_e = COULOMB_CONSTANT
     direct_choice = tuning.choose(tol, n, volume, q2, q_abs, d_min, k_e, alpha=alpha)
+    direct = 1e-9 * direct_choice.predicted_cost
+    if direct < AUTO_DIRECT_BELOW_SECONDS:
+        return {"direct": direct, "mesh": math.inf}
     mesh_choice = choose_mesh(tol, cell, n, q2, q_abs, d_min, k_e, alpha=alpha)
-    return {"direct": 1e-9 * direct_choice.predicted_cost, "mesh": mesh_choice.predicted_seconds}
+    return {"direct": direct, "mesh": mesh_choice.predicted_seconds}
