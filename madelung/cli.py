@@ -1078,20 +1078,9 @@ RIGID_ION_NOTE = ("Rigid-ion model: formal point charges plus fitted short-range
 
 def _parse_pairs(rules, what, number=True):
     """``KEY=VALUE`` options into a dict (values as floats unless ``number`` is False)."""
-    result = {}
-    for rule in rules or []:
-        key, sep, value = str(rule).partition("=")
-        key = key.strip()
-        if not sep or not key:
-            raise InputError(f"{what} {rule!r} must look like KEY=VALUE")
-        if number:
-            try:
-                result[key] = float(value)
-            except ValueError:
-                raise InputError(f"{what} {rule!r}: {value!r} is not a number") from None
-        else:
-            result[key] = value.strip()
-    return result
+    from .crystal import parse_key_values
+
+    return parse_key_values(rules, what, number=number)
 
 
 def _crystal_from(path, args):

@@ -109,7 +109,7 @@ def _common_factor(charges):
     return numerator / denominator
 
 
-def madelung_constants(crystal, tol=1e-10, method="auto") -> MadelungConstants:
+def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 
     Parameters
@@ -120,6 +120,8 @@ def madelung_constants(crystal, tol=1e-10, method="auto") -> MadelungConstants:
         Relative accuracy of the underlying Ewald sum.
     method : {"auto", "direct", "mesh"}
         Engine of the underlying sum (see :func:`madelung.ewald`).
+    ewald_result : EwaldResult, optional
+        The sum of this very crystal if it has been done already (it is not done again).
 
     Returns
     -------
@@ -135,7 +137,7 @@ def madelung_constants(crystal, tol=1e-10, method="auto") -> MadelungConstants:
     where = f"{crystal.source}: " if crystal.source else ""
     if not (np.any(charges > 0) and np.any(charges < 0)):
         raise InputError(f"{where}a Madelung constant needs both cations and anions")
-    result = ewald(crystal, tol=tol, method=method)
+    result = ewald(crystal, tol=tol, method=method) if ewald_result is None else ewald_result
     if result.background:
         raise InputError(f"{where}the cell carries a net charge of {result.net_charge:+.6g} e; "
                          "Madelung constants are defined for neutral crystals")

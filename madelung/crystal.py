@@ -694,19 +694,28 @@ def _resolve_charges(charges, symbols, labels, where, species=None):
     return result
 
 
-def parse_charge_rules(rules: Sequence[str] | None) -> dict:
-    """Parse command-line rules such as ``Na=+1`` or ``O1=-2`` into a map."""
+def parse_key_values(rules: Sequence[str] | None, what="option", shape="KEY=VALUE", number=True) -> dict:
+    """Parse command-line ``KEY=VALUE`` options into a map (values as floats unless ``number`` is
+    False); a malformed one is an InputError naming it and the ``shape`` wanted."""
     result = {}
     for rule in rules or []:
         key, sep, value = str(rule).partition("=")
         key = key.strip()
         if not sep or not key:
-            raise InputError(f"charge rule {rule!r} must look like ELEMENT=CHARGE or LABEL=CHARGE, e.g. Na=+1")
+            raise InputError(f"{what} {rule!r} must look like {shape}")
+        if not number:
+            result[key] = value.strip()
+            continue
         try:
             result[key] = float(value)
         except ValueError:
-            raise InputError(f"charge rule {rule!r}: {value!r} is not a number") from None
+            raise InputError(f"{what} {rule!r}: {value!r} is not a number") from None
     return result
+
+
+def parse_charge_rules(rules: Sequence[str] | None) -> dict:
+    """Parse command-line rules such as ``Na=+1`` or ``O1=-2`` into a map."""
+    return parse_key_values(rules, "charge rule", "ELEMENT=CHARGE or LABEL=CHARGE, e.g. Na=+1")
 
 
 def warn(message):

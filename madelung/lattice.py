@@ -206,9 +206,10 @@ class LatticeEnergy:
         return {k: v / self.formula_units for k, v in self.per_cell().items()}
 
 
-def closed_forms(crystal, model=None, tol=1e-10) -> ClosedForms:
+def closed_forms(crystal, model=None, tol=1e-10, ewald_result=None) -> ClosedForms:
     """Born–Landé, Born–Mayer and Kapustinskii lattice energies of a crystal with one cation and
     one anion kind, using the computed Madelung constant (handbook convention) and r0.
+    ``ewald_result``: the crystal's Ewald sum if already done.
 
     References
     ----------
@@ -219,7 +220,7 @@ def closed_forms(crystal, model=None, tol=1e-10) -> ClosedForms:
     from .constants import madelung_constants
     from .elements import shannon_radius
 
-    constants = madelung_constants(crystal, tol=tol)
+    constants = madelung_constants(crystal, tol=tol, ewald_result=ewald_result)
     notes = {}
     m = constants.handbook
     if m is None:
@@ -302,7 +303,7 @@ def lattice_energy(crystal, repulsion, tol=1e-10, with_closed_forms=True) -> Lat
     pressure = -np.trace(coulomb.stress + short.stress) / 3.0 * EV_PER_A3_TO_GPA
     forms = None
     if with_closed_forms and np.any(crystal.charges > 0) and np.any(crystal.charges < 0):
-        forms = closed_forms(crystal, model, tol)
+        forms = closed_forms(crystal, model, tol, ewald_result=coulomb)
     return LatticeEnergy(crystal.reduced_formula, crystal.formula_units, len(crystal), coulomb.energy,
                          short.energy, float(pressure), forms)
 
