@@ -47,7 +47,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
-from .geometry import build_bins
+from .geometry import build_bins, thread_budget
 from . import shortrange_kernels
 
 #: Parameters of each form, in the order stored.
@@ -63,8 +63,9 @@ PARAMETER_UNITS = {"B": "eV Å^n", "n": "1", "A": "eV", "rho": "Å", "C": "eV Å
 
 DEFAULT_CUTOFF = 10.0
 DEFAULT_SWITCH_WIDTH = 2.0
-#: Cells with fewer ions are summed on one thread (thread start-up would cost more than the sum).
-SERIAL_BELOW = 64
+#: Rough cost of one examined pair of the short-range sum, ns (an exponential or a power for the
+#: third or so inside the cutoff), for the thread budget.
+EXAMINED_PAIR_NS = 12.0
 FILE_KEY = "madelung_repulsion"
 FILE_VERSION = 1
 
@@ -334,10 +335,11 @@ def shortrange(crystal, model, forces=False, stress=False) -> ShortRangeResult:
     cell = np.ascontiguousarray(crystal.cell, dtype=np.float64)
     bins = build_bins(cell, crystal.positions, model.cutoff)
     r_on = model.cutoff - model.switch_width
-    kernel = shortrange_kernels.pair_terms_serial if len(crystal) < SERIAL_BELOW else shortrange_kernels.pair_terms
-    energy, f, w, pairs = kernel(
-        bins.positions, np.ascontiguousarray(sites[bins.order]), bins.cell, bins.counts, bins.reach,
-        bins.bin_of, bins.bin_start, table, float(r_on), float(model.cutoff), bool(forces), bool(stress))
+    examined = len(crystal) ** 2 * bins.examined_volume / crystal.volume
+    with thread_budget(examined * EXAMINED_PAIR_NS):  # small cells on one thread
+        energy, f, w, pairs = shortrange_kernels.pair_terms(
+            bins.positions, np.ascontiguousarray(sites[bins.order]), bins.cell, bins.counts, bins.reach,
+            bins.bin_of, bins.bin_start, table, float(r_on), float(model.cutoff), bool(forces), bool(stress))
     site_energies = bins.unsorted(energy)
     force_array = bins.unsorted(f) if forces else None
     stress_array = None

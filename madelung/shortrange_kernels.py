@@ -145,18 +145,3 @@ def pair_terms(positions, species, cell, counts, reach, bin_of, bin_start, table
         _ion_terms(i, positions, species, cell, counts, reach, bin_of, bin_start, table, r_on, r_cut,
                    want_forces, want_virial, energy, forces, virial, pair_count)
     return energy, forces, virial, pair_count.sum()
-
-
-@njit(cache=True)
-def pair_terms_serial(positions, species, cell, counts, reach, bin_of, bin_start, table,
-                      r_on, r_cut, want_forces, want_virial):
-    """:func:`pair_terms` on one thread, for small cells where starting threads costs more than the sum."""
-    n = positions.shape[0]
-    energy = np.zeros(n)
-    forces = np.zeros((n, 3))
-    virial = np.zeros((n, 6))
-    pair_count = np.zeros(n, dtype=np.int64)
-    for i in range(n):
-        _ion_terms(i, positions, species, cell, counts, reach, bin_of, bin_start, table, r_on, r_cut,
-                   want_forces, want_virial, energy, forces, virial, pair_count)
-    return energy, forces, virial, pair_count.sum()

@@ -127,11 +127,11 @@ def test_translation_rotation_and_supercell_invariance(shift, seed, angles):
 
 
 def test_threaded_kernel_on_a_large_supercell():
-    # 4 x 4 x 4 copies (256 ions) take the threaded kernel; small cells the one-thread one: same sums
+    # 6 x 6 x 6 copies (864 ions) run on every thread; the small cell on one (geometry.thread_budget): same sums
     crystal = _rattled(5)
     base = shortrange(crystal, MODEL, forces=True, stress=True)
-    big = shortrange(crystal.repeat((4, 4, 4)), MODEL, forces=True, stress=True)
-    assert big.energy == pytest.approx(64 * base.energy, rel=1e-10)
+    big = shortrange(crystal.repeat((6, 6, 6)), MODEL, forces=True, stress=True)
+    assert big.energy == pytest.approx(216 * base.energy, rel=1e-10)
     np.testing.assert_allclose(big.forces[:4], base.forces, atol=1e-9)
     np.testing.assert_allclose(big.stress, base.stress, atol=1e-12)
 
