@@ -14,7 +14,17 @@ def test_table_matches_scipy_to_double_precision():
 
 
 def test_committed_coefficients_are_the_fit():
-    assert np.allclose(fit_table(), ERFCX_TABLE, rtol=1e-12, atol=1e-18)
+    """A refit reproduces the committed table as a function, to a few units in the last place.
+
+    The coefficients themselves may differ in their last bits between numpy/LAPACK builds (a
+    least-squares fit); what the kernels rely on is the function they define, so that is compared,
+    together with the coefficients to a tolerance far below anything that changes erfc.
+    """
+    refit = fit_table()
+    x = np.linspace(0.0, X_MAX, 20001)[:-1]
+    assert np.max(np.abs(evaluate(x, refit) / evaluate(x, ERFCX_TABLE) - 1.0)) < 1e-15
+    scale = np.abs(ERFCX_TABLE).max(axis=1, keepdims=True)
+    assert np.all(np.abs(refit - ERFCX_TABLE) <= 1e-12 * scale)
 
 
 def test_kernel_inline_evaluation():
