@@ -149,3 +149,40 @@ def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut
                     p += 1
         total = p
     return owner, partner, distance
+
+
+@njit(cache=True)
+def half_stencil_rows(offsets):
+    """The half of a symmetric stencil that finds each pair once, as rows along the last axis.
+
+    Returns (R, 4) int64 rows ``(d0, d1, lo, hi)``: the offsets (d0, d1, d2) with lo <= d2 <= hi.
+    Kept are the offsets after (0, 0, 0) in lexicographic order and (0, 0, 0) itself, whose
+    pairs (same bin, same image) are taken only with a later atom. An offset and its negative
+    reach the same pairs from the two ends, so the other half adds nothing. The stencil's offsets
+    with a given (d0, d1) must be a contiguous range of d2 (true of ``geometry.stencil_offsets``).
+    """
+    k = offsets.shape[0]
+    low = offsets.min()
+    width = offsets.max() - low + 1
+    key = np.empty(k, dtype=np.int64)
+    for o in range(k):
+        key[o] = ((offsets[o, 0] - low) * width + offsets[o, 1] - low) * width + offsets[o, 2] - low
+    order = np.argsort(key)
+    rows = np.empty((k, 4), dtype=np.int64)
+    n_rows = 0
+    for p in range(k):
+        o = order[p]
+        d0 = offsets[o, 0]
+        d1 = offsets[o, 1]
+        d2 = offsets[o, 2]
+        if d0 < 0 or (d0 == 0 and (d1 < 0 or (d1 == 0 and d2 < 0))):
+            continue
+        if n_rows > 0 and rows[n_rows - 1, 0] == d0 and rows[n_rows - 1, 1] == d1:
+            rows[n_rows - 1, 3] = d2
+        else:
+            rows[n_rows, 0] = d0
+            rows[n_rows, 1] = d1
+            rows[n_rows, 2] = d2
+            rows[n_rows, 3] = d2
+            n_rows += 1
+    return rows[:n_rows].copy()
