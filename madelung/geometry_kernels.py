@@ -11,9 +11,24 @@ Kernels here do arithmetic only; the Python side (``geometry.py``) builds the bi
 """
 
 import math
+from contextlib import contextmanager
 
+import numba
 import numpy as np
 from numba import njit, prange
+
+
+@contextmanager
+def dynamic_chunks(size):
+    """Parallel loops launched inside hand out ``size`` iterations at a time to whichever thread is
+    free, instead of one equal share per thread fixed in advance: a thread slowed down by another
+    process on its core then does less of the work instead of holding up the others. Meant for
+    loops over a few large pieces (each hand-out costs about half a microsecond)."""
+    previous = numba.set_parallel_chunksize(size)
+    try:
+        yield
+    finally:
+        numba.set_parallel_chunksize(previous)
 
 
 @njit(cache=True, inline="always")

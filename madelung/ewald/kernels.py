@@ -25,7 +25,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import half_stencil_rows
+from ..geometry_kernels import dynamic_chunks, half_stencil_rows
 from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
@@ -107,7 +107,7 @@ def partner_capacity(rows, bin_start):
 
 
 @njit(parallel=True, cache=True, fastmath={"contract"}, error_model="numpy")
-def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
+def _real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
                      alpha, r_cut, want_forces, want_virial):
     """Real-space potentials, forces and per-atom virial of the screened Coulomb sum.
 
@@ -281,7 +281,7 @@ def miller_rows(hkl):
 
 
 @njit(parallel=True, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
-def structure_factors(frac, charges, hkl, hmax, n_chunks):
+def _structure_factors(frac, charges, hkl, hmax, n_chunks):
     """S(k) = sum_j q_j exp(2 pi i (h f1 + k f2 + l f3)) for each Miller triple in ``hkl`` (M, 3).
 
     Atoms are split into ``n_chunks`` chunks; each chunk sums into its own row, rows are added
@@ -349,7 +349,7 @@ def structure_factors(frac, charges, hkl, hmax, n_chunks):
 
 
 @njit(parallel=True, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
-def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
+def _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
     """Reciprocal-space potential (N,) in e/Å and forces (N, 3) in e^2/Å^2 from S(k).
 
     ``weights`` are 2 w(k) for the half-space k-vectors (the factor 2 counts -k).
@@ -449,3 +449,29 @@ def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s
                 forces[first + a, 1] = q * fy[a]
                 forces[first + a, 2] = q * fz[a]
     return potential, forces
+
+
+# Plain-Python entry points: the parallel loops above run over few, large pieces of work, which
+# threads take one at a time as they come free (see ``geometry_kernels.dynamic_chunks``).
+
+
+def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start, alpha, r_cut, want_forces,
+                     want_virial):
+    with dynamic_chunks(1):
+        return _real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start, alpha, r_cut,
+                                 want_forces, want_virial)
+
+
+def structure_factors(frac, charges, hkl, hmax, n_chunks):
+    with dynamic_chunks(1):
+        return _structure_factors(frac, charges, hkl, hmax, n_chunks)
+
+
+def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
+    with dynamic_chunks(1):
+        return _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces)
+
+
+real_space_terms.__doc__ = _real_space_terms.__doc__
+structure_factors.__doc__ = _structure_factors.__doc__
+reciprocal_site_terms.__doc__ = _reciprocal_site_terms.__doc__
