@@ -196,6 +196,27 @@ def nearest_neighbour_distances(cell, positions, charges):
         cutoff *= 2.0
 
 
+def shortest_distance(cell, positions) -> float:
+    """Shortest interionic distance, periodic images included, Å (one pass over each pair once).
+
+    The same value as the minimum of :func:`nearest_neighbour_distances`, without the per-atom
+    bookkeeping: the search starts at twice the mean spacing and doubles until a pair is found.
+    """
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    positions = np.asarray(positions, dtype=np.float64)
+    n = len(positions)
+    cutoff = 2.0 * (abs(np.linalg.det(cell)) / n) ** (1.0 / 3.0)
+    while True:
+        bins = build_bins(cell, positions, cutoff)
+        examined = n * n * bins.examined_volume / abs(np.linalg.det(cell)) / 2
+        with thread_budget(examined * EXAMINED_PAIR_NS):
+            found = gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                        bins.bin_start)
+        if found <= cutoff:
+            return float(found)
+        cutoff *= 2.0
+
+
 def closest_pair_within(cell, positions, limit):
     """The closest pair ``(i, j, distance)`` nearer than ``limit``, or None if there is none."""
     charges = np.zeros(len(positions))

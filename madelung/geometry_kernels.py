@@ -201,3 +201,55 @@ def half_stencil_rows(offsets):
             rows[n_rows, 3] = d2
             n_rows += 1
     return rows[:n_rows].copy()
+
+
+@njit(parallel=True, cache=True, fastmath={"contract"})
+def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
+    """Shortest distance between two atoms, or an atom and another's or its own image, among the
+    pairs the stencil reaches (``inf`` if none), walking each pair once over the half stencil.
+
+    Atoms must be sorted by bin. Each atom's rows of bins are index ranges (see
+    ``ewald.kernels.gather_partners``); the inner loop is a plain minimum over a range.
+    """
+    n = positions.shape[0]
+    rows = half_stencil_rows(offsets)
+    k0 = counts[0]
+    k1 = counts[1]
+    k2 = counts[2]
+    xs = positions[:, 0].copy()
+    ys = positions[:, 1].copy()
+    zs = positions[:, 2].copy()
+    n_chunks = min(n, 64)
+    chunk = (n + n_chunks - 1) // n_chunks
+    best = np.full(n_chunks, np.inf)
+    for c in prange(n_chunks):
+        lowest = np.inf
+        for i in range(c * chunk, min(n, (c + 1) * chunk)):
+            for r in range(rows.shape[0]):
+                c0 = bin_of[i, 0] + rows[r, 0]
+                c1 = bin_of[i, 1] + rows[r, 1]
+                s0 = c0 // k0
+                s1 = c1 // k1
+                base = ((c0 - s0 * k0) * k1 + (c1 - s1 * k1)) * k2
+                own_row = rows[r, 0] == 0 and rows[r, 1] == 0
+                c2 = bin_of[i, 2] + rows[r, 2]
+                last = bin_of[i, 2] + rows[r, 3]
+                s2 = c2 // k2
+                while c2 <= last:
+                    end = min(last, (s2 + 1) * k2 - 1)
+                    j_first = bin_start[base + c2 - s2 * k2]
+                    j_end = bin_start[base + end - s2 * k2 + 1]
+                    if own_row and c2 == bin_of[i, 2]:
+                        j_first = i + 1
+                    ox = xs[i] - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0])
+                    oy = ys[i] - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1])
+                    oz = zs[i] - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
+                    for j in range(j_first, j_end):
+                        dx = ox - xs[j]
+                        dy = oy - ys[j]
+                        dz = oz - zs[j]
+                        lowest = min(lowest, dx * dx + dy * dy + dz * dz)
+                    c2 = end + 1
+                    s2 += 1
+        best[c] = lowest
+    return math.sqrt(best.min())
