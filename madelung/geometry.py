@@ -15,26 +15,24 @@ import numpy as np
 
 from . import geometry_kernels as gk
 
-#: Rounds an idle OpenMP thread spins before it sleeps (GNU OpenMP's default is 300,000, some
-#: hundred microseconds: on a machine shared with other work the spinning threads take cores
-#: from it, and from our own threads that still have work). See benchmarks/threads.py.
-OPENMP_SPIN_ROUNDS = 10000
-
-
 def _choose_threading():
     """Threading layer and OpenMP waiting, unless the user has chosen them.
 
     Numba's "threadsafe" layers (TBB when its library is installed, else OpenMP): kernels may be
     launched from several Python threads at once (ASE calculators, Dask workers), which Numba's
-    own workqueue layer answers by aborting the process. OpenMP's idle threads spin only
-    briefly. Both must be set before the first parallel kernel runs: the layer is fixed then and
-    OpenMP reads its environment once, when it is loaded.
+    own workqueue layer answers by aborting the process. Idle OpenMP threads sleep at once
+    (``OMP_WAIT_POLICY=PASSIVE``) instead of spinning for some hundred microseconds (GNU OpenMP's
+    default), which on a machine shared with other work takes cores from it and from our own
+    threads that still have work; waking a sleeping thread costs some microseconds, and parallel
+    kernels run only for work of milliseconds (``thread_budget``). Measured in
+    benchmarks/threads.py. Both must be set before the first parallel kernel runs: the layer is
+    fixed then, and OpenMP reads its environment once, when it is loaded.
     """
     if "NUMBA_THREADING_LAYER" not in os.environ and numba.config.THREADING_LAYER == "default":
         os.environ["NUMBA_THREADING_LAYER"] = "threadsafe"
         numba.config.THREADING_LAYER = "threadsafe"
-    if not any(name in os.environ for name in ("OMP_WAIT_POLICY", "GOMP_SPINCOUNT")):
-        os.environ["GOMP_SPINCOUNT"] = str(OPENMP_SPIN_ROUNDS)
+    if not any(name in os.environ for name in ("OMP_WAIT_POLICY", "GOMP_SPINCOUNT", "KMP_BLOCKTIME")):
+        os.environ["OMP_WAIT_POLICY"] = "PASSIVE"
 
 
 _choose_threading()

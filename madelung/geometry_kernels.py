@@ -203,19 +203,63 @@ def half_stencil_rows(offsets):
     return rows[:n_rows].copy()
 
 
-@njit(parallel=True, cache=True, fastmath={"contract"})
-def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
-    """Shortest distance between two atoms, or an atom and another's or its own image, among the
-    pairs the stencil reaches (``inf`` if none), walking each pair once over the half stencil.
+@njit(cache=True)
+def range_capacity(rows, counts):
+    """Most index ranges ``half_stencil_ranges`` can return for one atom."""
+    total = 0
+    for r in range(rows.shape[0]):
+        total += (rows[r, 3] - rows[r, 2]) // counts[2] + 2
+    return total
 
-    Atoms must be sorted by bin. Each atom's rows of bins are index ranges (see
-    ``ewald.kernels.gather_partners``); the inner loop is a plain minimum over a range.
+
+@njit(cache=True, inline="always")
+def half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift):
+    """The partners of atom i over the half stencil ``rows``, as index ranges of the sorted atoms:
+    range g is ``first[g]`` to ``end[g] - 1``, its atoms seen shifted by the lattice vector
+    ``shift[g]``. Returns the number of ranges (at most ``range_capacity(rows, counts)``).
+
+    Each row (d0, d1, lo, hi) of bins is contiguous in bin order along the last axis, so its atoms
+    are one index range, or a few when the row crosses the cell edge (one per periodic image).
+    The row (0, 0) starts after atom i in its own bin, so with ``half_stencil_rows`` each pair
+    (i, j, image) is found exactly once. This is the neighbour walk every pair kernel shares.
     """
-    n = positions.shape[0]
-    rows = half_stencil_rows(offsets)
     k0 = counts[0]
     k1 = counts[1]
     k2 = counts[2]
+    b2 = bin_of[i, 2]
+    g = 0
+    for r in range(rows.shape[0]):
+        c0 = bin_of[i, 0] + rows[r, 0]
+        c1 = bin_of[i, 1] + rows[r, 1]
+        s0 = c0 // k0
+        s1 = c1 // k1
+        base = ((c0 - s0 * k0) * k1 + (c1 - s1 * k1)) * k2
+        own_row = rows[r, 0] == 0 and rows[r, 1] == 0
+        c2 = b2 + rows[r, 2]
+        last = b2 + rows[r, 3]
+        s2 = c2 // k2
+        while c2 <= last:
+            stop = min(last, (s2 + 1) * k2 - 1)
+            first[g] = i + 1 if (own_row and c2 == b2) else bin_start[base + c2 - s2 * k2]
+            end[g] = bin_start[base + stop - s2 * k2 + 1]
+            for a in range(3):
+                shift[g, a] = s0 * cell[0, a] + s1 * cell[1, a] + s2 * cell[2, a]
+            g += 1
+            c2 = stop + 1
+            s2 += 1
+    return g
+
+
+@njit(parallel=True, cache=True, fastmath={"contract"})
+def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
+    """Shortest distance between two atoms, or an atom and another's or its own image, among the
+    pairs the stencil reaches (``inf`` if none), walking each pair once (``half_stencil_ranges``).
+
+    Atoms must be sorted by bin; the inner loop is a plain minimum over an index range.
+    """
+    n = positions.shape[0]
+    rows = half_stencil_rows(offsets)
+    capacity = range_capacity(rows, counts)
     xs = positions[:, 0].copy()
     ys = positions[:, 1].copy()
     zs = positions[:, 2].copy()
@@ -223,33 +267,20 @@ def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
     chunk = (n + n_chunks - 1) // n_chunks
     best = np.full(n_chunks, np.inf)
     for c in prange(n_chunks):
+        first = np.empty(capacity, dtype=np.int64)
+        end = np.empty(capacity, dtype=np.int64)
+        shift = np.empty((capacity, 3))
         lowest = np.inf
         for i in range(c * chunk, min(n, (c + 1) * chunk)):
-            for r in range(rows.shape[0]):
-                c0 = bin_of[i, 0] + rows[r, 0]
-                c1 = bin_of[i, 1] + rows[r, 1]
-                s0 = c0 // k0
-                s1 = c1 // k1
-                base = ((c0 - s0 * k0) * k1 + (c1 - s1 * k1)) * k2
-                own_row = rows[r, 0] == 0 and rows[r, 1] == 0
-                c2 = bin_of[i, 2] + rows[r, 2]
-                last = bin_of[i, 2] + rows[r, 3]
-                s2 = c2 // k2
-                while c2 <= last:
-                    end = min(last, (s2 + 1) * k2 - 1)
-                    j_first = bin_start[base + c2 - s2 * k2]
-                    j_end = bin_start[base + end - s2 * k2 + 1]
-                    if own_row and c2 == bin_of[i, 2]:
-                        j_first = i + 1
-                    ox = xs[i] - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0])
-                    oy = ys[i] - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1])
-                    oz = zs[i] - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
-                    for j in range(j_first, j_end):
-                        dx = ox - xs[j]
-                        dy = oy - ys[j]
-                        dz = oz - zs[j]
-                        lowest = min(lowest, dx * dx + dy * dy + dz * dz)
-                    c2 = end + 1
-                    s2 += 1
+            n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
+            for g in range(n_ranges):
+                ox = xs[i] - shift[g, 0]
+                oy = ys[i] - shift[g, 1]
+                oz = zs[i] - shift[g, 2]
+                for j in range(first[g], end[g]):
+                    dx = ox - xs[j]
+                    dy = oy - ys[j]
+                    dz = oz - zs[j]
+                    lowest = min(lowest, dx * dx + dy * dy + dz * dz)
         best[c] = lowest
     return math.sqrt(best.min())

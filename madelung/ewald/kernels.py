@@ -25,7 +25,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import dynamic_chunks, half_stencil_rows
+from ..geometry_kernels import dynamic_chunks, half_stencil_ranges, half_stencil_rows, range_capacity
 from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
@@ -37,60 +37,32 @@ CHUNKS = 8
 
 @njit(cache=True, inline="always")
 def gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_start, cut2,
-                    partner, qs, dxs, dys, dzs, r2s, scratch):
-    """Partners of atom i over the half stencil ``rows``, compacted: returns how many lie within
-    the cutoff; their sorted index, charge, separation r_i - r_j - shift and squared distance are
-    in the first entries of ``partner``, ``qs``, ``dxs``, ``dys``, ``dzs``, ``r2s`` (``scratch`` is
-    work space as long as they are).
+                    first, end, shift, partner, qs, dxs, dys, dzs, r2s):
+    """Partners of atom i over the half stencil ``rows`` (``geometry_kernels.half_stencil_ranges``),
+    compacted: returns how many lie within the cutoff; their sorted index, charge, separation
+    r_i - r_j - shift and squared distance are in the first entries of ``partner``, ``qs``,
+    ``dxs``, ``dys``, ``dzs``, ``r2s``. ``first``, ``end``, ``shift`` are work space for the ranges.
 
-    Each row (d0, d1, lo, hi) of bins is contiguous in bin order along the last axis, so the
-    atoms of a row are one or a few index ranges (one per periodic image the row crosses). Every
-    candidate's index is written and the count advances only inside the cutoff: no branch per pair.
-    The row (0, 0) starts after atom i in its own bin, so each pair is found once.
+    Every candidate is written and the count advances only inside the cutoff: no branch per pair.
     """
-    k0 = counts[0]
-    k1 = counts[1]
-    k2 = counts[2]
-    b0 = bin_of[i, 0]
-    b1 = bin_of[i, 1]
-    b2 = bin_of[i, 2]
-    xi = xs[i]
-    yi = ys[i]
-    zi = zs[i]
+    n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
     m = 0
-    for r in range(rows.shape[0]):
-        c0 = b0 + rows[r, 0]
-        c1 = b1 + rows[r, 1]
-        s0 = c0 // k0
-        s1 = c1 // k1
-        base = ((c0 - s0 * k0) * k1 + (c1 - s1 * k1)) * k2
-        own_row = rows[r, 0] == 0 and rows[r, 1] == 0
-        c2 = b2 + rows[r, 2]
-        last = b2 + rows[r, 3]
-        s2 = c2 // k2
-        while c2 <= last:
-            end = min(last, (s2 + 1) * k2 - 1)
-            j_first = bin_start[base + c2 - s2 * k2]
-            j_end = bin_start[base + end - s2 * k2 + 1]
-            if own_row and c2 == b2:
-                j_first = i + 1
-            ox = xi - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0])
-            oy = yi - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1])
-            oz = zi - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
-            for j in range(j_first, j_end):
-                dx = ox - xs[j]
-                dy = oy - ys[j]
-                dz = oz - zs[j]
-                r2 = dx * dx + dy * dy + dz * dz
-                partner[m] = j
-                qs[m] = charges[j]
-                dxs[m] = dx
-                dys[m] = dy
-                dzs[m] = dz
-                r2s[m] = r2
-                m += r2 < cut2
-            c2 = end + 1
-            s2 += 1
+    for g in range(n_ranges):
+        ox = xs[i] - shift[g, 0]
+        oy = ys[i] - shift[g, 1]
+        oz = zs[i] - shift[g, 2]
+        for j in range(first[g], end[g]):
+            dx = ox - xs[j]
+            dy = oy - ys[j]
+            dz = oz - zs[j]
+            r2 = dx * dx + dy * dy + dz * dz
+            partner[m] = j
+            qs[m] = charges[j]
+            dxs[m] = dx
+            dys[m] = dy
+            dzs[m] = dz
+            r2s[m] = r2
+            m += r2 < cut2
     return m
 
 
@@ -140,11 +112,15 @@ def _real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_sta
     zs = positions[:, 2].copy()
     rows = half_stencil_rows(offsets)
     capacity = partner_capacity(rows, bin_start)
+    n_range = range_capacity(rows, counts)
     derivatives = want_forces or want_virial
     for c in prange(n_chunks):
         phi = potential_part[c]
         force = force_part[c]
         virial = virial_part[c]
+        first = np.empty(n_range, dtype=np.int64)
+        end = np.empty(n_range, dtype=np.int64)
+        shift = np.empty((n_range, 3))
         partner = np.empty(capacity, dtype=np.int64)
         qs = np.empty(capacity)
         dxs = np.empty(capacity)
@@ -153,11 +129,10 @@ def _real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_sta
         r2s = np.empty(capacity)
         screened = np.empty(capacity)
         slope = np.empty(capacity)
-        scratch = np.empty(capacity)
         count = 0
         for i in range(c * chunk, min(n, (c + 1) * chunk)):
             m = gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_start, cut2,
-                                partner, qs, dxs, dys, dzs, r2s, scratch)
+                                first, end, shift, partner, qs, dxs, dys, dzs, r2s)
             count += 2 * m
             qi = charges[i]
             # the pair function, one vectorised loop: erfc(a r)/r and g = -(1/r) d/dr [erfc(a r)/r]
