@@ -250,6 +250,12 @@ def half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, sh
     return g
 
 
+@njit(cache=True, inline="always")
+def range_origin(i, g, xs, ys, zs, shift):
+    """Position of atom i less the lattice shift of range g: r_i - r_j - shift = origin - r_j."""
+    return xs[i] - shift[g, 0], ys[i] - shift[g, 1], zs[i] - shift[g, 2]
+
+
 @njit(parallel=True, cache=True, fastmath={"contract"})
 def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
     """Shortest distance between two atoms, or an atom and another's or its own image, among the
@@ -274,9 +280,7 @@ def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
         for i in range(c * chunk, min(n, (c + 1) * chunk)):
             n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
             for g in range(n_ranges):
-                ox = xs[i] - shift[g, 0]
-                oy = ys[i] - shift[g, 1]
-                oz = zs[i] - shift[g, 2]
+                ox, oy, oz = range_origin(i, g, xs, ys, zs, shift)
                 for j in range(first[g], end[g]):
                     dx = ox - xs[j]
                     dy = oy - ys[j]

@@ -25,7 +25,8 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import dynamic_chunks, half_stencil_ranges, half_stencil_rows, range_capacity
+from ..geometry_kernels import (dynamic_chunks, half_stencil_ranges, half_stencil_rows, range_capacity,
+                                range_origin)
 from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
@@ -48,9 +49,7 @@ def gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_star
     n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
     m = 0
     for g in range(n_ranges):
-        ox = xs[i] - shift[g, 0]
-        oy = ys[i] - shift[g, 1]
-        oz = zs[i] - shift[g, 2]
+        ox, oy, oz = range_origin(i, g, xs, ys, zs, shift)
         for j in range(first[g], end[g]):
             dx = ox - xs[j]
             dy = oy - ys[j]
@@ -234,6 +233,31 @@ def _phase_rows(f, first, count, m, cos_rows, sin_rows):
             sin_rows[m - h, a] = -sin_rows[m + h, a]
 
 
+@njit(cache=True, inline="always")
+def _block_tables(hmax):
+    """Work space of one block: cos and sin tables along the three axes, and a run's factor."""
+    return (np.empty((2 * hmax[0] + 1, BLOCK)), np.empty((2 * hmax[0] + 1, BLOCK)),
+            np.empty((2 * hmax[1] + 1, BLOCK)), np.empty((2 * hmax[1] + 1, BLOCK)),
+            np.empty((2 * hmax[2] + 1, BLOCK)), np.empty((2 * hmax[2] + 1, BLOCK)),
+            np.empty(BLOCK), np.empty(BLOCK))
+
+
+@njit(cache=True, inline="always")
+def _block_phases(frac, first, count, hmax, cos0, sin0, cos1, sin1, cos2, sin2):
+    """Phase tables of atoms ``first`` .. ``first + count - 1`` along the three axes."""
+    _phase_rows(frac[:, 0], first, count, hmax[0], cos0, sin0)
+    _phase_rows(frac[:, 1], first, count, hmax[1], cos1, sin1)
+    _phase_rows(frac[:, 2], first, count, hmax[2], cos2, sin2)
+
+
+@njit(cache=True, inline="always")
+def _run_factor(cos0, sin0, cos1, sin1, ia, ib, count, pre_re, pre_im):
+    """exp(2 pi i (h f1 + k f2)) of each atom of the block, for the run with table rows ia, ib."""
+    for a in range(count):
+        pre_re[a] = cos0[ia, a] * cos1[ib, a] - sin0[ia, a] * sin1[ib, a]
+        pre_im[a] = cos0[ia, a] * sin1[ib, a] + sin0[ia, a] * cos1[ib, a]
+
+
 @njit(cache=True)
 def miller_rows(hkl):
     """Runs of consecutive Miller triples sharing h and k with l rising by one.
@@ -274,38 +298,24 @@ def _structure_factors(frac, charges, hkl, hmax, n_chunks):
     part_re = np.zeros((n_chunks, m_count))
     part_im = np.zeros((n_chunks, m_count))
     chunk = (n + n_chunks - 1) // n_chunks
-    f0 = frac[:, 0].copy()
-    f1 = frac[:, 1].copy()
-    f2 = frac[:, 2].copy()
     h0 = hmax[0]
     h1 = hmax[1]
     h2 = hmax[2]
     for c in prange(n_chunks):
-        cos0 = np.empty((2 * h0 + 1, BLOCK))
-        sin0 = np.empty((2 * h0 + 1, BLOCK))
-        cos1 = np.empty((2 * h1 + 1, BLOCK))
-        sin1 = np.empty((2 * h1 + 1, BLOCK))
-        cos2 = np.empty((2 * h2 + 1, BLOCK))
-        sin2 = np.empty((2 * h2 + 1, BLOCK))
-        pre_re = np.empty(BLOCK)
-        pre_im = np.empty(BLOCK)
+        cos0, sin0, cos1, sin1, cos2, sin2, pre_re, pre_im = _block_tables(hmax)
         out_re = part_re[c]
         out_im = part_im[c]
         stop = min(n, (c + 1) * chunk)
         for first in range(c * chunk, stop, BLOCK):
             count = min(BLOCK, stop - first)
-            _phase_rows(f0, first, count, h0, cos0, sin0)
-            _phase_rows(f1, first, count, h1, cos1, sin1)
-            _phase_rows(f2, first, count, h2, cos2, sin2)
+            _block_phases(frac, first, count, hmax, cos0, sin0, cos1, sin1, cos2, sin2)
             for r in range(n_runs):
                 m0 = start[r]
                 length = start[r + 1] - m0
-                ia = hkl[m0, 0] + h0
-                ib = hkl[m0, 1] + h1
+                _run_factor(cos0, sin0, cos1, sin1, hkl[m0, 0] + h0, hkl[m0, 1] + h1, count, pre_re, pre_im)
                 for a in range(count):
-                    q = charges[first + a]
-                    pre_re[a] = q * (cos0[ia, a] * cos1[ib, a] - sin0[ia, a] * sin1[ib, a])
-                    pre_im[a] = q * (cos0[ia, a] * sin1[ib, a] + sin0[ia, a] * cos1[ib, a])
+                    pre_re[a] *= charges[first + a]
+                    pre_im[a] *= charges[first + a]
                 l0 = l_first[r] + h2
                 for x in range(length):
                     sr = 0.0
@@ -343,9 +353,6 @@ def _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, 
     ws_im = weights * s_imag
     potential = np.zeros(n)
     forces = np.zeros((n, 3))
-    f0 = frac[:, 0].copy()
-    f1 = frac[:, 1].copy()
-    f2 = frac[:, 2].copy()
     h0 = hmax[0]
     h1 = hmax[1]
     h2 = hmax[2]
@@ -353,46 +360,33 @@ def _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, 
     for blk in prange(n_blocks):
         first = blk * BLOCK
         count = min(BLOCK, n - first)
-        cos0 = np.empty((2 * h0 + 1, BLOCK))
-        sin0 = np.empty((2 * h0 + 1, BLOCK))
-        cos1 = np.empty((2 * h1 + 1, BLOCK))
-        sin1 = np.empty((2 * h1 + 1, BLOCK))
-        cos2 = np.empty((2 * h2 + 1, BLOCK))
-        sin2 = np.empty((2 * h2 + 1, BLOCK))
-        pre_re = np.empty(BLOCK)
-        pre_im = np.empty(BLOCK)
+        cos0, sin0, cos1, sin1, cos2, sin2, pre_re, pre_im = _block_tables(hmax)
         phi = np.zeros(BLOCK)
         run_sum = np.empty(BLOCK)
         run_moment = np.empty(BLOCK)
         fx = np.zeros(BLOCK)
         fy = np.zeros(BLOCK)
         fz = np.zeros(BLOCK)
-        _phase_rows(f0, first, count, h0, cos0, sin0)
-        _phase_rows(f1, first, count, h1, cos1, sin1)
-        _phase_rows(f2, first, count, h2, cos2, sin2)
+        _block_phases(frac, first, count, hmax, cos0, sin0, cos1, sin1, cos2, sin2)
         for r in range(n_runs):
             m0 = start[r]
             length = start[r + 1] - m0
-            ia = hkl[m0, 0] + h0
-            ib = hkl[m0, 1] + h1
-            for a in range(count):
-                pre_re[a] = cos0[ia, a] * cos1[ib, a] - sin0[ia, a] * sin1[ib, a]
-                pre_im[a] = cos0[ia, a] * sin1[ib, a] + sin0[ia, a] * cos1[ib, a]
+            _run_factor(cos0, sin0, cos1, sin1, hkl[m0, 0] + h0, hkl[m0, 1] + h1, count, pre_re, pre_im)
             l0 = l_first[r] + h2
-            if want_forces:
+            for a in range(count):
+                run_sum[a] = 0.0
+                run_moment[a] = 0.0
+            for x in range(length):
+                wr = ws_re[m0 + x]
+                wi = ws_im[m0 + x]
                 for a in range(count):
-                    run_sum[a] = 0.0
-                    run_moment[a] = 0.0
-                for x in range(length):
-                    wr = ws_re[m0 + x]
-                    wi = ws_im[m0 + x]
-                    for a in range(count):
-                        p_re = pre_re[a] * cos2[l0 + x, a] - pre_im[a] * sin2[l0 + x, a]
-                        p_im = pre_re[a] * sin2[l0 + x, a] + pre_im[a] * cos2[l0 + x, a]
-                        phi[a] += wr * p_re + wi * p_im
-                        im = wr * p_im - wi * p_re
-                        run_sum[a] += im
-                        run_moment[a] += x * im
+                    p_re = pre_re[a] * cos2[l0 + x, a] - pre_im[a] * sin2[l0 + x, a]
+                    p_im = pre_re[a] * sin2[l0 + x, a] + pre_im[a] * cos2[l0 + x, a]
+                    phi[a] += wr * p_re + wi * p_im
+                    im = wr * p_im - wi * p_re
+                    run_sum[a] += im
+                    run_moment[a] += x * im
+            if want_forces:
                 kx = kvectors[m0, 0]
                 ky = kvectors[m0, 1]
                 kz = kvectors[m0, 2]
@@ -408,14 +402,6 @@ def _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, 
                     fx[a] += kx * run_sum[a] + bx * run_moment[a]
                     fy[a] += ky * run_sum[a] + by * run_moment[a]
                     fz[a] += kz * run_sum[a] + bz * run_moment[a]
-            else:
-                for x in range(length):
-                    wr = ws_re[m0 + x]
-                    wi = ws_im[m0 + x]
-                    for a in range(count):
-                        p_re = pre_re[a] * cos2[l0 + x, a] - pre_im[a] * sin2[l0 + x, a]
-                        p_im = pre_re[a] * sin2[l0 + x, a] + pre_im[a] * cos2[l0 + x, a]
-                        phi[a] += wr * p_re + wi * p_im
         for a in range(count):
             potential[first + a] = phi[a]
             if want_forces:
