@@ -18,6 +18,14 @@ import numpy as np
 from numba import njit, prange
 
 
+#: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
+#: set-up (zeros, sums of a few rows) stays serial, so the loop hand-out size of
+#: :func:`dynamic_chunks` applies to the ``prange`` loops alone (Numba applies it to every
+#: parallel loop, including the ones it makes of array expressions).
+PRANGE_ONLY = {"prange": True, "reduction": True, "numpy": False, "setitem": False, "inplace_binop": False,
+               "comprehension": False, "stencil": False, "fusion": False}
+
+
 @contextmanager
 def dynamic_chunks(size):
     """Parallel loops launched inside hand out ``size`` iterations at a time to whichever thread is
