@@ -11,32 +11,16 @@ Kernels here do arithmetic only; the Python side (``geometry.py``) builds the bi
 """
 
 import math
-from contextlib import contextmanager
-
-import numba
 import numpy as np
 from numba import njit, prange
 
 
 #: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
-#: set-up (zeros, sums of a few rows) stays serial, so the loop hand-out size of
-#: :func:`dynamic_chunks` applies to the ``prange`` loops alone (Numba applies it to every
-#: parallel loop, including the ones it makes of array expressions).
+#: set-up (zeros, sums of a few rows) stays serial instead of becoming parallel regions of its
+#: own, each of which wakes the thread team (costly when the threads sleep between regions, see
+#: ``geometry._choose_threading``, and for small cells).
 PRANGE_ONLY = {"prange": True, "reduction": True, "numpy": False, "setitem": False, "inplace_binop": False,
                "comprehension": False, "stencil": False, "fusion": False}
-
-
-@contextmanager
-def dynamic_chunks(size):
-    """Parallel loops launched inside hand out ``size`` iterations at a time to whichever thread is
-    free, instead of one equal share per thread fixed in advance: a thread slowed down by another
-    process on its core then does less of the work instead of holding up the others. Meant for
-    loops over a few large pieces (each hand-out costs about half a microsecond)."""
-    previous = numba.set_parallel_chunksize(size)
-    try:
-        yield
-    finally:
-        numba.set_parallel_chunksize(previous)
 
 
 @njit(cache=True, inline="always")

@@ -25,7 +25,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import (PRANGE_ONLY, dynamic_chunks, half_stencil_ranges, half_stencil_rows, range_capacity,
+from ..geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
                                 range_origin)
 from .erfc import erfc_and_gaussian
 
@@ -78,7 +78,7 @@ def partner_capacity(rows, bin_start):
 
 
 @njit(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"}, error_model="numpy")
-def _real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
+def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
                      alpha, r_cut, want_forces, want_virial):
     """Real-space potentials, forces and per-atom virial of the screened Coulomb sum.
 
@@ -280,7 +280,7 @@ def miller_rows(hkl):
 
 
 @njit(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
-def _structure_factors(frac, charges, hkl, hmax, n_chunks):
+def structure_factors(frac, charges, hkl, hmax, n_chunks):
     """S(k) = sum_j q_j exp(2 pi i (h f1 + k f2 + l f3)) for each Miller triple in ``hkl`` (M, 3).
 
     Atoms are split into ``n_chunks`` chunks; each chunk sums into its own row, rows are added
@@ -334,7 +334,7 @@ def _structure_factors(frac, charges, hkl, hmax, n_chunks):
 
 
 @njit(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
-def _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
+def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
     """Reciprocal-space potential (N,) in e/Å and forces (N, 3) in e^2/Å^2 from S(k).
 
     ``weights`` are 2 w(k) for the half-space k-vectors (the factor 2 counts -k).
@@ -411,28 +411,3 @@ def _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, 
                 forces[first + a, 2] = q * fz[a]
     return potential, forces
 
-
-# Plain-Python entry points: the parallel loops above run over few, large pieces of work, which
-# threads take one at a time as they come free (see ``geometry_kernels.dynamic_chunks``).
-
-
-def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start, alpha, r_cut, want_forces,
-                     want_virial):
-    with dynamic_chunks(1):
-        return _real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start, alpha, r_cut,
-                                 want_forces, want_virial)
-
-
-def structure_factors(frac, charges, hkl, hmax, n_chunks):
-    with dynamic_chunks(1):
-        return _structure_factors(frac, charges, hkl, hmax, n_chunks)
-
-
-def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
-    with dynamic_chunks(1):
-        return _reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces)
-
-
-real_space_terms.__doc__ = _real_space_terms.__doc__
-structure_factors.__doc__ = _structure_factors.__doc__
-reciprocal_site_terms.__doc__ = _reciprocal_site_terms.__doc__

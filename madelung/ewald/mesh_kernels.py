@@ -24,7 +24,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import PRANGE_ONLY, dynamic_chunks
+from ..geometry_kernels import PRANGE_ONLY
 
 
 @njit(cache=True, inline="always")
@@ -85,7 +85,7 @@ def _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2):
 
 
 @njit(parallel=PRANGE_ONLY, cache=True)
-def _spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
+def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
     """Charge mesh Q(g) = sum_i q_i prod_a M_n(u_ia - g_a) (periodic), shape (K0, K1, K2).
 
     ``order_of_atoms`` lists the ions slab by slab, ``slab_start`` (n_slabs + 1) where each slab's
@@ -129,7 +129,7 @@ def _spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, o
 
 
 @njit(parallel=PRANGE_ONLY, cache=True)
-def _apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, volume, want_virial):
+def apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, volume, want_virial):
     """Mesh energy and virial from the charge spectrum, and the spectrum times C(m) in place.
 
     ``spectrum`` is F[Q] on the real-to-complex half mesh, shape (K0, K1, K2 // 2 + 1);
@@ -196,7 +196,7 @@ def _apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, v
 
 
 @njit(parallel=PRANGE_ONLY, cache=True)
-def _mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
+def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
     """Potential at each ion, sum_g W_i(g) psi(g) (N,), and forces -q_i grad_i of it (N, 3).
 
     ``psi`` is dE/dQ on the mesh; the gradient of the weights is taken through the chain rule
@@ -250,29 +250,3 @@ def _mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
                 forces[i, c] = -q * (g0 * recip[0, c] + g1 * recip[1, c] + g2 * recip[2, c])
     return potential, forces
 
-
-# Plain-Python entry points: threads take the slabs, mesh planes and groups of ions one at a time
-# as they come free (see ``geometry_kernels.dynamic_chunks``).
-
-#: Ions handed out at a time by the interpolation loop.
-IONS_PER_HANDOUT = 256
-
-
-def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
-    with dynamic_chunks(1):
-        return _spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order)
-
-
-def apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, volume, want_virial):
-    with dynamic_chunks(1):
-        return _apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, volume, want_virial)
-
-
-def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
-    with dynamic_chunks(IONS_PER_HANDOUT):
-        return _mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces)
-
-
-spread_charges.__doc__ = _spread_charges.__doc__
-apply_influence.__doc__ = _apply_influence.__doc__
-mesh_site_terms.__doc__ = _mesh_site_terms.__doc__
