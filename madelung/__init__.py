@@ -81,8 +81,9 @@ from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy
 from .thermochemistry import born_haber_cycle  # noqa: E402
 from .calculator import RigidIonCalculator, relax  # noqa: E402
 from .descriptors import describe  # noqa: E402
+from .io.read import Loaded, load, read_crystal  # noqa: E402  (also registers Crystal.from_file / from_ase)
 
-__all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
+__all__ = ["Crystal", "load", "read_crystal", "Loaded", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
            "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning",
            "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
            "charged_cell_correction", "correction_series",

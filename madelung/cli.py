@@ -69,6 +69,12 @@ def _structure_options(parser, charges_from=True):
         parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
                             help="where charges come from: the file (default), assigned oxidation states (auto; "
                                  "states in the file and --charge rules are kept) or charge equilibration")
+    parser.add_argument("--block", metavar="NAME|NUMBER", default=None,
+                        help="the CIF data block (or frame) to read, by name or number counted from 1; needed "
+                             "for a file with several structures")
+    parser.add_argument("--allow-net-charge", action="store_true",
+                        help="sum a cell the file's states and occupancies leave charged, with a uniform "
+                             "neutralizing background (refused by default)")
     parser.add_argument("--occupancy", choices=("average", "error"), default="average",
                         help="mixed or partly occupied sites: occupancy-weighted mean charge with a warning "
                              "(average, default) or refuse the file (error)")
@@ -84,16 +90,19 @@ def _structure_defaults(args):
     from .symmetry import DEFAULT_SYMPREC
 
     for name, value in (("min_distance", 0.5), ("occupancy", "average"), ("max_atoms", DEFAULT_MAX_ATOMS),
-                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input")):
+                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input"),
+                        ("block", None), ("allow_net_charge", False), ("charge", [])):
         if not hasattr(args, name):
             setattr(args, name, value)
     return args
 
 
 def _crystal_options(args):
+    """The loader's options from the command line (:func:`madelung.io.read.load`)."""
     _structure_defaults(args)
-    return dict(source=args.file, min_distance=args.min_distance, occupancy=args.occupancy,
-                max_atoms=args.max_atoms)
+    return dict(block=args.block, min_distance=args.min_distance, occupancy=args.occupancy,
+                max_atoms=args.max_atoms, symprec=args.symprec, allow_net_charge=args.allow_net_charge,
+                mixing_denominator=getattr(args, "mixing_denominator", 2))
 
 
 def load_crystal(args):
@@ -110,21 +119,33 @@ def _load_charged(args):
 
 def _charged(args, ignore_file_states=False):
     """The crystal of the file on the command line and, for --charges-from auto, its assignment."""
-    from .charges import charged_crystal
-    from .crystal import parse_charge_rules, read_structure
+    from .crystal import parse_charge_rules
+    from .io.read import load
 
-    rules = parse_charge_rules(args.charge)
-    atoms = read_structure(args.file, max_atoms=args.max_atoms)
-    return charged_crystal(atoms, getattr(args, "charges_from", "file"), rules, symprec=args.symprec,
-                           mixing_denominator=getattr(args, "mixing_denominator", 2),
-                           ignore_file_states=ignore_file_states, **_crystal_options(args))
+    _structure_defaults(args)
+    loaded = load(args.file, getattr(args, "charges_from", "file"), rules=parse_charge_rules(args.charge),
+                  ignore_file_states=ignore_file_states, **_crystal_options(args))
+    return loaded.crystal, loaded.assignment
+
+
+#: Charge summaries list at most this many entries.
+SUMMARY_ENTRIES = 12
 
 
 def _charge_summary(crystal):
-    seen = {}
-    for symbol, label, q in zip(crystal.symbols, crystal.labels, crystal.charges):
-        seen.setdefault(label, (symbol, q))
-    return ", ".join(f"{label} {q:+g}" for label, (symbol, q) in seen.items())
+    """Charges per site label when the labels name orbits (a CIF), else per element and charge, with
+    counts: never one entry per site of a large cell."""
+    by_label = {}
+    for i, (label, q) in enumerate(zip(crystal.labels, crystal.charges)):
+        by_label.setdefault((label, round(float(q), 9)), []).append(i)
+    if len(by_label) > SUMMARY_ENTRIES:
+        by_label = {}
+        for i, q in enumerate(crystal.charges):
+            by_label.setdefault((crystal.species_label(i), round(float(q), 9)), []).append(i)
+    entries = [f"{name} {q:+g}" + (f" x{len(sites)}" if len(sites) > 1 else "")
+               for (name, q), sites in by_label.items()]
+    more = len(entries) - SUMMARY_ENTRIES
+    return ", ".join(entries[:SUMMARY_ENTRIES]) + (f" and {more} more kinds" if more > 0 else "")
 
 
 def _fmt(value, digits=6):
@@ -362,10 +383,11 @@ def _candidate_json(assignment, candidate, rank):
 
 def _run_charges(args):
     from .charges.oxidation import mixed_note
-    from .crystal import read_structure
+    from .io.read import read_structure
 
     if args.method == "equilibrate":
-        return _run_equilibrate(args, read_structure(args.file, max_atoms=args.max_atoms))
+        return _run_equilibrate(args, read_structure(args.file, block=args.block, max_atoms=args.max_atoms,
+                                                     min_distance=args.min_distance))
     if args.total_charge != 0:
         raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
                          "assigned for a neutral cell")
@@ -414,14 +436,12 @@ def _run_charges(args):
     return 0
 
 
-def _run_equilibrate(args, atoms):
+def _run_equilibrate(args, base):
     from .charges import equilibrate
-    from .crystal import Crystal
     from .symmetry import crystal_symmetry
 
     if args.charge:
         raise InputError(f"{args.file}: --charge cannot be combined with --method equilibrate")
-    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **_crystal_options(args))
     result = equilibrate(base, total_charge=args.total_charge, kernel=args.kernel, dielectric=args.dielectric,
                          tol=args.tol)
     crystal = base.with_charges(result.charges)
@@ -476,7 +496,7 @@ def _run_constant(args):
     from .constants import madelung_constants
 
     files = [args.file, *args.more_files]
-    if len(files) > 1:
+    if len(files) > 1 or (args.block is None and len(_blocks_of(args.file)) > 1):
         return _constant_table(args, files)
     crystal = load_crystal(args)
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
@@ -677,18 +697,35 @@ def _run_interstitials(args):
     return 0
 
 
+def _blocks_of(path):
+    """The data blocks of a CIF with several, else ``[None]`` (errors are left to the reading)."""
+    from .io.read import structure_names
+
+    if not str(path).lower().endswith((".cif", ".mcif")):
+        return [None]
+    try:
+        names = structure_names(path)
+    except InputError:
+        return [None]
+    return names if len(names) > 1 else [None]
+
+
 def _constant_table(args, files):
-    """One row per file; failures are rows too, and the run goes on."""
+    """One row per file, or per data block of a file with several (unless --block picks one); failures
+    are rows too, and the run goes on."""
     from .constants import madelung_constants
 
+    chosen = args.block
+    entries = [(path, block) for path in files for block in ([chosen] if chosen is not None else _blocks_of(path))]
+    files = [path if block is None else f"{path}#{block}" for path, block in entries]
     rows = []
-    for path in files:
-        args.file = path
+    for (path, block), name in zip(entries, files):
+        args.file, args.block = path, block
         try:
             c = madelung_constants(load_crystal(args), tol=args.tol, method=args.method)
-            rows.append({"file": path, "status": "ok", **c.as_dict()})
+            rows.append({"file": name, "status": "ok", **c.as_dict()})
         except InputError as exc:
-            rows.append({"file": path, "status": str(exc)})
+            rows.append({"file": name, "status": str(exc)})
     failed = sum(row["status"] != "ok" for row in rows)
     if args.json:
         _print_json({"structures": rows, "failed": failed})
@@ -756,12 +793,14 @@ def _run_screen(args):
 
     if not args.inputs and not args.db:
         raise InputError("nothing to screen: give files, folders, globs or --db FILE")
+    if args.block is not None:
+        raise InputError("--block picks one structure of one file; screen reads every data block of every file")
     summary = screen(args.inputs, args.out, db=args.db, select=args.select, charges=args.charges_from,
                      charge_rules=parse_charge_rules(args.charge), tol=args.tol, workers=args.workers,
                      scheduler=args.scheduler, timeout=args.timeout, resume=args.resume, sites=args.sites,
                      write_db=args.write_db, chunk_size=args.chunk, progress=not args.no_progress,
                      spectrum_length=args.spectrum_length, symprec=args.symprec, min_distance=args.min_distance,
-                     max_atoms=args.max_atoms, occupancy=args.occupancy)
+                     max_atoms=args.max_atoms, occupancy=args.occupancy, allow_net_charge=args.allow_net_charge)
     if args.json:
         _print_json(summary.as_dict())
         return 0
@@ -1007,7 +1046,7 @@ def parse_cell(text):
 
 
 def _run_correction(args):
-    from .crystal import read_structure
+    from .io.read import read_structure
     from .defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
 
     if (args.file is None) == (args.cell is None):
