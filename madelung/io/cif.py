@@ -148,7 +148,7 @@ def cif_blocks(path):
             blocks = list(parse_cif(io.StringIO(text)))
     except Exception as exc:  # ASE's parser raises many kinds; all mean a malformed file
         message = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(f"{path}: cannot parse the CIF ({message[:160]})") from None
+        raise InputError(f"{path}: cannot read structure (malformed CIF: {message[:160]})") from None
     found = [(block.name, block) for block in blocks if _has_sites(block)]
     if not found:
         raise InputError(f"{path}: cannot read structure (no data block with atom sites: "
