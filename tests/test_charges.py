@@ -134,12 +134,13 @@ def test_ranking_energies_and_potentials_agree_with_the_ewald_sum():
 
 def test_no_neutral_assignment_is_an_error_that_suggests_charge():
     crystal = bare("rocksalt-NaCl.cif")
-    crystal = crystal.replace(symbols=["Mg" if s == "Na" else s for s in crystal.symbols])  # "MgCl"
+    # "MgLi": neither element has a negative state in any list (MgCl now finds the rare Mg+ / Cl-)
+    crystal = crystal.replace(symbols=["Mg" if s == "Na" else "Li" for s in crystal.symbols])
     with pytest.raises(InputError, match="no charge-neutral assignment.*--charge"):
         assign_oxidation_states(crystal)
 
 
-@pytest.mark.parametrize("symbol, message", [("He", "no common oxidation state"), ("Xx", "unknown element")])
+@pytest.mark.parametrize("symbol, message", [("He", "no known oxidation state"), ("Xx", "unknown element")])
 def test_element_without_admissible_state_is_an_error(symbol, message):
     crystal = bare("rocksalt-NaCl.cif")
     crystal = crystal.replace(symbols=[symbol if s == "Na" else s for s in crystal.symbols])
@@ -148,8 +149,9 @@ def test_element_without_admissible_state_is_an_error(symbol, message):
 
 
 def test_cli_reports_a_missing_neutral_assignment_in_one_line(tmp_path, capsys):
-    path = tmp_path / "MgCl.cif"
-    path.write_text(strip_states((STRUCTURES / "rocksalt-NaCl.cif").read_text()).replace(" Na ", " Mg "))
+    path = tmp_path / "MgLi.cif"
+    path.write_text(strip_states((STRUCTURES / "rocksalt-NaCl.cif").read_text()).replace(" Na ", " Mg ")
+                    .replace(" Cl ", " Li "))
     assert main(["charges", str(path)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and str(path) in err[0] and "--charge" in err[0]

@@ -229,8 +229,8 @@ def _as_fraction(value, limit=1000):
 
 def allowed_states(element, mixing_denominator=2, source=None, rare=False):
     """States an orbit of ``element`` may take: its common oxidation states (or, with ``rare``, every
-    known state), plus averages of two adjacent integer states of the same sign, both allowed, in
-    steps of 1/``mixing_denominator``. Fractions, sorted."""
+    known state), plus averages of two adjacent positive integer states, both allowed, in steps of
+    1/``mixing_denominator``. Fractions, sorted."""
     where = f"{source}: " if source else ""
     try:
         states = all_known_states(element) if rare else common_states(element)
@@ -242,7 +242,7 @@ def allowed_states(element, mixing_denominator=2, source=None, rare=False):
     values = {Fraction(s) for s in states}
     for a in states:
         b = a + 1
-        if b not in states or a * b <= 0:
+        if b not in states or a <= 0:      # averages of cation states only (mixed-valence metals)
             continue
         for d in range(2, int(mixing_denominator) + 1):
             for k in range(1, d):
@@ -371,8 +371,10 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
         rare, cut = _enumerate(options, target, int(max_candidates))
         seen = {c.states for c in candidates}
         extra = [scorer.score(_states(options, choice)) for choice in rare]
-        # a rarely seen state is offered only where its bond valences can be checked
-        extra = [c for c in extra if c.states not in seen and (c.rare_sites == 0 or c.bond_valence_misfit is not None)]
+        extra = [c for c in extra if c.states not in seen]
+        # a rarely seen state is offered only where its bond valences can be checked, unless nothing else is left
+        checked = [c for c in extra if c.rare_sites == 0 or c.bond_valence_misfit is not None]
+        extra = checked if (checked or candidates) else extra
         candidates += extra
         truncated = truncated or cut
         use_bvs = _bond_valence_usable(candidates, scorer)
@@ -487,9 +489,10 @@ class _Scorer:
 
 def _misfit_text(candidate):
     m = candidate.bond_valence_misfit
+    rare = f"; {candidate.rare_sites} sites in rarely seen states" if candidate.rare_sites else ""
     if m is None:
-        return "bond valence not checked"
-    return f"bond-valence misfit {m:.1%}" + (" — doubtful" if m > WIDEN_MISFIT else "")
+        return "bond valence not checked" + rare
+    return f"bond-valence misfit {m:.1%}" + (" — doubtful" if m > WIDEN_MISFIT else "") + rare
 
 
 def _reason(candidates, use_bvs):
