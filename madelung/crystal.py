@@ -12,12 +12,11 @@ ASE initial charges).
 
 from __future__ import annotations
 
-import warnings
 from typing import Mapping, Sequence
 
 import numpy as np
 
-from .errors import InputError, MadelungWarning
+from .errors import InputError
 
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
 DEFAULT_MIN_DISTANCE = 0.5
@@ -40,7 +39,8 @@ def _where(source):
     return f"{source}: " if source else ""
 
 
-def _default_labels(symbols):
+def default_labels(symbols):
+    """Labels made of the symbol and a running number per element: Na1, Na2, Cl1, ..."""
     counts: dict[str, int] = {}
     labels = []
     for symbol in symbols:
@@ -119,7 +119,7 @@ class Crystal:
         if len(symbols) != n:
             raise InputError(f"{where}{len(symbols)} symbols given for {n} sites")
         if labels is None:
-            labels = _default_labels(symbols)
+            labels = default_labels(symbols)
         labels = [str(s) for s in labels]
         if len(labels) != n:
             raise InputError(f"{where}{len(labels)} labels given for {n} sites")
@@ -220,7 +220,7 @@ class Crystal:
             return parts[0][0]
         states = self.states_of(i)
         if len({el for el, _ in parts}) < len(parts):     # one element in several states: name them
-            return "".join(f"{_ion(el, st)}{occ:g}" for (el, occ), st in zip(parts, states))
+            return "".join(f"{ion_text(el, st)}{occ:g}" for (el, occ), st in zip(parts, states))
         return "".join(f"{el}{occ:g}" for el, occ in parts)
 
     def is_averaged(self, i) -> bool:
@@ -302,7 +302,8 @@ class Crystal:
 
         ``charges``: None or ``"file"`` (ASE initial charges), ``"auto"`` (assigned oxidation
         states), ``"equilibrate"``, an array, or a map by element or site label. ``source`` names
-        the structure in messages; ``max_atoms`` sets a size limit (default none); the other
+        the structure in messages; ``labels`` replaces the site labels; ``max_atoms`` sets a size
+        limit (default none); the other
         options (``min_distance``, ``occupancy``, ``symprec``, ``allow_net_charge``, ...) are those
         of :func:`madelung.io.read.load`.
         """
@@ -379,7 +380,8 @@ def _resolve_species(species, symbols, occupancies, labels, where):
     return tuple(result)
 
 
-def _ion(element, state):
+def ion_text(element, state):
+    """``Mn3+``, ``O2-``, ``Cl-``, ``Fe2.5+``; the bare element when the state is unknown."""
     if state is None:
         return element
     magnitude = abs(float(state))
@@ -486,7 +488,3 @@ def parse_key_values(rules: Sequence[str] | None, what="option", shape="KEY=VALU
 def parse_charge_rules(rules: Sequence[str] | None) -> dict:
     """Parse command-line rules such as ``Na=+1`` or ``O1=-2`` into a map."""
     return parse_key_values(rules, "charge rule", "ELEMENT=CHARGE or LABEL=CHARGE, e.g. Na=+1")
-
-
-def warn(message):
-    warnings.warn(message, MadelungWarning, stacklevel=3)

@@ -30,6 +30,7 @@ from ase.data import chemical_symbols
 from ase.io.cif import parse_cif
 from scipy.spatial import cKDTree
 
+from ..crystal import ion_text
 from ..errors import InputError, MadelungWarning
 
 #: Rows (and symmetry images) closer than this, Å, are one site.
@@ -70,15 +71,6 @@ def parse_typed_symbol(text):
         return element, (value if sign == "+" else -value)
     element = element_of(text)
     return (element if element else text), None
-
-
-def ion_text(element, state):
-    """``Mn3+``, ``O2-``, ``Cl-``, ``Fe2.5+``; the bare element when the state is unknown."""
-    if state is None:
-        return element
-    magnitude = abs(float(state))
-    number = "" if magnitude == 1 else f"{magnitude:g}"
-    return f"{element}{number}{'+' if state > 0 else '-'}"
 
 
 @dataclass(frozen=True)

@@ -36,10 +36,11 @@ import numpy as np
 
 from ..charges import assign_oxidation_states, equilibrate
 from ..charges.oxidation import OxidationAssignment
-from ..crystal import CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size, use_loader
+from ..crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size,
+                       default_labels, use_loader)
 from ..errors import InputError, MadelungWarning
 from ..symmetry import DEFAULT_SYMPREC
-from .cif import SiteTable, block_sites, choose_block, cif_blocks, ion_text
+from .cif import SiteTable, block_sites, choose_block, cif_blocks
 
 #: A file's net charge up to this fraction of sum |q| is taken as rounding of its occupancies
 #: (summed with a background and a warning); above it the cell is refused unless allowed.
@@ -135,7 +136,7 @@ def sites_from_atoms(atoms, source=None) -> SiteTable:
         raise InputError(f"{where}the structure contains a non-finite coordinate or cell length")
     symbols = atoms.get_chemical_symbols()
     labels = atoms.arrays.get("labels")
-    labels = tuple(str(x) for x in labels) if labels is not None else _default_labels(symbols)
+    labels = tuple(str(x) for x in labels) if labels is not None else tuple(default_labels(symbols))
     occupancies = atoms.arrays.get("occupancies")
     occupancies = np.ones(len(atoms)) if occupancies is None else np.asarray(occupancies, dtype=float)
     initial = np.array(atoms.get_initial_charges(), dtype=float)
@@ -143,15 +144,6 @@ def sites_from_atoms(atoms, source=None) -> SiteTable:
     info = {k: v for k, v in atoms.info.items() if isinstance(v, (str, int, float))}
     return SiteTable(np.array(atoms.cell, dtype=float), positions, labels, species,
                      initial if np.any(initial != 0) else None, None, info)
-
-
-def _default_labels(symbols):
-    counts = {}
-    labels = []
-    for symbol in symbols:
-        counts[symbol] = counts.get(symbol, 0) + 1
-        labels.append(f"{symbol}{counts[symbol]}")
-    return tuple(labels)
 
 
 # ---------------------------------------------------------------- charges
@@ -395,7 +387,12 @@ def _from_file(cls, path, charges=None, **options):
     return read_crystal(path, charges, **options)
 
 
-def _from_ase(cls, atoms, charges=None, *, source=None, max_atoms=None, **options):
+def _from_ase(cls, atoms, charges=None, *, source=None, max_atoms=None, labels=None, **options):
+    if labels is not None:
+        if len(labels) != len(atoms):
+            raise InputError(f"{_where(source)}{len(labels)} labels given for {len(atoms)} sites")
+        atoms = atoms.copy()
+        atoms.arrays["labels"] = np.array([str(x) for x in labels], dtype=object).astype(str)
     return read_crystal(atoms, charges, name=source, max_atoms=max_atoms, **options)
 
 
