@@ -324,8 +324,8 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
     crystal : Crystal
         The structure (its charges are ignored).
     known_states : sequence, optional
-        Per site, a tuple with the state of each species or None where unknown (as
-        :func:`madelung.crystal.file_states` returns); these are kept.
+        Per site, a tuple with the state of each species or None where unknown (the loader,
+        :mod:`madelung.io.read`, passes the file's states and the charge rules); these are kept.
     symprec : float
         Symmetry tolerance for the orbits, Å.
     mixing_denominator : int
