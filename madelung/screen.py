@@ -50,7 +50,8 @@ import numpy as np
 
 from .errors import InputError
 from .io.cif import cif_block_count
-from .io.read import load, structure_names
+from .crystal import check_size
+from .io.read import charge_table, read_sites, sites_from_atoms, structure_names
 
 #: Columns that come before the descriptors, with their types.
 ID_COLUMNS = {"index": "int", "source": "str", "db_id": "int", "status": "str", "space_group": "str",
@@ -255,9 +256,9 @@ def prepare_process():
 
 
 def _read_atoms(task, options):
-    """The structure of a task: the path itself (the loader reads it) or an ``ase.Atoms`` of a database row."""
+    """The sites of a task, read by the loader (a file, or an ``ase.Atoms`` of a database row)."""
     if task.db_id < 0:
-        return task.path
+        return read_sites(task.path, block=task.block, max_atoms=options.max_atoms)
     import ase.db
 
     connection = _DATABASES.get(task.path)
@@ -269,14 +270,15 @@ def _read_atoms(task, options):
         raise InputError(f"{task.source}: no such row") from None
     if len(atoms) == 0:
         raise InputError(f"{task.source}: contains no atoms")
-    return atoms
+    check_size(len(atoms), options.max_atoms, task.source)
+    return sites_from_atoms(atoms, task.source)
 
 
-def _charged_crystal(structure, task, options):
-    """The crystal of a task with charges as the options say, through the one loader."""
-    return load(structure, options.charges, rules=dict(options.rules), block=task.block, name=task.source,
-                symprec=options.symprec, min_distance=options.min_distance, occupancy=options.occupancy,
-                max_atoms=options.max_atoms, allow_net_charge=options.allow_net_charge).crystal
+def _charged_crystal(table, task, options):
+    """The crystal of a task with charges as the options say, by the loader's own charge step."""
+    return charge_table(table, options.charges, rules=dict(options.rules), source=task.source,
+                        symprec=options.symprec, min_distance=options.min_distance, occupancy=options.occupancy,
+                        max_atoms=options.max_atoms, allow_net_charge=options.allow_net_charge).crystal
 
 
 def _space_group(crystal, symprec):

@@ -56,6 +56,7 @@ from fractions import Fraction
 import numpy as np
 
 from .. import elements
+from ..crystal import ion_text
 from ..errors import InputError
 from ..ewald.matrix import potentials_for_charge_sets
 from ..symmetry import DEFAULT_SYMPREC, analyse
@@ -102,8 +103,12 @@ class SiteGroup:
 
     @property
     def species_label(self) -> str:
+        """As :meth:`madelung.Crystal.species_label`: ``Fe0.5Ti0.5``, ``Mn3+0.7Mn4+0.3`` (states shown
+        where one element comes in several)."""
         if len(self.species) == 1 and self.species[0][1] >= 1 - 1e-6:
             return self.species[0][0]
+        if len({el for el, _ in self.species}) < len(self.species):
+            return "".join(f"{ion_text(el, st)}{occ:g}" for (el, occ), st in zip(self.species, self.fixed))
         return "".join(f"{el}{occ:g}" for el, occ in self.species)
 
 
