@@ -377,17 +377,15 @@ def _candidate_json(assignment, candidate, rank):
             "wrong_sign_sites": candidate.wrong_sign_sites,
             "bond_valence_misfit": candidate.bond_valence_misfit,
             "mixed_valence_orbits": candidate.mixed_groups,
+            "sites_in_rarely_seen_states": candidate.rare_sites,
             "energy_per_formula_unit_eV": candidate.energy_per_formula_unit,
             "energy_per_formula_unit_kJ_per_mol": candidate.energy_per_formula_unit * EV_TO_KJ_PER_MOL}
 
 
 def _run_charges(args):
     from .charges.oxidation import mixed_note
-    from .io.read import read_structure
-
     if args.method == "equilibrate":
-        return _run_equilibrate(args, read_structure(args.file, block=args.block, max_atoms=args.max_atoms,
-                                                     min_distance=args.min_distance))
+        return _run_equilibrate(args)
     if args.total_charge != 0:
         raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
                          "assigned for a neutral cell")
@@ -397,6 +395,7 @@ def _run_charges(args):
         _print_json({"file": args.file, "formula": crystal.reduced_formula, "space_group": a.space_group,
                      "method": "oxidation-state assignment", "reason": a.reason,
                      "bond_valence_used_in_ranking": a.used_bond_valence, "truncated": a.truncated,
+                     "searched_rarely_seen_states": a.searched_rare_states,
                      "candidates": [_candidate_json(a, c, k + 1) for k, c in enumerate(a.candidates)],
                      "note": "formal oxidation states: bookkeeping of the ionic limit, not measured charges"})
         return 0
@@ -431,21 +430,24 @@ def _run_charges(args):
     print(f"  why         {a.reason}")
     if not a.used_bond_valence:
         print("  bond valence  not used in the ranking (parameters missing for some bonds or sites averaged)")
+    if a.searched_rare_states:
+        print("  searched    rarely seen oxidation states too (no common assignment was neutral, or its bond "
+              "valences misfit by more than 25 %)")
     print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
           "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
     return 0
 
 
-def _run_equilibrate(args, base):
-    from .charges import equilibrate
+def _run_equilibrate(args):
+    from .io.read import load
     from .symmetry import crystal_symmetry
 
     if args.charge:
         raise InputError(f"{args.file}: --charge cannot be combined with --method equilibrate")
-    result = equilibrate(base, total_charge=args.total_charge, kernel=args.kernel, dielectric=args.dielectric,
-                         tol=args.tol)
-    crystal = base.with_charges(result.charges)
-    symmetry = crystal_symmetry(base, symprec=args.symprec, by_charge=False)
+    loaded = load(args.file, "equilibrate", total_charge=args.total_charge, kernel=args.kernel,
+                  dielectric=args.dielectric, tol=args.tol, **_crystal_options(args))
+    crystal, result = loaded.crystal, loaded.equilibration
+    symmetry = crystal_symmetry(crystal, symprec=args.symprec, by_charge=False)
     rows = []
     for orbit in symmetry.orbits:
         q = result.charges[list(orbit.sites)]

@@ -34,7 +34,7 @@ from typing import Mapping
 import ase.io
 import numpy as np
 
-from ..charges import assign_oxidation_states, equilibrate
+from ..charges import EquilibrationResult, assign_oxidation_states, equilibrate
 from ..charges.oxidation import OxidationAssignment
 from ..crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size,
                        default_labels, use_loader)
@@ -157,12 +157,14 @@ class Loaded:
     assignment : the ranked oxidation-state assignment for ``charges="auto"``, else None.
     block : the CIF data block (or frame number) read, or None for a one-structure file.
     charges_from : where the charges came from ("file", "auto", "equilibrate", "given").
+    equilibration : the charge-equilibration result for ``charges="equilibrate"``, else None.
     """
 
     crystal: Crystal
     assignment: OxidationAssignment | None
     block: str | None
     charges_from: str
+    equilibration: EquilibrationResult | None = None
 
     def to_dict(self) -> dict:
         c = self.crystal
@@ -292,7 +294,7 @@ def charge_table(table, charges="file", *, rules=None, source=None, min_distance
         base = _crystal(table, zeros, None, source, min_distance, max_atoms)
         _check_averaged(base, occupancy)
         result = equilibrate(base, **charge_options)
-        return Loaded(base.with_charges(result.charges), None, block, "equilibrate")
+        return Loaded(base.with_charges(result.charges), None, block, "equilibrate", result)
     known = _known_states(table, rules, not ignore_file_states, where)
     if charges == "auto":
         base = _crystal(table, zeros, None, source, min_distance, max_atoms)
