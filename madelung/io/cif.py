@@ -274,6 +274,9 @@ def _rows(block, cell):
         raise InputError(f"the atom-site loop has {len(labels)} labels for {n} coordinates")
     type_symbols = type_symbols or _column(block, "_atom_site_type_symbol", n)
     columns = [_column(block, axis, n) for axis in axes]
+    for axis, column in zip(axes, columns):
+        if column is None:
+            raise InputError(f"the atom-site loop has no {axis}")
     occupancies = _column(block, "_atom_site_occupancy", n)
     table = {}
     names, numbers = _column(block, "_atom_type_symbol"), _column(block, "_atom_type_oxidation_number")
@@ -362,6 +365,16 @@ def _gather(frac, cell, tolerance):
 
 def block_sites(block, path, max_atoms=None, tolerance=SITE_TOLERANCE) -> SiteTable:
     """The expanded sites of one data block (see the module docstring)."""
+    try:
+        return _block_sites(block, path, max_atoms, tolerance)
+    except InputError:
+        raise
+    except (ValueError, TypeError, KeyError, IndexError, AttributeError, ZeroDivisionError) as exc:
+        message = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(f"{path}: malformed atom-site table ({message[:160]})") from None
+
+
+def _block_sites(block, path, max_atoms, tolerance):
     where = f"{path}: "
     cell = _cell(block, path)
     try:
