@@ -496,9 +496,10 @@ def _add_constant(sub):
 
 def _run_constant(args):
     from .constants import madelung_constants
+    from .io.read import structures_to_read
 
     files = [args.file, *args.more_files]
-    if len(files) > 1 or (args.block is None and len(_blocks_of(args.file)) > 1):
+    if len(files) > 1 or (args.block is None and len(structures_to_read(args.file)) > 1):
         return _constant_table(args, files)
     crystal = load_crystal(args)
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
@@ -699,26 +700,15 @@ def _run_interstitials(args):
     return 0
 
 
-def _blocks_of(path):
-    """The data blocks of a CIF with several, else ``[None]`` (errors are left to the reading)."""
-    from .io.read import structure_names
-
-    if not str(path).lower().endswith((".cif", ".mcif")):
-        return [None]
-    try:
-        names = structure_names(path)
-    except InputError:
-        return [None]
-    return names if len(names) > 1 else [None]
-
-
 def _constant_table(args, files):
     """One row per file, or per data block of a file with several (unless --block picks one); failures
     are rows too, and the run goes on."""
     from .constants import madelung_constants
+    from .io.read import structures_to_read
 
     chosen = args.block
-    entries = [(path, block) for path in files for block in ([chosen] if chosen is not None else _blocks_of(path))]
+    entries = [(path, block) for path in files
+               for block in ([chosen] if chosen is not None else structures_to_read(path))]
     files = [path if block is None else f"{path}#{block}" for path, block in entries]
     rows = []
     for (path, block), name in zip(entries, files):

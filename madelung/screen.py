@@ -49,9 +49,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
-from .io.cif import cif_block_count
 from .crystal import check_size
-from .io.read import charge_table, read_sites, sites_from_atoms, structure_names
+from .io.read import charge_table, read_sites, sites_from_atoms, structures_to_read
 
 #: Columns that come before the descriptors, with their types.
 ID_COLUMNS = {"index": "int", "source": "str", "db_id": "int", "status": "str", "space_group": "str",
@@ -199,8 +198,8 @@ def iter_tasks(inputs=(), db=None, select=None):
             if path in seen:
                 continue
             seen.add(path)
-            blocks = _blocks(path)
-            for block in blocks:   # a file with several CIF data blocks gives one task per block
+            blocks = structures_to_read(path)
+            for block in blocks:   # a file with several data blocks (or frames) gives one task per block
                 source = path if len(blocks) == 1 else f"{path}#{block}"
                 yield Task(index, source, path, block=None if len(blocks) == 1 else block)
                 index += 1
@@ -209,17 +208,6 @@ def iter_tasks(inputs=(), db=None, select=None):
         for row_id in _database_ids(database, select):
             yield Task(index, f"{database}@{row_id}", database, row_id)
             index += 1
-
-
-def _blocks(path):
-    """Block names of a CIF with several data blocks, else ``[None]`` (one structure; errors are left
-    to the task's row)."""
-    if not path.lower().endswith((".cif", ".mcif")) or cif_block_count(path) < 2:
-        return [None]
-    try:
-        return structure_names(path)
-    except InputError:
-        return [None]
 
 
 def count_tasks(inputs=(), db=None, select=None) -> int:

@@ -11,6 +11,7 @@ import json
 from contextlib import redirect_stderr, redirect_stdout
 from pathlib import Path
 
+import ase.io
 import numpy as np
 import pytest
 from ase import Atoms
@@ -256,3 +257,20 @@ def test_loaded_result_and_top_level_names():
     assert madelung.read_crystal(STRUCTURES / "rocksalt-NaCl.cif").net_charge == pytest.approx(0)
     assert isinstance(Crystal.from_ase(Atoms("NaCl", positions=[[0, 0, 0], [2.8, 0, 0]], cell=[5.6, 3, 3],
                                              pbc=True), {"Na": 1, "Cl": -1}), Crystal)
+
+
+def test_frames_of_a_trajectory_are_structures_too(tmp_path):
+    # an extended-XYZ file with two frames is refused by one-structure commands and read frame by
+    # frame by constant (the NaCl handbook constant, CRC, for both frames)
+    nacl = Crystal.from_file(STRUCTURES / "rocksalt-NaCl.cif").to_ase()
+    bigger = nacl.copy()
+    bigger.set_cell(nacl.cell * 1.1, scale_atoms=True)
+    path = tmp_path / "two.extxyz"
+    ase.io.write(path, [nacl, bigger], format="extxyz")
+    with pytest.raises(InputError, match=r"2 structures \(frames\) \(1, 2\)"):
+        Crystal.from_file(path)
+    assert Crystal.from_file(path, block=2).volume == pytest.approx(nacl.get_volume() * 1.331)
+    code, out, err = run(["constant", str(path), "--json"])
+    assert code == 0, err
+    rows = json.loads(out)["structures"]
+    assert len(rows) == 2 and all(r["handbook"] == pytest.approx(ROCKSALT_M, abs=1e-5) for r in rows)

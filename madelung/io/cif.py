@@ -152,15 +152,15 @@ def _has_sites(block):
     return "_atom_site_fract_x" in block or "_atom_site_cartn_x" in block
 
 
-def choose_block(blocks, block, path):
+def choose_block(blocks, block, path, kind="data blocks"):
     """The one block of ``blocks`` named by ``block``: a block name (``data_NAME`` without ``data_``)
     or a number counted from 1 (negative from the end). Without ``block``, a file with several
-    blocks is refused with their names."""
+    blocks (or frames: ``kind``) is refused with their names."""
     names = [name for name, _ in blocks]
     if block is None:
         if len(blocks) == 1:
             return blocks[0]
-        raise InputError(f"{path}: {len(blocks)} data blocks ({', '.join(names[:8])}"
+        raise InputError(f"{path}: {len(blocks)} {kind} ({', '.join(names[:8])}"
                          f"{', ...' if len(names) > 8 else ''}); choose one with --block NAME or --block NUMBER")
     text = str(block).strip()
     if text.lower().startswith("data_"):

@@ -40,7 +40,7 @@ from ..crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, 
                        default_labels, use_loader)
 from ..errors import InputError, MadelungWarning
 from ..symmetry import DEFAULT_SYMPREC
-from .cif import SiteTable, block_sites, choose_block, cif_blocks
+from .cif import SiteTable, block_sites, choose_block, cif_block_count, cif_blocks
 
 #: A file's net charge up to this fraction of sum |q| is taken as rounding of its occupancies
 #: (summed with a background and a warning); above it the cell is refused unless allowed.
@@ -99,6 +99,27 @@ def structure_names(path, *, format=None) -> list:
     return [str(k + 1) for k in range(len(_read_frames(path, format, None)))]
 
 
+#: File endings that may hold several frames (read frame by frame by ``constant`` and ``screen``).
+MULTI_FRAME_ENDINGS = (".traj", ".xyz", ".extxyz")
+
+
+def structures_to_read(path) -> list:
+    """For a command that takes many structures: the block (or frame) names of a file holding several,
+    else ``[None]`` (one structure; a file that cannot be read is left to the reading, which says why)."""
+    path = os.fspath(path)
+    lower = path.lower()
+    try:
+        if lower.endswith((".cif", ".mcif")):
+            if cif_block_count(path) < 2:
+                return [None]
+        elif not lower.endswith(MULTI_FRAME_ENDINGS):
+            return [None]
+        names = structure_names(path)
+    except InputError:
+        return [None]
+    return names if len(names) > 1 else [None]
+
+
 def read_sites(path, *, block=None, format=None, max_atoms=DEFAULT_MAX_ATOMS) -> SiteTable:
     """The sites of one structure in a file (no charges decided yet).
 
@@ -114,7 +135,7 @@ def read_sites(path, *, block=None, format=None, max_atoms=DEFAULT_MAX_ATOMS) ->
         return table
     frames = _read_frames(path, format, max_atoms)
     names = [str(k + 1) for k in range(len(frames))]
-    chosen = choose_block(list(zip(names, frames)), block, path)
+    chosen = choose_block(list(zip(names, frames)), block, path, kind="structures (frames)")
     table = sites_from_atoms(chosen[1], path)
     return SiteTable(table.cell, table.positions, table.labels, table.species, table.initial_charges,
                      block=chosen[0] if len(frames) > 1 else None, info=table.info)
