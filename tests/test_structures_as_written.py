@@ -109,6 +109,8 @@ def test_charged_type_symbols_in_both_orders():
     assert parse_typed_symbol("Fe+3") == ("Fe", 3.0)
     assert parse_typed_symbol("Mn3.5+") == ("Mn", 3.5)
     assert parse_typed_symbol("O2-") == ("O", -2.0)
+    assert parse_typed_symbol("FE3+") == ("Fe", 3.0)
+    assert parse_typed_symbol("Fe") == ("Fe", None)
 
 
 # ---------------------------------------------------------------- data blocks

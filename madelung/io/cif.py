@@ -62,6 +62,10 @@ def parse_typed_symbol(text):
     """Split a CIF type symbol such as ``Fe3+``, ``O2-``, ``Cl-``, ``Cs+1`` or ``Cl-1`` into
     (element, charge); ``(element, None)`` when the symbol carries no charge (``Fe``, ``Fe1``)."""
     text = str(text).strip()
+    if len(text) > 1 and text[1].isalpha():
+        text = text[0].upper() + text[1].lower() + text[2:]      # "FE3+" and "fe3+" mean Fe3+
+    else:
+        text = text[:1].upper() + text[1:]
     match = _TYPED.match(text)
     if match:
         element, magnitude, sign, sign_first, magnitude_after = match.groups()
