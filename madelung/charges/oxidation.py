@@ -373,7 +373,12 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
     widened = not candidates or (candidates[0].bond_valence_misfit or 0) > WIDEN_MISFIT
     if widened:
         options = _options(groups, mixing_denominator, source, True)
-        rare, cut = _enumerate(options, target, int(max_candidates))
+        try:
+            rare, cut = _enumerate(options, target, int(max_candidates))
+        except InputError:
+            if not candidates:
+                raise
+            rare, cut = [], True          # too many rare combinations: keep the common-state candidates
         seen = {c.states for c in candidates}
         extra = [scorer.score(_states(options, choice)) for choice in rare]
         extra = [c for c in extra if c.states not in seen]
