@@ -498,6 +498,12 @@ def _run_constant(args):
         print(f"  {name:<16} {_fmt(value, 10):>15}   {CONVENTION_TEXT[name]}")
         if note:
             print(f"  {'':<16} {'':>15}   {note}")
+    if abs(c.r0_mean_first_shell - c.r0) > 1e-6 * c.r0:
+        print(f"\n  with r0 = mean first-shell cation–anion distance {c.r0_mean_first_shell:.6f} Å "
+              "(the choice behind tabulated values for uneven shells):")
+        print(f"  {'charges_left_in':<16} {_fmt(c.charges_left_in_mean_first_shell, 10):>15}")
+        if c.handbook_mean_first_shell is not None:
+            print(f"  {'handbook':<16} {_fmt(c.handbook_mean_first_shell, 10):>15}")
     print(f"\n  estimated error of the constants {c.error_estimate:.1e}")
     print(f"  note        {MODEL_NOTE}")
     return 0

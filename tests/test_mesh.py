@@ -217,3 +217,23 @@ def test_failed_check_refines_the_mesh(monkeypatch, rng):
     assert len(refined.params.extra["checks"]) >= 2 and refined.params.extra["check"]["kind"] == "subsample"
     assert np.prod(refined.params.extra["mesh"]) > np.prod(coarse.params.extra["mesh"])
     assert abs(refined.energy - reference.energy) <= tol * reference.energy_scale
+
+
+def test_proxy_check_catches_an_optimistic_estimate(monkeypatch, rng):
+    # with the subsample check priced out, the proxy cell (same splitting parameter and mesh step,
+    # random ions) must expose an estimate 10^4 times too optimistic and refine the mesh
+    optimistic = {n: (a * 1e-4, s) for n, (a, s) in tuning.MESH_ERROR_MODEL.items()}
+    monkeypatch.setattr(tuning, "MESH_ERROR_MODEL", optimistic)
+    monkeypatch.setattr(mesh_module, "CHECK_SHARE", 0.0)
+    base = load("rocksalt-NaCl").repeat(3)
+    crystal = base.replace(positions=base.positions + rng.normal(0.0, 0.1, base.positions.shape))
+    tol = 1e-6
+    coarse = ewald_mesh(crystal, tol=tol, check=False)
+    checked = ewald_mesh(crystal, tol=tol)
+    reference = ewald_direct(crystal, tol=1e-10)
+    assert abs(coarse.energy - reference.energy) > tol * reference.energy_scale  # the trap is real
+    assert checked.params.extra["check"]["kind"] == "proxy cell"
+    assert checked.params.extra["checks"][0]["measured_over_predicted"] > 10.0
+    assert np.prod(checked.params.extra["mesh"]) > np.prod(coarse.params.extra["mesh"])
+    assert abs(checked.energy - reference.energy) <= tol * reference.energy_scale
+    assert abs(checked.energy - reference.energy) <= checked.error_estimate
