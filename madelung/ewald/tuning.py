@@ -182,9 +182,11 @@ def _solve_gaussian_tail(level):
     """x >= 1 with x^2 + 1.5 ln x = level (x = 1 where level <= 1), elementwise, by Newton."""
     level = np.asarray(level, dtype=float)
     x = np.sqrt(np.maximum(level, 1.0))
-    for _ in range(8):
-        x = x - (x * x + 1.5 * np.log(x) - level) / (2.0 * x + 1.5 / x)
-        x = np.maximum(x, 1.0)
+    for _ in range(12):
+        step = (x * x + 1.5 * np.log(x) - level) / (2.0 * x + 1.5 / x)
+        x = np.maximum(x - step, 1.0)
+        if np.max(np.abs(step)) < 1e-10 * np.max(x):
+            break
     return x
 
 
@@ -230,9 +232,9 @@ def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
         alphas = np.array([alpha])
     else:
         centre = math.sqrt(math.pi) * (sums.n_atoms / volume ** 2) ** (1.0 / 6.0)
-        alphas = centre * np.geomspace(0.1, 10.0, 41)
+        alphas = centre * np.geomspace(0.1, 10.0, 21)
         r_cut, k_cut, cost = evaluate(alphas)
-        alphas = alphas[int(np.argmin(cost))] * np.geomspace(0.89, 1.12, 13)
+        alphas = alphas[int(np.argmin(cost))] * np.geomspace(0.8, 1.25, 11)
     r_cut, k_cut, cost = evaluate(alphas)
     best = int(np.argmin(cost))
     a, r, k = float(alphas[best]), float(r_cut[best]), float(k_cut[best])
