@@ -32,11 +32,6 @@ def unimodular(rng, reach=3):
             return m
 
 
-def rebased(crystal, matrix):
-    return madelung.Crystal(np.asarray(matrix) @ crystal.cell, crystal.positions, crystal.charges,
-                            min_distance=0.1)
-
-
 def rattled_rock_salt(repeat=6, seed=3):
     a = 5.64
     frac = np.array([[0, 0, 0], [.5, .5, 0], [.5, 0, .5], [0, .5, .5],
@@ -89,7 +84,7 @@ def main():
                 ran = set()
                 started = time.perf_counter()
                 for matrix in bases.values():
-                    result = madelung.ewald(rebased(crystal, matrix), tol=tol, method=method)
+                    result = madelung.ewald(crystal.in_basis(matrix), tol=tol, method=method)
                     error = abs(result.energy - reference)
                     contract = max(contract, error / (tol * result.energy_scale))
                     estimate = max(estimate, error / result.error_estimate)

@@ -38,11 +38,6 @@ def unimodular(rng, reach=3):
             return m
 
 
-def rebased(crystal, matrix):
-    return madelung.Crystal(np.asarray(matrix) @ crystal.cell, crystal.positions, crystal.charges,
-                            min_distance=0.1)
-
-
 def rattled_rock_salt(repeat, seed=3, scale=0.05):
     base = load("rocksalt-NaCl").repeat(repeat)
     rng = np.random.default_rng(seed)
@@ -70,7 +65,7 @@ def test_every_basis_gives_the_same_sums(seed, tol, method):
     rng = np.random.default_rng(seed)
     crystal = random_crystal(rng, n_atoms=int(rng.integers(2, 9)))
     reference = madelung.ewald(crystal, tol=tol, forces=True, stress=True, method=method)
-    other = madelung.ewald(rebased(crystal, unimodular(rng)), tol=tol, forces=True, stress=True, method=method)
+    other = madelung.ewald(crystal.in_basis(unimodular(rng)), tol=tol, forces=True, stress=True, method=method)
     _agree(reference, other, crystal, tol)
 
 
@@ -82,7 +77,7 @@ def test_rock_salt_constant_from_an_oblique_supercell_with_the_default_method(to
     exact = -ROCK_SALT * COULOMB_CONSTANT / r0 * crystal.formula_units
     engines = set()
     for matrix in OBLIQUE[:3]:
-        result = madelung.ewald(rebased(crystal, matrix), tol=tol)
+        result = madelung.ewald(crystal.in_basis(matrix), tol=tol)
         engines.add(result.params.method)
         assert abs(result.energy - exact) <= tol * result.energy_scale
         assert abs(result.energy - exact) <= result.error_estimate
@@ -95,7 +90,7 @@ def test_rattled_supercell_in_many_bases_matches_its_cubic_basis():
     reference = madelung.ewald(crystal, tol=tol * 1e-3, method="direct")
     rng = np.random.default_rng(11)
     for matrix in list(OBLIQUE) + [unimodular(rng) for _ in range(3)]:
-        result = madelung.ewald(rebased(crystal, matrix), tol=tol)
+        result = madelung.ewald(crystal.in_basis(matrix), tol=tol)
         error = abs(result.energy - reference.energy)
         assert error <= tol * result.energy_scale
         assert error <= result.error_estimate
@@ -109,7 +104,7 @@ def test_estimate_never_below_the_achieved_error_in_oblique_bases(tol):
         exact, _ = mp_ewald_energy(crystal.cell, crystal.positions, crystal.charges, dps=25)
         for matrix in OBLIQUE:
             for method in ("direct", "mesh"):
-                result = madelung.ewald(rebased(crystal, matrix), tol=tol, method=method)
+                result = madelung.ewald(crystal.in_basis(matrix), tol=tol, method=method)
                 error = abs(result.energy - float(exact))
                 assert error <= tol * result.energy_scale
                 assert error <= result.error_estimate
@@ -117,7 +112,7 @@ def test_estimate_never_below_the_achieved_error_in_oblique_bases(tol):
 
 def test_mesh_supercell_in_an_oblique_basis_against_direct():
     # a supercell large enough that the mesh engine's check takes the proxy-cell form
-    crystal = rebased(rattled_rock_salt(4), OBLIQUE[0])
+    crystal = rattled_rock_salt(4).in_basis(OBLIQUE[0])
     tol = 1e-7
     mesh = ewald_mesh(crystal, tol=tol, forces=True, stress=True)
     direct = madelung.ewald(crystal, tol=tol * 1e-2, forces=True, stress=True, method="direct")
@@ -128,7 +123,7 @@ def test_mesh_supercell_in_an_oblique_basis_against_direct():
 def test_plan_works_in_the_reduced_basis_and_records_it():
     crystal = load("rocksalt-NaCl")
     matrix = np.array(OBLIQUE[0])
-    plan = madelung.plan_for(rebased(crystal, matrix), 1e-8)
+    plan = madelung.plan_for(crystal.in_basis(matrix), 1e-8)
     assert np.allclose(plan.cell, plan.basis_change @ plan.user_cell)
     assert round(abs(np.linalg.det(plan.basis_change))) == 1
     # the reduced vectors are as short as the conventional cell's primitive vectors (a / sqrt 2)
@@ -147,7 +142,7 @@ def test_tol_below_double_precision_is_refused_with_the_smallest_meaningful_valu
 
 
 def test_every_driver_agrees_with_the_direct_engine_on_an_oblique_cell():
-    crystal = rebased(load("fluorite-CaF2"), OBLIQUE[0])
+    crystal = load("fluorite-CaF2").in_basis(OBLIQUE[0])
     tol = 1e-9
     reference = madelung.ewald(crystal, tol=tol * 1e-2, method="direct")
     allowed_potential = 2.0 * tol * reference.energy_scale / float(np.abs(crystal.charges).sum())
@@ -167,3 +162,11 @@ def test_every_driver_agrees_with_the_direct_engine_on_an_oblique_cell():
     oblique = madelung.charged_cell_correction(crystal.cell, 1.0, dielectric=[[4, 0, 0], [0, 5, 0], [0, 0, 6]], tol=tol)
     assert oblique.energy == pytest.approx(cubic.energy, abs=10 * tol * abs(cubic.energy) + 1e-12)
     assert math.isfinite(oblique.error_estimate)
+
+
+def test_a_change_of_basis_must_keep_the_lattice():
+    crystal = load("rocksalt-NaCl")
+    with pytest.raises(madelung.InputError, match="determinant"):
+        crystal.in_basis([[2, 0, 0], [0, 1, 0], [0, 0, 1]])  # a supercell, not the same lattice
+    with pytest.raises(madelung.InputError, match="whole numbers"):
+        crystal.in_basis([[1, 0.5, 0], [0, 1, 0], [0, 0, 1]])
