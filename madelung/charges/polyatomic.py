@@ -230,30 +230,42 @@ def _check_neutral(crystal, net, found):
     if abs(net) > 1e-6 * max(1.0, float(np.abs(crystal.charges).sum())):
         where = f"{crystal.source}: " if crystal.source else ""
         raise InputError(f"{where}with the polyatomic ions {found.summary()} the cell carries {net:+.6g} e; "
-                         "the charges of the other sites do not balance them (give them with --charge)")
+                         "the charges of the other sites do not balance them; give those sites formal charges "
+                         "(--charge) or sum every atom as a point charge (--polyatomic-ions atoms)")
 
 
 def centred_crystal(crystal, found=None):
     """The crystal with every polyatomic ion replaced by one charge at its centre.
 
-    The other sites keep their charges, labels and occupancies. An ion site has the ion's formula
-    as its symbol (``"CO3"``) and a label naming its central atom (``"CO3(C1)"``), so formulas read
-    ``CaCO3`` and r0 is the shortest cation–anion-centre distance.
+    The other sites keep their charges, labels and occupancies. An ion site has the ion's formula in
+    parentheses as its symbol (``"(CO3)"``) and a label naming its central atom (``"CO3(C1)"``), so
+    formulas read ``Ca(CO3)``, ``Mg(OH)2``, and r0 is the shortest cation–anion-centre distance.
     """
     found = find_polyatomic_ions(crystal) if found is None else found
     if not found.ions:
         return crystal
+    # one entry per site outside ions and per ion, in the order of the sites (an ion where its first atom was)
+    first = {min(ion.members): ion for ion in found.ions}
     taken = {i for ion in found.ions for i in ion.members}
-    keep = [i for i in range(len(crystal)) if i not in taken]
-    positions = [crystal.positions[i] for i in keep] + [ion.centre for ion in found.ions]
-    charges = [crystal.charges[i] for i in keep] + [ion.charge for ion in found.ions]
-    symbols = [crystal.symbols[i] for i in keep] + [ion.formula for ion in found.ions]
-    labels = [crystal.labels[i] for i in keep] + [
-        ion.formula + (f"({crystal.labels[ion.central_site]})" if ion.central_site is not None else "")
-        for ion in found.ions]
-    occupancies = [crystal.occupancies[i] for i in keep] + [1.0] * len(found.ions)
-    species = None if crystal.species is None else \
-        [crystal.species[i] for i in keep] + [((ion.formula, 1.0),) for ion in found.ions]
+    order = [i for i in range(len(crystal)) if i not in taken or i in first]
+    positions, charges, symbols, labels, occupancies, species = [], [], [], [], [], []
+    for i in order:
+        ion = first.get(i)
+        if ion is None:
+            positions.append(crystal.positions[i])
+            charges.append(crystal.charges[i])
+            symbols.append(crystal.symbols[i])
+            labels.append(crystal.labels[i])
+            occupancies.append(crystal.occupancies[i])
+            species.append(crystal.species_of(i))
+            continue
+        positions.append(ion.centre)
+        charges.append(ion.charge)
+        symbols.append(f"({ion.formula})")
+        labels.append(ion.formula + (f"({crystal.labels[ion.central_site]})" if ion.central_site is not None else ""))
+        occupancies.append(1.0)
+        species.append(((f"({ion.formula})", 1.0),))
+    species = None if crystal.species is None else species
     _check_neutral(crystal, float(np.sum(charges)), found)
     return crystal.replace(positions=np.array(positions), charges=np.array(charges, dtype=float), symbols=symbols,
                            labels=labels, occupancies=np.array(occupancies, dtype=float), species=species)
@@ -266,6 +278,7 @@ def spread_charges(crystal, found, rule) -> np.ndarray:
         raise InputError("the 'centre' rule puts one charge per ion; use centred_crystal()")
     charges = np.array(crystal.charges, dtype=float)
     where = f"{crystal.source}: " if crystal.source else ""
+    messages = {}
     for ion in found.ions:
         members = list(ion.members)
         if rule == "formal":
@@ -275,7 +288,10 @@ def spread_charges(crystal, found, rule) -> np.ndarray:
         q = equilibrate_group(symbols, ion.positions, ion.charge)
         charges[members] = q
         for message in sign_warnings(symbols, [crystal.labels[i] for i in members], q, ion.bonds):
-            warnings.warn(f"{where}{ion.formula}: {message}", MadelungWarning, stacklevel=2)
+            # one warning per ion kind and kind of wrong sign, not one per ion
+            messages.setdefault((ion.formula, message.split("(")[0]), f"{ion.formula}: {message}")
+    for message in messages.values():
+        warnings.warn(f"{where}{message}", MadelungWarning, stacklevel=2)
     _check_neutral(crystal, float(charges.sum()), found)
     return charges
 
@@ -296,7 +312,7 @@ class InterionicEnergy:
     Attributes
     ----------
     rule : how each ion's charge is placed ("centre", "formal", "equilibrated").
-    formula : formula unit with ions as units (e.g. ``"CaCO3"``).
+    formula : formula unit with ions as units (e.g. ``"Ca(CO3)"``).
     formula_units : Z, formula units in the cell.
     total : Ewald energy of the charges as placed, eV per cell (signed).
     internal : sum of the ions' internal Coulomb energies, eV per cell (zero for "centre").
