@@ -240,7 +240,9 @@ def _run_energy(args):
     if lattice is not None:
         lines.append(f"  short-range terms from {args.repulsion}")
         lines.extend(_lattice_lines(lattice))
-        lines.extend(_volume_based_lines(_volume_based(crystal)))
+        volume_based = _volume_based(crystal)
+        # the Kapustinskii line above already holds a simple salt; thermochemical radii matter for ions
+        lines.extend(_volume_based_lines(volume_based, kapustinskii=volume_based.ions != "none"))
         lines.append(f"  note        {RIGID_ION_NOTE}")
     lines.append(f"  note        {MODEL_NOTE}")
     print("\n".join(lines))
@@ -1506,12 +1508,12 @@ def _volume_based(crystal, found=None):
     return volume_based_energies(crystal, found)
 
 
-def _volume_based_lines(vb):
+def _volume_based_lines(vb, kapustinskii=True):
     fit = (f"alpha {vb.coefficients[0]}, beta {vb.coefficients[1]}" if vb.coefficients[1] is not None
            else f"A {vb.coefficients[0]}")
     lines = [f"      volume-based   {vb.volume_based:10.2f}   Glasser–Jenkins, V_m {vb.volume_per_formula_unit:.3f} Å^3, "
              f"I = {vb.ionic_strength:g}, {vb.salt_type} fit ({fit})"]
-    if vb.kapustinskii is not None:
+    if kapustinskii and vb.kapustinskii is not None:
         radii = ", ".join(f"{ion} {r:.3f} Å" for ion, r in vb.radii.items())
         lines.append(f"      Kapustinskii   {vb.kapustinskii:10.2f}   with thermochemical radii of polyatomic ions: "
                      f"{radii}")
