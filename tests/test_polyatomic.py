@@ -6,6 +6,7 @@ The salts are in tests/data/ (written by tests/data/make_polyatomic_structures.p
 source of every lattice parameter and position).
 """
 
+import json
 import subprocess
 import sys
 import warnings
@@ -341,8 +342,6 @@ def test_command_line_treats_ions_as_ions_by_default():
     total = madelung.ewald(load("calcite-CaCO3.cif")).energy
     assert f"{total:16.8f}" in atoms.stdout
     constant = cli("constant", CALCITE, "--json")
-    import json
-
     data = json.loads(constant.stdout)
     assert data["r0_angstrom"] > 3.0 and data["polyatomic_ions"]["ions"][0]["formula"] == "CO3"
     refused = cli("energy", CALCITE, "--forces")

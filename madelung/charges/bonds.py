@@ -64,10 +64,9 @@ class Bonds:
     lengths: np.ndarray
     tolerance: float
 
-    def partners(self, site):
-        """Indices of the sites bonded to ``site`` (images included, repeated if bonded twice)."""
-        return [int(b) for a, b in zip(self.first, self.second) if a == site] + \
-            [int(a) for a, b in zip(self.first, self.second) if b == site]
+    def to_dict(self):
+        return {"first": self.first.tolist(), "second": self.second.tolist(), "shifts": self.shifts.tolist(),
+                "lengths_angstrom": self.lengths.tolist(), "tolerance_angstrom": self.tolerance}
 
 
 @dataclass(frozen=True)

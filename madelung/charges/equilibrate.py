@@ -216,14 +216,7 @@ def equilibrate(crystal, total_charge=0.0, kernel="gaussian", parameters=None, d
             raise InputError(f"{where}charge equilibration with the {kernel} kernel is unstable here "
                              f"(lowest curvature {lowest:.3g} eV/e^2: the Coulomb attraction outgrows the "
                              "hardness); use the gaussian kernel or other parameters")
-    system = np.zeros((n + 1, n + 1))
-    system[:n, :n] = h
-    system[:n, n] = -1.0
-    system[n, :n] = 1.0
-    rhs = np.concatenate([-chi, [total_charge]])
-    solution = np.linalg.solve(system, rhs)
-    charges = solution[:n].copy()
-    mu = float(solution[n])
+    charges, mu = _equal_potentials(h, chi, total_charge)
     energy = float(chi @ charges + 0.5 * charges @ h @ charges)
     _warn_beyond_formal(crystal, charges, where)
     bonds = bonded_pairs(crystal)
@@ -294,7 +287,6 @@ def equilibrate_group(symbols, positions, total_charge, parameters=None):
     J. Chem. Phys. 2 (1934) 782; D. M. York and W. Yang, J. Chem. Phys. 104 (1996) 159.
     """
     positions = np.asarray(positions, dtype=float).reshape(-1, 3)
-    n = len(positions)
     values = [tuple(parameters[el]) if parameters and el in parameters else mulliken_parameters(el) for el in symbols]
     chi = np.array([v[0] for v in values])
     hardness = np.array([v[1] for v in values])
@@ -304,9 +296,15 @@ def equilibrate_group(symbols, positions, total_charge, parameters=None):
     with np.errstate(divide="ignore", invalid="ignore"):
         h = np.where(r > 0, COULOMB_CONSTANT * erf(r / scale) / r, 0.0)
     h += np.diag(hardness)
+    return _equal_potentials(h, chi, float(total_charge))[0]
+
+
+def _equal_potentials(h, chi, total_charge):
+    """Charges q and chemical potential mu with chi + H q = mu everywhere and sum q = total_charge."""
+    n = len(chi)
     system = np.zeros((n + 1, n + 1))
     system[:n, :n] = h
     system[:n, n] = -1.0
     system[n, :n] = 1.0
-    solution = np.linalg.solve(system, np.concatenate([-chi, [float(total_charge)]]))
-    return solution[:n]
+    solution = np.linalg.solve(system, np.concatenate([-chi, [total_charge]]))
+    return solution[:n].copy(), float(solution[n])
