@@ -356,3 +356,37 @@ def test_element_symbols_of_the_table_exist():
         assert all(element in atomic_numbers for element in composition_of(kind.formula))
         total = sum(n * dict(kind.formal_states)[el] for el, n in kind.composition.items())
         assert total == pytest.approx(kind.charge)
+
+
+def test_assigned_states_find_the_same_ions_as_states_in_the_file(tmp_path):
+    # the calcite file with its oxidation states stripped, as many databases write it
+    lines = [line for line in CALCITE.read_text().splitlines()
+             if not line.startswith(("_atom_type", "  Ca2+ 2", "  C4+ 4", "  O2- -2"))]
+    plain = tmp_path / "calcite-plain.cif"
+    plain.write_text("\n".join(line.replace(" Ca2+ ", " Ca ").replace(" C4+ ", " C ").replace(" O2- ", " O ")
+                               for line in lines) + "\n")
+    out = cli("energy", plain, "--charges-from", "auto", "--json")
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert data["ions"]["ions"] == [{"formula": "CO3", "name": "carbonate", "charge_e": -2.0, "count": 6}]
+    expected = interionic_energy(load("calcite-CaCO3.cif")).interionic
+    assert data["interionic_energy_eV"] == pytest.approx(expected, rel=1e-8)
+    # whole-cell equilibration leaves the calcium short of +2: refused with a way out, not summed charged
+    out = cli("energy", plain, "--charges-from", "equilibrate")
+    assert out.returncode == 2 and "--polyatomic-ions atoms" in out.stderr
+
+
+def test_groups_with_partly_occupied_sites_are_not_ions():
+    atoms = MOLECULES[("NO3", -1)]
+    positions = np.array([p for _, p in atoms]) + 4.0
+    crystal = Crystal(np.eye(3) * 9, np.vstack([positions, [8, 8, 8]]), [5, -2, -2, -1, 0.5],
+                      ["N", "O", "O", "O", "K"], occupancies=[1, 1, 1, 0.5, 0.5])
+    found = find_polyatomic_ions(crystal)
+    assert not found.ions and "partly occupied" in found.unrecognised[0].note
+
+
+def test_formal_rule_on_the_command_line_reports_the_internal_energy():
+    out = cli("energy", DATA / "nitre-KNO3.cif", "--polyatomic-ions", "formal", "--tol", "1e-8")
+    assert out.returncode == 0, out.stderr
+    result = interionic_energy(load("nitre-KNO3.cif"), "formal", tol=1e-8)
+    assert f"{result.internal:16.8f}" in out.stdout and "(removed)" in out.stdout
