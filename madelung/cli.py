@@ -184,6 +184,7 @@ def _add_energy(sub):
     parser.add_argument("--repulsion", metavar="PARAMS.json",
                         help="short-range parameter file (from madelung fit): adds the repulsion, the lattice "
                              "energy and the Born–Landé, Born–Mayer and Kapustinskii closed forms")
+    _polyatomic_option(parser)
     return parser
 
 
@@ -192,6 +193,9 @@ def _run_energy(args):
     from .units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
+    found = _polyatomic_ions(args, crystal)
+    if found is not None:
+        return _run_energy_with_ions(args, crystal, found)
     result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress, method=args.method)
     lattice = None
     if args.repulsion:
@@ -212,6 +216,7 @@ def _run_energy(args):
             data["stress_eV_per_angstrom3"] = result.stress
         if lattice is not None:
             data["lattice"] = _lattice_json(lattice)
+            data["lattice"]["volume_based"] = _volume_based(crystal).to_dict()
         _print_json(data)
         return 0
     per_fu = result.energy / z
@@ -235,6 +240,9 @@ def _run_energy(args):
     if lattice is not None:
         lines.append(f"  short-range terms from {args.repulsion}")
         lines.extend(_lattice_lines(lattice))
+        volume_based = _volume_based(crystal)
+        # the Kapustinskii line above already holds a simple salt; thermochemical radii matter for ions
+        lines.extend(_volume_based_lines(volume_based, kapustinskii=volume_based.ions != "none"))
         lines.append(f"  note        {RIGID_ION_NOTE}")
     lines.append(f"  note        {MODEL_NOTE}")
     print("\n".join(lines))
@@ -469,6 +477,7 @@ def _add_constant(sub):
                                         "its row and the others go on.")
     _common(parser)
     parser.add_argument("more_files", nargs="*", metavar="FILE", help=argparse.SUPPRESS)
+    _polyatomic_option(parser)
     return parser
 
 
@@ -478,13 +487,17 @@ def _run_constant(args):
     files = [args.file, *args.more_files]
     if len(files) > 1:
         return _constant_table(args, files)
-    crystal = load_crystal(args)
+    crystal, found = _ions_as_units(args, load_crystal(args))
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
     if args.json:
-        _print_json({"file": args.file, **c.as_dict()})
+        _print_json({"file": args.file, **c.as_dict(),
+                     **({"polyatomic_ions": found.to_dict()} if found is not None else {})})
         return 0
     print(f"madelung constant  {args.file}")
     print("\n".join(_structure_lines(crystal)))
+    if found is not None:
+        print(f"  polyatomic ions {found.summary()}: each one charge at its centre; r0 is measured to the "
+              f"ion centres (--polyatomic-ions atoms: every atom a point charge)")
     print(f"  r0 (shortest cation–anion distance)  {c.r0:.6f} Å")
     print(f"  E_fu (per {c.formula})                {c.energy_per_formula_unit:.8f} eV"
           f" = {c.energy_per_formula_unit * EV_TO_KJ_PER_MOL:.3f} kJ/mol")
@@ -691,8 +704,10 @@ def _constant_table(args, files):
     for path in files:
         args.file = path
         try:
-            c = madelung_constants(load_crystal(args), tol=args.tol, method=args.method)
-            rows.append({"file": path, "status": "ok", **c.as_dict()})
+            crystal, found = _ions_as_units(args, load_crystal(args))
+            c = madelung_constants(crystal, tol=args.tol, method=args.method)
+            rows.append({"file": path, "status": "ok", **c.as_dict(),
+                         **({"polyatomic_ions": found.summary()} if found is not None else {})})
         except InputError as exc:
             rows.append({"file": path, "status": str(exc)})
     failed = sum(row["status"] != "ok" for row in rows)
@@ -711,6 +726,8 @@ def _constant_table(args, files):
     print()
     for name in ("charges_left_in", "handbook", "common_factor"):
         print(f"  {name:<16} {CONVENTION_TEXT[name]}")
+    if any(row.get("polyatomic_ions") for row in rows):
+        print("  polyatomic ions count as one charge at their centre (--polyatomic-ions atoms: every atom)")
     print(f"  {len(rows) - failed} done, {failed} failed")
     print(f"  note        {MODEL_NOTE}")
     return 0
@@ -1452,6 +1469,113 @@ def _run_eos(args):
     if args.plot:
         print(f"  plot        {args.plot}")
     print(f"  note        {RIGID_ION_NOTE}")
+    return 0
+
+
+# ---------------------------------------------------------------- polyatomic ions
+POLYATOMIC_CHOICES = ("centre", "formal", "equilibrated", "atoms")
+
+
+def _polyatomic_option(parser):
+    parser.add_argument("--polyatomic-ions", choices=POLYATOMIC_CHOICES, default="centre",
+                        help="how polyatomic ions (carbonate, sulfate, nitrate, ammonium, hydroxide, ...) are "
+                             "treated: found and summed as ions, with the whole charge at the ion's centre "
+                             "(centre, default), spread over its atoms by formal states (formal) or by charge "
+                             "equilibration within the ion (equilibrated); energies are then inter-ion energies "
+                             "and Madelung constants take one charge per ion. 'atoms': no detection, every atom "
+                             "a point charge")
+
+
+def _polyatomic_ions(args, crystal):
+    """The polyatomic ions of the crystal, or None when there are none or the user asked for atoms."""
+    from .charges.polyatomic import find_polyatomic_ions
+
+    if getattr(args, "polyatomic_ions", "atoms") == "atoms":
+        return None
+    found = find_polyatomic_ions(crystal)
+    return found if found.found else None
+
+
+def _ions_as_units(args, crystal):
+    """(crystal with one charge per polyatomic ion, ions found) or (crystal, None) without ions."""
+    from .charges.polyatomic import centred_crystal
+
+    found = _polyatomic_ions(args, crystal)
+    return (crystal, None) if found is None else (centred_crystal(crystal, found), found)
+
+
+RULE_TEXT = {"centre": "whole charge at the ion's centre", "formal": "spread over its atoms by formal states",
+             "equilibrated": "spread over its atoms by charge equilibration within the ion"}
+
+
+def _volume_based(crystal, found=None):
+    from .analysis.volume_based import volume_based_energies
+
+    return volume_based_energies(crystal, found)
+
+
+def _volume_based_lines(vb, kapustinskii=True):
+    fit = (f"alpha {vb.coefficients[0]}, beta {vb.coefficients[1]}" if vb.coefficients[1] is not None
+           else f"A {vb.coefficients[0]}")
+    lines = [f"      volume-based   {vb.volume_based:10.2f}   Glasser–Jenkins, V_m {vb.volume_per_formula_unit:.3f} Å^3, "
+             f"I = {vb.ionic_strength:g}, {vb.salt_type} fit ({fit})"]
+    if kapustinskii and vb.kapustinskii is not None:
+        radii = ", ".join(f"{ion} {r:.3f} Å" for ion, r in vb.radii.items())
+        lines.append(f"      Kapustinskii   {vb.kapustinskii:10.2f}   with thermochemical radii of polyatomic ions: "
+                     f"{radii}")
+    lines += [f"      ({note})" for note in vb.notes]
+    return lines
+
+
+def _run_energy_with_ions(args, crystal, found):
+    """The energy report for a crystal holding polyatomic ions: inter-ion energies and lattice-energy estimates."""
+    from .charges.polyatomic import centred_crystal, interionic_energy
+    from .lattice import closed_forms
+
+    for flag, name in ((args.forces, "--forces"), (args.stress, "--stress"), (args.repulsion, "--repulsion")):
+        if flag:
+            raise InputError(f"{args.file}: {name} is not available with polyatomic ions treated as ions "
+                             f"({found.summary()}); add --polyatomic-ions atoms to sum every atom as a point charge")
+    rule = args.polyatomic_ions
+    result = interionic_energy(crystal, rule, tol=args.tol, method=args.method, found=found)
+    centred = centred_crystal(crystal, found)
+    forms = closed_forms(centred, tol=args.tol)
+    vb = _volume_based(crystal, found)
+    z = result.formula_units
+    if args.json:
+        born_mayer = None if forms.born_mayer is None else forms.born_mayer * EV_TO_KJ_PER_MOL
+        _print_json({"file": args.file, "formula": result.formula, "formula_units": z, "n_atoms": len(crystal),
+                     "volume_angstrom3": crystal.volume, **result.to_dict(),
+                     "lattice_energy_estimates_kJ_per_mol": {
+                         "born_mayer": born_mayer, "madelung_constant_handbook": forms.madelung_constant,
+                         "r0_angstrom": forms.r0, "rho_angstrom": forms.rho,
+                         "volume_based": vb.to_dict(), "kapustinskii_thermochemical_radii": vb.kapustinskii}})
+        return 0
+    per_fu = result.per_formula_unit
+    lines = [f"madelung energy  {args.file}", *_structure_lines(crystal),
+             f"  polyatomic ions {found.summary()}; charge of each ion: {RULE_TEXT[rule]}",
+             f"  electrostatic energy between ions (signed; formula unit {result.formula}, Z = {z})",
+             f"      Ewald sum of the charges as placed   {result.total:16.8f} eV per cell",
+             f"      internal energy of the ions          {result.internal:16.8f} eV per cell (removed)",
+             f"      inter-ion energy                     {result.interionic:16.8f} eV per cell",
+             f"      per formula unit                     {per_fu:16.8f} eV  = {per_fu * EV_TO_KJ_PER_MOL:12.3f} kJ/mol",
+             f"  accuracy    estimated error {result.error_estimate:.2e} eV (tol {args.tol:.1e})",
+             f"  lattice-energy estimates (positive, kJ/mol per {result.formula})"]
+    if forms.born_mayer is not None:
+        lines.append(f"      Born–Mayer     {forms.born_mayer * EV_TO_KJ_PER_MOL:10.2f}   Madelung constant (handbook) "
+                     f"{forms.madelung_constant:.6f} with one charge per ion, r0 {forms.r0:.4f} Å to the ion "
+                     f"centres, rho {forms.rho_source}")
+    else:
+        lines.append(f"      Born–Mayer     not applicable: {forms.notes.get('born_mayer', '')}")
+    lines.extend(_volume_based_lines(vb))
+    lines.append(f"  note        {result.note}; lattice energies likewise exclude them")
+    lines.append("  note        polyatomic ions were found and treated as ions (default); "
+                 "--polyatomic-ions atoms sums every atom as a point charge")
+    lines += [f"  note        {g.formula} (sites {', '.join(crystal.labels[i] for i in g.members[:4])}"
+              f"{' ...' if len(g.members) > 4 else ''}): {g.note}" for g in found.unrecognised[:5]]
+    lines += [f"  note        {n}" for n in found.notes[:5]]
+    lines.append(f"  note        {MODEL_NOTE}")
+    print("\n".join(lines))
     return 0
 
 
