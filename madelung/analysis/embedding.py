@@ -51,8 +51,11 @@ from ..geometry import plane_spacings, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import _embedding_kernels as kernels
 
-#: Default step of the grid filling the cluster region, Å.
-DEFAULT_GRID_SPACING = 0.5
+#: By default the grid filling the cluster sphere has about this many points (the misfit is a
+#: smooth, harmonic function inside the sphere, so a coarse grid pins it down), with a step of at
+#: least MIN_GRID_SPACING Å.
+GRID_POINTS = 1200
+MIN_GRID_SPACING = 0.25
 
 #: Grid points nearer than this to an ion (Å) are not fitted (the potential there is dominated by
 #: that ion, which the array holds exactly).
@@ -413,7 +416,7 @@ def _shortest_cation_anion(crystal, sites, positions, charges):
 
 
 def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness=None,
-              grid_spacing=DEFAULT_GRID_SPACING, offset="ewald", groups=None, tol=1e-10, warn=True) -> Embedding:
+              grid_spacing=None, offset="ewald", groups=None, tol=1e-10, warn=True) -> Embedding:
     """A cluster of whole ions and a fitted point-charge field reproducing the crystal's potential.
 
     Parameters
@@ -432,7 +435,8 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
         Thickness of the outer layer whose charges are fitted, Å (default: the larger of 3 Å and
         twice the shortest cation-anion distance). Must leave room between cluster and layer.
     grid_spacing : float, optional
-        Step of the grid of fitting points filling the cluster sphere, Å (default 0.5).
+        Step of the grid of fitting points filling the cluster sphere, Å (default: about
+        ``GRID_POINTS`` points in the sphere, at least 0.25 Å apart).
     offset : {"ewald", "free"}, optional
         "ewald" (default): match the periodic potential in the Ewald convention (zero cell average);
         "free": match it up to a constant, fitted and reported as ``offset``.
@@ -471,6 +475,8 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
         raise InputError(f"embedding() needs a madelung.Crystal, got {type(crystal).__name__}")
     cluster_radius = _positive(cluster_radius, "cluster radius")
     field_radius = _positive(field_radius, "field radius")
+    if grid_spacing is None:
+        grid_spacing = max(MIN_GRID_SPACING, cluster_radius * (4.0 * math.pi / (3.0 * GRID_POINTS)) ** (1.0 / 3.0))
     grid_spacing = _positive(grid_spacing, "grid spacing")
     if offset not in OFFSETS:
         raise InputError(f"offset must be one of {', '.join(OFFSETS)}, got {offset!r}")
