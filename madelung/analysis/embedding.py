@@ -34,22 +34,20 @@ P. P. Ewald, Ann. Phys. 369 (1921) 253 (the periodic target).
 from __future__ import annotations
 
 import math
-import re
 import time
 import warnings
 from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import solve_triangular
-from scipy.spatial import cKDTree
 
 from ..crystal import Crystal
 from ..defects import ON_ION_DISTANCE, potential_at
 from ..errors import InputError, MadelungWarning
 from ..ewald.direct import NEUTRAL_TOLERANCE
-from ..geometry import plane_spacings, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import _embedding_kernels as kernels
+from .cluster import array_ions, boundary_cations, clear_of_ions, resolve_center, shortest_cation_anion, sphere_grid
 
 #: By default the grid filling the cluster sphere has about this many points (the misfit is a
 #: smooth, harmonic function inside the sphere, so a coarse grid pins it down), with a step of at
@@ -57,21 +55,10 @@ from . import _embedding_kernels as kernels
 GRID_POINTS = 1200
 MIN_GRID_SPACING = 0.25
 
-#: Grid points nearer than this to an ion (Å) are not fitted (the potential there is dominated by
-#: that ion, which the array holds exactly).
-GRID_CLEARANCE = 0.3
-
 #: Singular values of the constrained fit below this fraction of the largest are dropped (the
 #: potential of far charges inside the cluster is smooth, so the least-squares problem is
 #: ill-conditioned; the minimum-norm solution keeps the fitted charges near their crystal values).
 SINGULAR_CUTOFF = 1e-8
-
-#: Refuse arrays that need more than this many candidate ion positions.
-MAX_CANDIDATES = 5_000_000
-
-#: A cation outside the cluster is a boundary cation when it lies within this factor times the
-#: shortest cation-anion distance of the crystal from an anion of the cluster.
-BOUNDARY_FACTOR = 1.2
 
 OFFSETS = ("ewald", "free")
 
@@ -239,133 +226,6 @@ def _positive(value, what):
     return value
 
 
-def resolve_center(crystal, center):
-    """Cartesian centre and a description from a site index, ``"#INDEX"``, a site label (or
-    element), or fractional coordinates (three numbers, or text ``"x,y,z"``)."""
-    if isinstance(center, (int, np.integer)) and not isinstance(center, bool):
-        index = int(center)
-    elif isinstance(center, str):
-        text = center.strip()
-        if text.startswith("#"):
-            try:
-                index = int(text[1:])
-            except ValueError:
-                raise InputError(f"centre {center!r}: #INDEX needs an integer") from None
-        elif re.fullmatch(r"[^,\s]+(\s*[,\s]\s*[^,\s]+){2}", text) and re.match(r"^[-+.\d]", text):
-            return _fractional_center(crystal, re.split(r"[,\s]+", text), center), text
-        else:
-            matches = [i for i, lab in enumerate(crystal.labels) if lab == text]
-            matches = matches or [i for i, sym in enumerate(crystal.symbols) if sym == text]
-            if not matches:
-                known = ", ".join(dict.fromkeys(crystal.labels))
-                raise InputError(f"centre {center!r} is not a site label of the structure (labels: {known}), "
-                                 "#INDEX or fractional coordinates x,y,z")
-            index = matches[0]
-    else:
-        try:
-            values = list(center)
-        except TypeError:
-            raise InputError(f"centre {center!r} not understood; give a site label, #INDEX or "
-                             "fractional coordinates") from None
-        return _fractional_center(crystal, values, center), ",".join(str(v) for v in values)
-    if not 0 <= index < len(crystal):
-        raise InputError(f"centre #{index}: the structure has sites #0..#{len(crystal) - 1}")
-    return np.array(crystal.positions[index], dtype=float), f"{crystal.labels[index]} (#{index})"
-
-
-def _fractional_center(crystal, values, original):
-    try:
-        frac = np.array([float(v) for v in values])
-    except (TypeError, ValueError):
-        raise InputError(f"centre {original!r}: fractional coordinates must be three numbers, e.g. 0.5,0.5,0.5") from None
-    if frac.shape != (3,) or not np.all(np.isfinite(frac)):
-        raise InputError(f"centre {original!r}: fractional coordinates must be three numbers, e.g. 0.5,0.5,0.5")
-    return frac @ crystal.cell
-
-
-def _ion_units(crystal, groups):
-    """Whole ions of the cell: each unit's atoms, their fractional positions kept together (a
-    polyatomic ion across the cell edge is unwrapped), and the unit's centroid folded into the cell.
-
-    Returns (atom_unit (N,), atom_frac (N, 3), unit_centroid_frac (U, 3)).
-    """
-    n = len(crystal)
-    frac = wrapped_fractional(crystal.cell, crystal.positions)
-    if groups is None:
-        return np.arange(n), frac, frac.copy()
-    try:
-        ids = np.array(groups).reshape(-1)
-    except (TypeError, ValueError):
-        raise InputError("groups must give one ion number per site") from None
-    if ids.shape != (n,):
-        raise InputError(f"groups has {ids.size} entries for {n} sites")
-    _, atom_unit = np.unique(ids, return_inverse=True)
-    atom_unit = atom_unit.reshape(-1)
-    shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)], dtype=float)
-    limit = 0.5 * float(plane_spacings(crystal.cell).min())
-    atom_frac = frac.copy()
-    centroids = []
-    for unit in range(atom_unit.max() + 1):
-        members = np.flatnonzero(atom_unit == unit)
-        anchor = frac[members[0]]
-        for m in members[1:]:
-            candidates = frac[m] - anchor + shifts
-            lengths = np.linalg.norm(candidates @ crystal.cell, axis=1)
-            best = int(np.argmin(lengths))
-            if lengths[best] > limit:
-                raise InputError(f"groups: site {crystal.labels[m]} is {lengths[best]:.2f} Å from "
-                                 f"{crystal.labels[members[0]]} of the same ion, more than half the cell allows")
-            atom_frac[m] = anchor + candidates[best]
-        centroid = atom_frac[members].mean(axis=0)
-        fold = np.floor(centroid)
-        atom_frac[members] -= fold
-        centroids.append(centroid - fold)
-    return atom_unit, atom_frac, np.array(centroids)
-
-
-def _array_ions(crystal, center, field_radius, groups):
-    """Every whole ion whose centre lies within ``field_radius`` of ``center``: crystal site, Cartesian
-    position and distance of its ion's centre, sorted by that distance."""
-    atom_unit, atom_frac, centroids = _ion_units(crystal, groups)
-    cell = crystal.cell
-    spacings = plane_spacings(cell)
-    center_frac = np.linalg.solve(cell.T, center)
-    low = np.floor(center_frac - field_radius / spacings - 1).astype(int)
-    high = np.ceil(center_frac + field_radius / spacings).astype(int)
-    counts = high - low + 1
-    if int(np.prod(counts)) * len(centroids) > MAX_CANDIDATES:
-        raise InputError(f"field radius {field_radius:g} Å needs {int(np.prod(counts)) * len(centroids)} "
-                         f"candidate ion positions in this cell (limit {MAX_CANDIDATES}); choose a smaller radius")
-    grid = np.stack(np.meshgrid(*[np.arange(low[a], high[a] + 1) for a in range(3)], indexing="ij"), -1)
-    translations = grid.reshape(-1, 3).astype(float)
-    centres = (translations[:, None, :] + centroids[None, :, :]) @ cell  # (T, U, 3)
-    distance = np.linalg.norm(centres - center, axis=2)
-    t_index, u_index = np.nonzero(distance <= field_radius + 1e-9)
-    unit_distance = distance[t_index, u_index]
-    members = [np.flatnonzero(atom_unit == u) for u in range(len(centroids))]
-    sites, positions, distances = [], [], []
-    for t, u, d in zip(t_index, u_index, unit_distance):
-        for m in members[u]:
-            sites.append(m)
-            positions.append((translations[t] + atom_frac[m]) @ cell)
-            distances.append(d)
-    sites, positions, distances = np.array(sites), np.array(positions), np.array(distances)
-    order = np.lexsort((sites, np.round(distances, 9)))
-    return sites[order], np.ascontiguousarray(positions[order]), distances[order]
-
-
-def _sphere_grid(center, radius, spacing, shift):
-    steps = int(math.floor(radius / spacing)) + 1
-    axis = (np.arange(-steps, steps + 1) + shift) * spacing
-    points = np.stack(np.meshgrid(axis, axis, axis, indexing="ij"), -1).reshape(-1, 3)
-    return points[np.linalg.norm(points, axis=1) <= radius] + center
-
-
-def _clear_of_ions(points, positions):
-    distance, _ = cKDTree(positions).query(points)
-    return points[distance > GRID_CLEARANCE]
-
-
 # ---------------------------------------------------------------- fit
 def constrained_least_squares(matrix, target, constraints, values, free_constant=False):
     """Minimum-norm x minimising |matrix x - target (- c)|^2 subject to constraints x = values exactly.
@@ -395,24 +255,6 @@ def _array_potentials(points, positions, charges):
     return COULOMB_CONSTANT * kernels.free_space_potentials(np.ascontiguousarray(points, dtype=np.float64),
                                                             positions, np.ascontiguousarray(charges, np.float64),
                                                             ON_ION_DISTANCE)
-
-
-def _boundary_cations(crystal, positions, charges, in_cluster, anion_cation_distance):
-    cluster_anions = positions[in_cluster & (charges < 0)]
-    outside = np.flatnonzero(~in_cluster & (charges > 0))
-    if not len(cluster_anions) or not len(outside) or anion_cation_distance is None:
-        return np.array([], dtype=int), np.array([])
-    distance, _ = cKDTree(cluster_anions).query(positions[outside])
-    near = distance <= BOUNDARY_FACTOR * anion_cation_distance
-    return outside[near], distance[near]
-
-
-def _shortest_cation_anion(crystal, sites, positions, charges):
-    cations, anions = positions[charges > 0], positions[charges < 0]
-    if not len(cations) or not len(anions):
-        return None
-    distance, _ = cKDTree(anions).query(cations)
-    return float(distance.min())
 
 
 def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness=None,
@@ -488,9 +330,9 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
     if grid_spacing > cluster_radius:
         raise InputError(f"grid spacing {grid_spacing:g} Å is larger than the cluster radius {cluster_radius:g} Å")
 
-    sites, positions, distances = _array_ions(crystal, center, field_radius, groups)
+    sites, positions, distances = array_ions(crystal, center, field_radius, groups)
     formal = q[sites]
-    shortest = _shortest_cation_anion(crystal, sites, positions, formal)
+    shortest = shortest_cation_anion(crystal, sites, positions, formal)
     if fitted_thickness is None:
         fitted_thickness = max(3.0, 2.0 * shortest) if shortest else 3.0
     fitted_thickness = _positive(fitted_thickness, "fitted thickness")
@@ -508,8 +350,8 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
 
     # fitting points: the cluster sites and a grid filling the cluster sphere; a shifted grid checks
     cluster_points = positions[in_cluster]
-    grid = _clear_of_ions(_sphere_grid(center, cluster_radius, grid_spacing, 0.0), positions)
-    check = _clear_of_ions(_sphere_grid(center, cluster_radius, grid_spacing, 0.5), positions)
+    grid = clear_of_ions(sphere_grid(center, cluster_radius, grid_spacing, 0.0), positions)
+    check = clear_of_ions(sphere_grid(center, cluster_radius, grid_spacing, 0.5), positions)
     everything = np.concatenate([cluster_points, grid, check])
     exclude = np.concatenate([sites[in_cluster], np.full(len(grid) + len(check), -1)])
     periodic = potential_at(crystal, everything, tol=tol, exclude=exclude)
@@ -536,14 +378,14 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
     if offset == "free":
         bare = bare - bare.mean()
 
-    boundary, boundary_distance = _boundary_cations(crystal, positions, formal, in_cluster, shortest)
+    boundary, boundary_distance = boundary_cations(crystal, positions, formal, in_cluster, shortest)
     outside = np.flatnonzero(~in_cluster)
     charge_index = np.full(len(positions), -1)
     charge_index[outside] = np.arange(len(outside))
     cations = tuple(BoundaryCation(int(charge_index[i]), crystal.labels[sites[i]], crystal.symbols[sites[i]],
                                    float(d)) for i, d in zip(boundary, boundary_distance))
     if warn and cations:
-        names = ", ".join(f"{c.label} at {c.distance:.2f} Å" for c in cations[:8])
+        names = ", ".join(f"{c.label} #{c.charge_index} at {c.distance:.2f} Å" for c in cations[:8])
         more = f" and {len(cations) - 8} more" if len(cations) > 8 else ""
         warnings.warn(f"{len(cations)} point-charge cation(s) lie next to the cluster's anions ({names}{more}); "
                       "bare positive point charges there can pull electrons out of the cluster, and "
