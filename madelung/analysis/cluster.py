@@ -145,6 +145,7 @@ def array_ions(crystal, center, field_radius, groups):
 
 
 def sphere_grid(center, radius, spacing, shift):
+    """Points of a cubic grid of the given step (offset by ``shift`` steps) inside a sphere."""
     steps = int(math.floor(radius / spacing)) + 1
     axis = (np.arange(-steps, steps + 1) + shift) * spacing
     points = np.stack(np.meshgrid(axis, axis, axis, indexing="ij"), -1).reshape(-1, 3)
@@ -152,11 +153,14 @@ def sphere_grid(center, radius, spacing, shift):
 
 
 def clear_of_ions(points, positions):
+    """The points farther than GRID_CLEARANCE from every ion."""
     distance, _ = cKDTree(positions).query(points)
     return points[distance > GRID_CLEARANCE]
 
 
-def boundary_cations(crystal, positions, charges, in_cluster, anion_cation_distance):
+def boundary_cations(positions, charges, in_cluster, anion_cation_distance):
+    """Indices of the cations outside the cluster within BOUNDARY_FACTOR x the shortest cation-anion
+    distance of an anion of the cluster, and those distances (Å)."""
     cluster_anions = positions[in_cluster & (charges < 0)]
     outside = np.flatnonzero(~in_cluster & (charges > 0))
     if not len(cluster_anions) or not len(outside) or anion_cation_distance is None:
@@ -166,7 +170,8 @@ def boundary_cations(crystal, positions, charges, in_cluster, anion_cation_dista
     return outside[near], distance[near]
 
 
-def shortest_cation_anion(crystal, sites, positions, charges):
+def shortest_cation_anion(positions, charges):
+    """Shortest distance between a positive and a negative charge, Å (None without both)."""
     cations, anions = positions[charges > 0], positions[charges < 0]
     if not len(cations) or not len(anions):
         return None

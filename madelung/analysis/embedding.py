@@ -332,7 +332,7 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
 
     sites, positions, distances = array_ions(crystal, center, field_radius, groups)
     formal = q[sites]
-    shortest = shortest_cation_anion(crystal, sites, positions, formal)
+    shortest = shortest_cation_anion(positions, formal)
     if fitted_thickness is None:
         fitted_thickness = max(3.0, 2.0 * shortest) if shortest else 3.0
     fitted_thickness = _positive(fitted_thickness, "fitted thickness")
@@ -378,7 +378,7 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
     if offset == "free":
         bare = bare - bare.mean()
 
-    boundary, boundary_distance = boundary_cations(crystal, positions, formal, in_cluster, shortest)
+    boundary, boundary_distance = boundary_cations(positions, formal, in_cluster, shortest)
     outside = np.flatnonzero(~in_cluster)
     charge_index = np.full(len(positions), -1)
     charge_index[outside] = np.arange(len(outside))
