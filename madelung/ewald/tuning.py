@@ -29,10 +29,11 @@ factors, and the plane spacing underestimates the indices needed). So the estima
 
     dE_mesh = k_e / 2 * Q * alpha * A_n * mean_a (alpha h_a / pi)^s_n
 
-with A_n, s_n calibrated (MESH_ERROR_MODEL, ``benchmarks/calibrate_mesh.py``) on rattled
-prototypes, random triclinic cells and strongly skewed small cells; for orthogonal cells
-|a_a| equals the plane spacing and the calibration is unchanged. The sums themselves run in a
-reduced basis (:mod:`.plan`), where |a_a| is close to the plane spacing.
+with A_n, s_n calibrated (MESH_ERROR_MODEL, ``benchmarks/calibrate_mesh.py``) on the bundled
+prototypes, rattled supercells, both also in oblique bases, random triclinic cells and strongly
+skewed small cells, with a 2x margin. The sums run in a reduced basis (:mod:`.plan`), where |a_a|
+is close to the plane spacing; a check against an independent direct sum guards the estimate
+(:mod:`.mesh`).
 
 Rounding: double precision resolves an energy only to about ``eps * E_scale * sqrt(terms per
 ion)`` (each ion's potential is a sum of that many terms of size up to k_e q / d_min, rounded
@@ -79,12 +80,13 @@ TUNED_ORDERS = (4, 6, 8)
 ALLOWED_ORDERS = (4, 5, 6, 7, 8)
 
 #: Calibrated mesh error model: order -> (A_n, s_n). The exponents s_n are least-squares fits and
-#: A_n twice the largest prefactor seen, both printed by benchmarks/calibrate_mesh.py (largest A:
-#: 14.6, 1222, 420, 2.33e4, 2.56e4 for orders 4..8, set by small strongly skewed cells measured
-#: with the plane spacing as step, which is never larger than |a_a|: the values stay an upper
-#: bound with the lattice-vector length).
-MESH_ERROR_MODEL = {4: (29.3, 4.220), 5: (2444.0, 6.784), 6: (840.0, 7.055), 7: (4.65e4, 9.148),
-                    8: (5.12e4, 9.779)}
+#: A_n twice the largest prefactor seen, both printed by benchmarks/calibrate_mesh.py, run on the
+#: reduced basis with the step |a_a| / K_a over 1254 cases: the bundled prototypes as given, as
+#: rattled 2x2x2 supercells and both again in an oblique basis, random triclinic cells and small
+#: strongly skewed cells, alpha d_min 2 to 4.5 (largest A: 8.54, 776.6, 210.1, 1.477e4, 4972 for
+#: orders 4..8; medians 4.48, 166, 89.4, 2506, 2600).
+MESH_ERROR_MODEL = {4: (17.1, 4.201), 5: (1553.0, 6.816), 6: (420.0, 7.069), 7: (2.95e4, 9.247),
+                    8: (9944.0, 9.816)}
 
 #: Nanoseconds of one thread per unit of work of the mesh part (rattled rock salt, N = 4096 and
 #: 32768): one (ion, mesh point) spline weight, one point x log2(points) of an FFT, and the
