@@ -81,10 +81,12 @@ from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy
 from .thermochemistry import born_haber_cycle  # noqa: E402
 from .calculator import RigidIonCalculator, relax  # noqa: E402
 from .descriptors import describe  # noqa: E402
+from .analysis.orderings import OrderingRanking, rank_orderings  # noqa: E402
 
 __all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
            "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning",
            "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
            "charged_cell_correction", "correction_series",
            "PairPotential", "RepulsionModel", "shortrange", "FitTarget", "fit_repulsion", "lattice_energy",
-           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax"]
+           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax",
+           "rank_orderings", "OrderingRanking"]

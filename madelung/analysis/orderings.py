@@ -297,13 +297,14 @@ def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False
     position[sites] = np.arange(len(sites))
     restricted = np.unique(position[perms[:, sites]], axis=0)
 
-    composition = {}
+    composition = {el: 0 for i in range(n_parent) for el, _ in crystal.species_of(i)}  # order of the file
     for i in np.flatnonzero(fixed):
         composition[big.symbols[i]] = composition.get(big.symbols[i], 0) + 1
     for row in counts:
         for code, n in enumerate(row):
             if species[code][0] != VACANCY and n:
                 composition[species[code][0]] = composition.get(species[code][0], 0) + n
+    composition = {el: n for el, n in composition.items() if n}
     units = int(np.gcd.reduce(np.array(list(composition.values()), dtype=np.int64)))
     formula = "".join(f"{el}{'' if n // units == 1 else n // units}" for el, n in composition.items())
     for array in (coulomb, phi_fixed, restricted):
@@ -367,6 +368,7 @@ class OrderingRanking:
     energies : (K,) energy of every distinct ordering enumerated (or found), eV per supercell, lowest first.
     degeneracies : (K,) their orbit sizes.
     indices : (K,) their positions in the lexicographic walk (enumeration), else None.
+    found : (K, N) species codes of the orderings the search found (search), else None.
     formula : formula unit; ``formula_units`` of them in the supercell.
     supercell : the supercell matrix as text, e.g. ``"2x2x1"``.
     sites : number of disordered sites; ``sublattices`` names them with their ion counts.
@@ -384,6 +386,7 @@ class OrderingRanking:
     energies: np.ndarray = field(repr=False)
     degeneracies: np.ndarray = field(repr=False)
     indices: np.ndarray | None = field(repr=False)
+    found: np.ndarray | None = field(repr=False)
     formula: str
     formula_units: int
     supercell: str
@@ -405,6 +408,11 @@ class OrderingRanking:
     def atoms(self, rank=1):
         """The same as an ``ase.Atoms`` (charges as initial charges)."""
         return self.crystal(rank).to_ase()
+
+    def occupation_text(self, row) -> str:
+        """One ordering (species codes) as text: the element on each disordered site, ``-`` for a vacancy."""
+        return " ".join("-" if self.problem.species[int(c)][0] == VACANCY else self.problem.species[int(c)][0]
+                        for c in row)
 
     def _ordering(self, rank):
         if not 1 <= int(rank) <= len(self.orderings):
@@ -517,7 +525,8 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
                         for name, count in zip(problem.sublattice_names, problem.counts))
     return OrderingRanking(method=method, orderings=tuple(kept), total_orderings=total, distinct_orderings=distinct,
                            enumerated_distinct=len(energies), energies=np.asarray(energies),
-                           degeneracies=degeneracies, indices=indices, formula=problem.formula,
+                           degeneracies=degeneracies, indices=indices,
+                           found=None if indices is not None else np.asarray(rows), formula=problem.formula,
                            formula_units=problem.formula_units, supercell=problem.supercell_text,
                            sites=len(problem.sites), sublattices=sublattices, symmetry_operations=n_ops,
                            candidates_visited=int(visited), seconds=time.perf_counter() - started,
