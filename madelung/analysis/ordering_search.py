@@ -100,6 +100,8 @@ def _run(problem, function, worker_function, tasks, workers, scheduler):
 
     methods = multiprocessing.get_all_start_methods()
     context = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if context.get_start_method() == "forkserver":
+        context.set_forkserver_preload(["madelung.analysis.orderings"])
     with _main_module_hidden(), ProcessPoolExecutor(max_workers=min(workers, len(tasks)), mp_context=context,
                                                     initializer=_install, initargs=(problem,)) as pool:
         futures = [pool.submit(worker_function, *task) for task in tasks]

@@ -203,7 +203,7 @@ def _ion_charges(crystal, given):
         elif missing:
             names = [parts[k][0] for k in missing]
             raise InputError(f"{where}site {crystal.labels[i]} mixes {' and '.join(names)}; give the charge of each "
-                             f"ion, e.g. --charge {names[0]}=Q --charge {names[1]}=Q")
+                             f"ion (ion_charges={{'{names[0]}': Q, ...}}, or --charge {names[0]}=Q on the command line)")
         result.append(tuple(known))
     return result
 
@@ -212,7 +212,7 @@ def _smallest_supercells(needed, limit=4):
     """Diagonal supercells with ``needed`` parent cells, most compact first, as text."""
     shapes = sorted({(a, b, needed // (a * b)) for a in range(1, needed + 1) if needed % a == 0
                      for b in range(1, needed // a + 1) if (needed // a) % b == 0},
-                    key=lambda s: (max(s) - min(s), s))
+                    key=lambda s: (max(s) - min(s), [-x for x in s]))
     return ", ".join("x".join(map(str, s)) for s in shapes[:limit])
 
 
