@@ -1451,7 +1451,7 @@ def _run_eos(args):
 
 # ---------------------------------------------------------------- orderings
 def _add_orderings(sub):
-    from .analysis.orderings import DEFAULT_MAX_CANDIDATES
+    from .analysis.orderings import DEFAULT_MAX_DISTINCT
     from .crystal import DEFAULT_MAX_ATOMS
     from .symmetry import DEFAULT_SYMPREC
 
@@ -1472,9 +1472,9 @@ def _add_orderings(sub):
                         help="format of the table of all energies (default parquet)")
     parser.add_argument("--strategy", choices=("auto", "enumeration", "search"), default="auto",
                         help="enumerate every ordering, search by simulated annealing, or enumerate when there are "
-                             "at most --max-candidates orderings (auto, default)")
-    parser.add_argument("--max-candidates", type=int, default=DEFAULT_MAX_CANDIDATES, metavar="N",
-                        help=f"largest number of orderings to enumerate (default {DEFAULT_MAX_CANDIDATES:.0e})")
+                             "at most --max-distinct symmetry-distinct orderings (auto, default)")
+    parser.add_argument("--max-distinct", type=int, default=DEFAULT_MAX_DISTINCT, metavar="N",
+                        help=f"largest number of symmetry-distinct orderings to enumerate (default {DEFAULT_MAX_DISTINCT:.0e})")
     parser.add_argument("--restarts", type=int, default=8, metavar="N", help="independent annealing runs (default 8)")
     parser.add_argument("--sweeps", type=int, default=50, metavar="N",
                         help="attempted swaps per site at each annealing temperature (default 50)")
@@ -1537,7 +1537,7 @@ def _run_orderings(args):
                                               **_crystal_options(args))
     ranking = rank_orderings(crystal, args.supercell, keep=args.keep,
                              ion_charges=_ion_charges_of(args, atoms, crystal, assignment, rules), method=args.strategy,
-                             max_candidates=args.max_candidates, restarts=args.restarts, sweeps=args.sweeps,
+                             max_distinct=args.max_distinct, restarts=args.restarts, sweeps=args.sweeps,
                              seed=args.seed, workers=args.workers, scheduler=args.scheduler,
                              background=args.background, tol=args.tol, symprec=args.symprec)
     files = write_ranking(ranking, args.out, table_format=args.table, overwrite=args.overwrite)
@@ -1554,7 +1554,8 @@ def _run_orderings(args):
     if exact:
         print(f"  enumerated  {ranking.enumerated_distinct} distinct orderings "
               f"({'equal to' if ranking.enumerated_distinct == ranking.distinct_orderings else 'DIFFERENT FROM'} "
-              f"Burnside's count) in {ranking.seconds:.2f} s")
+              f"Burnside's count) in {ranking.seconds:.2f} s; energies computed for {ranking.candidates_visited}, "
+              "the rest skipped as copies of orderings already counted")
     else:
         print(f"  search      simulated annealing, {args.restarts} restarts, {ranking.candidates_visited} swaps tried, "
               f"{ranking.enumerated_distinct} distinct orderings found in {ranking.seconds:.2f} s; a search, not a "

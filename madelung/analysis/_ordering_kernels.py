@@ -85,8 +85,9 @@ def _next_in_segment(x, lo, hi, old):
 
 @njit(cache=True, inline="always")
 def _orbit_test(x, inverse_ops):
-    """(is x the lexicographic minimum of its orbit, size of its stabilizer). Row g of
-    ``inverse_ops`` lists g^-1: the permuted ordering is ``x[inverse_ops[g]]``."""
+    """Is x the lexicographic minimum of its orbit? Returns (yes, size of its stabilizer, an operation
+    g that makes it smaller, the first position where g x is smaller). Row g of ``inverse_ops``
+    lists g^-1: the moved ordering is ``x[inverse_ops[g]]``."""
     n_ops, n = inverse_ops.shape
     fixed = 0
     for g in range(n_ops):
@@ -95,21 +96,53 @@ def _orbit_test(x, inverse_ops):
             a = x[inverse_ops[g, p]]
             b = x[p]
             if a < b:
-                return False, 0
+                return False, 0, g, p
             if a > b:
                 same = False
                 break
         if same:
             fixed += 1
-    return True, fixed
+    return True, fixed, -1, -1
 
 
 @njit(cache=True)
-def enumerate_chunk(coulomb, phi_fixed, energy_fixed, charge_of, seg_start, inverse_ops, x, count,
-                    out_offset, out_energy, out_fixed):
-    """Visit ``count`` orderings from ``x`` on (lexicographic, last segment fastest) and record the
-    orbit minima: their offset from the first, energy (eV) and stabilizer size. Returns how many were
-    recorded. ``x`` is left at the last ordering visited."""
+def _segment_rank(x, lo, hi, counts, arrangements, work):
+    """Position of x[lo:hi] among the lexicographically ordered arrangements of its multiset
+    (``counts`` per code, ``arrangements`` of them in all)."""
+    for c in range(counts.shape[0]):
+        work[c] = counts[c]
+    left = hi - lo
+    m = arrangements
+    rank = 0
+    for i in range(lo, hi):
+        xi = x[i]
+        for c in range(xi):
+            if work[c] > 0:
+                rank += m * work[c] // left
+        m = m * work[xi] // left
+        work[xi] -= 1
+        left -= 1
+    return rank
+
+
+@njit(cache=True)
+def _is_before(x, end):
+    for i in range(x.shape[0]):
+        if x[i] != end[i]:
+            return x[i] < end[i]
+    return False
+
+
+@njit(cache=True)
+def enumerate_range(coulomb, phi_fixed, energy_fixed, charge_of, seg_start, seg_counts, seg_arrangements,
+                    seg_below, inverse_ops, x, x_end, has_end, min_skip, out_rank, out_energy, out_fixed):
+    """Walk the orderings from ``x`` (lexicographic, last segment fastest) up to ``x_end`` (excluded;
+    to the last ordering if not ``has_end``) and record the orbit minima: their position in the walk,
+    energy (eV) and stabilizer size. Returns (recorded, orderings whose energy was computed).
+
+    When an operation g makes x smaller at position p, every ordering that agrees with x up to
+    m = max(p, max_{q<=p} g^-1(q)) is made smaller by g as well; if at least ``min_skip`` positions
+    follow m, the walk jumps past all of them (their energies are never computed)."""
     n = x.shape[0]
     n_seg = seg_start.shape[0] - 1
     charges = np.empty(n)
@@ -117,17 +150,58 @@ def enumerate_chunk(coulomb, phi_fixed, energy_fixed, charge_of, seg_start, inve
         charges[i] = charge_of[x[i]]
     phi = np.empty(n)
     old = np.empty(n, dtype=x.dtype)
+    work = np.empty(seg_counts.shape[1], dtype=np.int64)
+    tally = np.empty(seg_counts.shape[1], dtype=np.int64)
     energy = full_energy(coulomb, phi_fixed, energy_fixed, charges, phi)
     recorded = 0
-    for step in range(count):
-        canonical, fixed = _orbit_test(x, inverse_ops)
+    visited = 0
+    while True:
+        visited += 1
+        canonical, fixed, g, p = _orbit_test(x, inverse_ops)
         if canonical:
-            out_offset[recorded] = step
+            rank = 0
+            for s in range(n_seg):
+                rank += _segment_rank(x, seg_start[s], seg_start[s + 1], seg_counts[s], seg_arrangements[s],
+                                      work) * seg_below[s]
+            out_rank[recorded] = rank
             out_energy[recorded] = energy
             out_fixed[recorded] = fixed
             recorded += 1
-        if step == count - 1:
-            break
+        else:
+            m = p
+            for q in range(p + 1):
+                if inverse_ops[g, q] > m:
+                    m = inverse_ops[g, q]
+            if n - 1 - m >= min_skip:
+                # everything after m to its last (descending) arrangement: the next step leaves the subtree
+                for k in range(m + 1, n):
+                    old[k] = x[k]
+                for s in range(n_seg):
+                    lo, hi = seg_start[s], seg_start[s + 1]
+                    if hi <= m + 1:
+                        continue
+                    first = max(lo, m + 1)
+                    for c in range(tally.shape[0]):
+                        tally[c] = 0
+                    for k in range(first, hi):
+                        tally[x[k]] += 1
+                    k = first
+                    for c in range(tally.shape[0] - 1, -1, -1):
+                        for _ in range(tally[c]):
+                            x[k] = c
+                            k += 1
+                changed = 0
+                for k in range(m + 1, n):
+                    if x[k] != old[k]:
+                        changed += 1
+                if 2 * changed > n:
+                    for i in range(n):
+                        charges[i] = charge_of[x[i]]
+                    energy = full_energy(coulomb, phi_fixed, energy_fixed, charges, phi)
+                else:
+                    for k in range(m + 1, n):
+                        if x[k] != old[k]:
+                            energy = _change_site(coulomb, phi, k, charge_of[x[k]] - charge_of[old[k]], energy)
         s = n_seg - 1
         while s >= 0:
             lo, hi = seg_start[s], seg_start[s + 1]
@@ -138,11 +212,15 @@ def enumerate_chunk(coulomb, phi_fixed, energy_fixed, charge_of, seg_start, inve
             if not wrapped:
                 break
             s -= 1
-        if (step + 1) % REFRESH_STEPS == 0:
+        if s < 0:          # past the last ordering
+            break
+        if has_end and not _is_before(x, x_end):
+            break
+        if visited % REFRESH_STEPS == 0:
             for i in range(n):
                 charges[i] = charge_of[x[i]]
             energy = full_energy(coulomb, phi_fixed, energy_fixed, charges, phi)
-    return recorded
+    return recorded, visited
 
 
 @njit(cache=True)

@@ -23,7 +23,7 @@ import numpy as np
 from ..errors import InputError
 from ..screen import _main_module_hidden, prepare_process
 from . import _ordering_kernels as kernels
-from .ordering_symmetry import canonical_form
+from .ordering_symmetry import canonical_form, multinomial
 
 #: Orderings visited per enumeration chunk at most (the chunk's output arrays are this long).
 MAX_CHUNK = 1 << 20
@@ -37,17 +37,38 @@ def _install(problem):
     _PROBLEM = problem
 
 
-def enumerate_chunk(problem, start, count):
-    """Visit ``count`` orderings from position ``start`` of the walk. Returns (positions, energies in
-    eV, stabilizer sizes) of the orbit minima among them."""
+#: Jump past the orderings that share a non-minimal prefix only when at least this many positions follow it.
+MIN_SKIP = 6
+
+
+def walk_arrays(problem):
+    """Segment bounds, per-segment code counts, arrangements per segment and the walk positions one
+    step of each segment is worth (int64; the walk must have fewer than 2^62 positions)."""
+    if problem.total_orderings >= 2**62:
+        raise InputError(f"{problem.total_orderings} orderings are too many to enumerate; use the search")
+    sizes = [multinomial(c) for c in problem.counts]
+    below = [math.prod(sizes[s + 1:]) for s in range(len(sizes))]
+    return (np.array([lo for lo, _ in problem.segments] + [problem.segments[-1][1]], dtype=np.int64),
+            np.array(problem.counts, dtype=np.int64).reshape(len(sizes), -1), np.array(sizes, dtype=np.int64),
+            np.array(below, dtype=np.int64))
+
+
+def enumerate_range(problem, start, stop):
+    """Walk positions ``start`` to ``stop`` (excluded). Returns (positions, energies in eV, stabilizer
+    sizes) of the orbit minima among them, and how many orderings had their energy computed (the
+    others were skipped as provably not minimal)."""
+    starts, counts, sizes, below = walk_arrays(problem)
     x = problem.ordering_at(start)
-    offsets = np.empty(count, dtype=np.int64)
-    energies = np.empty(count)
-    fixed = np.empty(count, dtype=np.int64)
-    found = kernels.enumerate_chunk(problem.coulomb, problem.phi_fixed, problem.energy_fixed, problem.charge_of,
-                                    np.array([lo for lo, _ in problem.segments] + [len(x)], dtype=np.int64),
-                                    problem.inverse_ops, x, int(count), offsets, energies, fixed)
-    return offsets[:found] + int(start), energies[:found], fixed[:found]
+    has_end = stop < problem.total_orderings
+    end = problem.ordering_at(stop) if has_end else x.copy()
+    length = max(1, int(stop) - int(start))
+    ranks = np.empty(length, dtype=np.int64)
+    energies = np.empty(length)
+    fixed = np.empty(length, dtype=np.int64)
+    found, visited = kernels.enumerate_range(problem.coulomb, problem.phi_fixed, problem.energy_fixed,
+                                             problem.charge_of, starts, counts, sizes, below, problem.inverse_ops,
+                                             x, end, has_end, MIN_SKIP, ranks, energies, fixed)
+    return ranks[:found], energies[:found], fixed[:found], int(visited)
 
 
 def anneal_restart(problem, seed, temperatures, sweeps, pool_size):
@@ -68,8 +89,8 @@ def anneal_restart(problem, seed, temperatures, sweeps, pool_size):
     return pool_x[good], pool_energy[good], int(attempts)
 
 
-def _chunk_in_worker(start, count):
-    return enumerate_chunk(_PROBLEM, start, count)
+def _range_in_worker(start, stop):
+    return enumerate_range(_PROBLEM, start, stop)
 
 
 def _restart_in_worker(seed, temperatures, sweeps, pool_size):
@@ -108,16 +129,18 @@ def _run(problem, function, worker_function, tasks, workers, scheduler):
         return [future.result() for future in futures]
 
 
-def run_enumeration(problem, workers=1, scheduler=None, chunk=None):
-    """Every orbit minimum with its position in the walk, energy (eV) and stabilizer size."""
-    total = problem.total_orderings
+def run_enumeration(problem, workers=1, scheduler=None, chunk=None, first=0, count=None):
+    """Every orbit minimum with its position in the walk, energy (eV) and stabilizer size, from position
+    ``first`` of the walk for ``count`` positions (default: all); and the number of orderings whose
+    energy was computed."""
+    end = problem.total_orderings if count is None else min(problem.total_orderings, int(first) + int(count))
     if chunk is None:
-        chunk = min(MAX_CHUNK, max(1, math.ceil(total / (4 * max(1, int(workers))))))
+        chunk = min(MAX_CHUNK, max(1, math.ceil((end - int(first)) / (4 * max(1, int(workers))))))
     chunk = max(1, min(int(chunk), MAX_CHUNK))
-    tasks = [(start, min(chunk, total - start)) for start in range(0, total, chunk)]
-    parts = _run(problem, enumerate_chunk, _chunk_in_worker, tasks, workers, scheduler)
+    tasks = [(start, min(start + chunk, end)) for start in range(int(first), end, chunk)]
+    parts = _run(problem, enumerate_range, _range_in_worker, tasks, workers, scheduler)
     return (np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]),
-            np.concatenate([p[2] for p in parts]))
+            np.concatenate([p[2] for p in parts]), sum(p[3] for p in parts))
 
 
 def temperature_schedule(problem, steps=40, seed=0):

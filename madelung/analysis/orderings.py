@@ -42,8 +42,8 @@ from . import _ordering_kernels as kernels
 from .ordering_search import run_enumeration, run_search
 from .ordering_symmetry import burnside_count, canonical_form, inverse_permutations, multinomial, site_permutations
 
-#: Exact enumeration visits every ordering (one in each orbit is kept); above this many, search.
-DEFAULT_MAX_CANDIDATES = 10**8
+#: Enumerate when there are at most this many symmetry-distinct orderings (Burnside's count); else search.
+DEFAULT_MAX_DISTINCT = 10**7
 
 #: Occupancy times sites must be this close to a whole number (CIFs print 1/3 as 0.333).
 OCCUPANCY_TOLERANCE = 2e-3
@@ -373,7 +373,9 @@ class OrderingRanking:
     supercell : the supercell matrix as text, e.g. ``"2x2x1"``.
     sites : number of disordered sites; ``sublattices`` names them with their ion counts.
     symmetry_operations : distinct site permutations of the supercell's symmetry.
-    candidates_visited : orderings evaluated (enumeration) or swaps attempted (search).
+    candidates_visited : orderings whose energy was computed (enumeration: the others were skipped,
+        whole branches of the walk at a time, as provably not the minimum of their orbit) or swaps
+        attempted (search).
     seconds : wall time of the ranking, s.
     net_charge : charge of the supercell, e (non-zero only with a neutralizing background).
     """
@@ -432,7 +434,7 @@ class OrderingRanking:
 
 
 def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="auto",
-                   max_candidates=DEFAULT_MAX_CANDIDATES, restarts=8, sweeps=50, seed=0, workers=1,
+                   max_distinct=DEFAULT_MAX_DISTINCT, restarts=8, sweeps=50, seed=0, workers=1,
                    scheduler=None, background=False, tol=1e-10, symprec=DEFAULT_SYMPREC) -> OrderingRanking:
     """Rank the orderings of a crystal's mixed and partly occupied sites in a supercell by their
     electrostatic energy.
@@ -451,9 +453,10 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
         site's averaged charge divided by its occupancy; for a mixed site the other species' charges
         are taken from elsewhere in the crystal where that is unambiguous. Vacancies carry 0.
     method : "auto", "enumeration" or "search"
-        "auto" enumerates when there are at most ``max_candidates`` orderings, else searches.
-    max_candidates : int
-        Largest number of orderings (symmetry-equivalent ones included) to enumerate.
+        "auto" enumerates when there are at most ``max_distinct`` symmetry-distinct orderings,
+        else searches.
+    max_distinct : int
+        Largest number of symmetry-distinct orderings (Burnside's count) to enumerate.
     restarts, sweeps, seed : search settings: independent annealing runs, attempted swaps per
         site at each of 40 temperatures, random seed.
     workers : int
@@ -496,15 +499,12 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
     n_ops = len(problem.inverse_ops)
     distinct = burnside_count(np.argsort(problem.inverse_ops, axis=1), problem.segments, problem.counts)
     if method == "auto":
-        method = "enumeration" if total <= int(max_candidates) else "search"
+        method = "enumeration" if distinct <= int(max_distinct) and total < 2**62 else "search"
     if method == "enumeration":
-        if total > 10 * int(max_candidates):
-            raise InputError(f"{total} orderings are too many to enumerate (limit {max_candidates}); use the search")
-        indices, energies, fixed = run_enumeration(problem, workers=workers, scheduler=scheduler)
-        order = np.argsort(energies, kind="stable")
+        indices, energies, fixed, visited = run_enumeration(problem, workers=workers, scheduler=scheduler)
+        order = np.lexsort((indices, energies))
         indices, energies, fixed = indices[order], energies[order], fixed[order]
         rows = [problem.ordering_at(i) for i in indices[:keep]]
-        visited = total
     else:
         rows, energies, fixed, visited = run_search(problem, keep=keep, restarts=restarts, sweeps=sweeps, seed=seed,
                                                     workers=workers, scheduler=scheduler)
