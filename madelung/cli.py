@@ -1474,7 +1474,8 @@ def _add_orderings(sub):
                         help="enumerate every ordering, search by simulated annealing, or enumerate when there are "
                              "at most --max-distinct symmetry-distinct orderings (auto, default)")
     parser.add_argument("--max-distinct", type=int, default=DEFAULT_MAX_DISTINCT, metavar="N",
-                        help=f"largest number of symmetry-distinct orderings to enumerate (default {DEFAULT_MAX_DISTINCT:.0e})")
+                        help="largest number of symmetry-distinct orderings to enumerate "
+                             f"(default {DEFAULT_MAX_DISTINCT:.0e})")
     parser.add_argument("--restarts", type=int, default=8, metavar="N", help="independent annealing runs (default 8)")
     parser.add_argument("--sweeps", type=int, default=50, metavar="N",
                         help="attempted swaps per site at each annealing temperature (default 50)")

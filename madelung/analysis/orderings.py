@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -105,6 +106,18 @@ class OrderingProblem:
             result *= multinomial(count)
         return result
 
+    def to_dict(self) -> dict:
+        """The set-up in plain numbers (the matrix itself left out): sites, sublattices, species
+        (element, charge in e), counts, formula, symmetry operations, net charge (e)."""
+        return {"supercell": self.supercell_text, "disordered_sites": len(self.sites),
+                "sublattices": [{"name": name, "sites": hi - lo,
+                                 "counts": {self.species[c][0]: n for c, n in enumerate(count) if n}}
+                                for name, (lo, hi), count in zip(self.sublattice_names, self.segments, self.counts)],
+                "species": [{"element": el, "charge_e": q} for el, q in self.species],
+                "total_orderings": str(self.total_orderings), "symmetry_operations": len(self.inverse_ops),
+                "formula": self.formula, "formula_units": self.formula_units, "net_charge_e": self.net_charge,
+                "energy_of_ordered_ions_eV": self.energy_fixed}
+
     def first_ordering(self) -> np.ndarray:
         """The lexicographically first ordering: each sublattice's codes in ascending order."""
         return np.concatenate([np.repeat(np.arange(len(self.species)), c) for c in self.counts]).astype(np.int64)
@@ -173,8 +186,8 @@ def _ion_charges(crystal, given):
     for i in range(len(crystal)):
         if not crystal.is_averaged(i):
             plain.setdefault(crystal.symbols[i], set()).add(round(float(crystal.charges[i]), 6))
-    by_key = dict(given) if isinstance(given, dict) else {}
-    per_site = None if given is None or isinstance(given, dict) else list(given)
+    by_key = dict(given) if isinstance(given, Mapping) else {}
+    per_site = None if given is None or isinstance(given, Mapping) else list(given)
     if per_site is not None and len(per_site) != len(crystal):
         raise InputError(f"{where}ion charges given for {len(per_site)} sites, the structure has {len(crystal)}")
     result = []
@@ -202,8 +215,9 @@ def _ion_charges(crystal, given):
             known[k] = rest / parts[k][1]
         elif missing:
             names = [parts[k][0] for k in missing]
-            raise InputError(f"{where}site {crystal.labels[i]} mixes {' and '.join(names)}; give the charge of each "
-                             f"ion (ion_charges={{'{names[0]}': Q, ...}}, or --charge {names[0]}=Q on the command line)")
+            raise InputError(f"{where}site {crystal.labels[i]} mixes {' and '.join(names)}; give the charge of "
+                             f"each ion (ion_charges={{'{names[0]}': Q, ...}}, or --charge {names[0]}=Q on the "
+                             "command line)")
         result.append(tuple(known))
     return result
 
@@ -309,7 +323,8 @@ def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False
     formula = "".join(f"{el}{'' if n // units == 1 else n // units}" for el, n in composition.items())
     for array in (coulomb, phi_fixed, restricted):
         array.setflags(write=False)
-    return OrderingProblem(supercell=big, matrix=sc.matrix, supercell_text=sc.describe(), sites=sites, segments=segments,
+    return OrderingProblem(supercell=big, matrix=sc.matrix, supercell_text=sc.describe(), sites=sites,
+                           segments=segments,
                            sublattice_names=tuple(names), species=tuple(species), counts=counts,
                            coulomb=np.ascontiguousarray(coulomb), phi_fixed=np.ascontiguousarray(phi_fixed),
                            energy_fixed=energy_fixed, inverse_ops=inverse_permutations(restricted),
