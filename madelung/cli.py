@@ -1502,9 +1502,12 @@ def _add_orderings(sub):
 
 
 def _ion_charges_of(args, atoms, crystal, assignment, rules):
-    """Per site, the charge of each of its species: from the assignment, else the rules and the file."""
+    """Per site, the charge of each of its species: from the assignment, else the rules and the file
+    (None after charge equilibration: then only single-species sites can be resolved)."""
     from .crystal import file_states
 
+    if args.charges_from == "equilibrate":
+        return None  # partial charges: each ion's charge only where a site holds one species
     if assignment is not None:
         per_site = [None] * len(crystal)
         for group, states in zip(assignment.groups, assignment.best.states):

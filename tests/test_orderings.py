@@ -181,3 +181,12 @@ def test_command_line_mixed_sites_text_report(tmp_path, capsys):
     text = capsys.readouterr().out
     assert "equal to Burnside's count" in text and "first filter" in text
     assert os.path.exists(tmp_path / "sp" / "energies.csv")
+
+
+def test_search_finds_the_lowest_distinct_orderings_the_enumeration_finds():
+    crystal = Crystal.from_file(LICOO2)
+    exact = rank_orderings(crystal, "2x2x1", keep=5, method="enumeration")
+    search = rank_orderings(crystal, "2x2x1", keep=5, method="search", restarts=4)
+    assert search.method == "search" and len(search.orderings) == 5
+    assert np.allclose([o.energy for o in search.orderings], [o.energy for o in exact.orderings], rtol=0, atol=1e-8)
+    assert [o.degeneracy for o in search.orderings] == [o.degeneracy for o in exact.orderings]

@@ -239,7 +239,8 @@ def energies_of(coulomb, phi_fixed, energy_fixed, charge_of, orderings):
 
 @njit(cache=True)
 def _remember(pool_x, pool_energy, x, energy):
-    """Keep ``x`` in the pool of the lowest distinct orderings if it belongs there."""
+    """Keep ``x`` in the pool of the lowest orderings if it belongs there, one per energy level
+    (symmetry-equivalent orderings have the same energy; so, rarely, do distinct ones)."""
     size = pool_energy.shape[0]
     worst = 0
     for k in range(size):
@@ -250,13 +251,7 @@ def _remember(pool_x, pool_energy, x, energy):
     n = x.shape[0]
     for k in range(size):
         if abs(pool_energy[k] - energy) <= 1e-9 * (1.0 + abs(energy)):
-            same = True
-            for i in range(n):
-                if pool_x[k, i] != x[i]:
-                    same = False
-                    break
-            if same:
-                return
+            return
     for i in range(n):
         pool_x[worst, i] = x[i]
     pool_energy[worst] = energy

@@ -166,7 +166,9 @@ def temperature_schedule(problem, steps=40, seed=0):
 
 
 def run_search(problem, keep=20, restarts=8, sweeps=50, seed=0, workers=1, scheduler=None):
-    """Annealing restarts; the lowest distinct (symmetry-inequivalent) orderings found.
+    """Annealing restarts; the lowest distinct (symmetry-inequivalent) orderings found. Each restart
+    keeps one ordering per energy level it visits (distinct orderings of exactly equal energy, which
+    are rare, may be found as one).
 
     Returns (orderings as canonical rows of codes, energies in eV, stabilizer sizes, attempted swaps),
     lowest first."""
