@@ -46,6 +46,10 @@ from .ordering_symmetry import burnside_count, canonical_form, inverse_permutati
 #: Enumerate when there are at most this many symmetry-distinct orderings (Burnside's count); else search.
 DEFAULT_MAX_DISTINCT = 10**7
 
+#: ... and when distinct orderings x symmetry operations stays below this: every orbit minimum is
+#: tested against every operation (about 20 ns each on one core), a few minutes at this limit.
+ENUMERATION_WORK_LIMIT = 5 * 10**9
+
 #: Occupancy times sites must be this close to a whole number (CIFs print 1/3 as 0.333).
 OCCUPANCY_TOLERANCE = 2e-3
 
@@ -468,8 +472,9 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
         site's averaged charge divided by its occupancy; for a mixed site the other species' charges
         are taken from elsewhere in the crystal where that is unambiguous. Vacancies carry 0.
     method : "auto", "enumeration" or "search"
-        "auto" enumerates when there are at most ``max_distinct`` symmetry-distinct orderings,
-        else searches.
+        "auto" enumerates when there are at most ``max_distinct`` symmetry-distinct orderings and
+        their number times the symmetry operations is at most :data:`ENUMERATION_WORK_LIMIT`
+        (each orbit minimum is tested against every operation), else searches.
     max_distinct : int
         Largest number of symmetry-distinct orderings (Burnside's count) to enumerate.
     restarts, sweeps, seed : search settings: independent annealing runs, attempted swaps per
@@ -514,7 +519,8 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
     n_ops = len(problem.inverse_ops)
     distinct = burnside_count(np.argsort(problem.inverse_ops, axis=1), problem.segments, problem.counts)
     if method == "auto":
-        method = "enumeration" if distinct <= int(max_distinct) and total < 2**62 else "search"
+        small = distinct <= int(max_distinct) and distinct * n_ops <= ENUMERATION_WORK_LIMIT
+        method = "enumeration" if small and total < 2**62 else "search"
     if method == "enumeration":
         indices, energies, fixed, visited = run_enumeration(problem, workers=workers, scheduler=scheduler)
         order = np.lexsort((indices, energies))
