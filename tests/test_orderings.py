@@ -190,3 +190,11 @@ def test_search_finds_the_lowest_distinct_orderings_the_enumeration_finds():
     assert search.method == "search" and len(search.orderings) == 5
     assert np.allclose([o.energy for o in search.orderings], [o.energy for o in exact.orderings], rtol=0, atol=1e-8)
     assert [o.degeneracy for o in search.orderings] == [o.degeneracy for o in exact.orderings]
+
+
+def test_matrix_supercell_keeps_the_mixed_sites():
+    # a √2 x √2 x 2 supercell given as a matrix: 4 sites, C(4, 2) = 6 orderings, rock salt among them
+    ranking = rank_orderings(simple_cubic(), [[1, 1, 0], [-1, 1, 0], [0, 0, 2]], keep=10, ion_charges=PLUS_MINUS)
+    assert ranking.total_orderings == 6 and ranking.distinct_orderings == ranking.enumerated_distinct
+    assert ranking.orderings[0].space_group == "Fm-3m (225)"
+    _ewald_check(ranking, [o.codes for o in ranking.orderings])
