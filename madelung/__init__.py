@@ -76,10 +76,12 @@ from .thermochemistry import born_haber_cycle  # noqa: E402
 from .calculator import RigidIonCalculator, relax  # noqa: E402
 from .descriptors import describe  # noqa: E402
 from .analysis.embedding import Embedding, embedding  # noqa: E402
+from .analysis.orderings import OrderingRanking, rank_orderings  # noqa: E402
 
 __all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "SumPlan", "plan_for", "madelung_constants",
            "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning",
            "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
            "charged_cell_correction", "correction_series",
            "PairPotential", "RepulsionModel", "shortrange", "FitTarget", "fit_repulsion", "lattice_energy",
-           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax", "embedding", "Embedding"]
+           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax", "embedding", "Embedding",
+           "rank_orderings", "OrderingRanking"]

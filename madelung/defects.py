@@ -933,7 +933,7 @@ def make_supercell(crystal, supercell=None, min_length=None) -> Supercell:
     tile = lambda seq: [x for _ in range(det) for x in seq]  # noqa: E731
     big = Crystal(new_cell, positions, np.tile(crystal.charges, det), tile(crystal.symbols), tile(crystal.labels),
                   np.tile(crystal.occupancies, det), source=crystal.source, min_distance=crystal.min_distance,
-                  info=crystal.info)
+                  info=crystal.info, species=None if crystal.species is None else tile(crystal.species))
     return Supercell(big, matrix, crystal)
 
 
