@@ -18,6 +18,8 @@ import warnings
 import numpy as np
 
 from . import __version__
+from .analysis.embedding import OFFSETS as EMBEDDING_OFFSETS, embedding
+from .analysis.embedding_files import FILES as EMBEDDING_FILES, check_output_folder, embedding_report, write_embedding
 from .errors import InputError, MadelungWarning
 from .constants import CONVENTION_TEXT
 from .units import EV_TO_KJ_PER_MOL
@@ -69,6 +71,12 @@ def _structure_options(parser, charges_from=True):
         parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
                             help="where charges come from: the file (default), assigned oxidation states (auto; "
                                  "states in the file and --charge rules are kept) or charge equilibration")
+    parser.add_argument("--block", metavar="NAME|NUMBER", default=None,
+                        help="the CIF data block (or frame) to read, by name or number counted from 1; needed "
+                             "for a file with several structures")
+    parser.add_argument("--allow-net-charge", action="store_true",
+                        help="sum a cell the file's states and occupancies leave charged, with a uniform "
+                             "neutralizing background (refused by default)")
     parser.add_argument("--occupancy", choices=("average", "error"), default="average",
                         help="mixed or partly occupied sites: occupancy-weighted mean charge with a warning "
                              "(average, default) or refuse the file (error)")
@@ -84,16 +92,19 @@ def _structure_defaults(args):
     from .symmetry import DEFAULT_SYMPREC
 
     for name, value in (("min_distance", 0.5), ("occupancy", "average"), ("max_atoms", DEFAULT_MAX_ATOMS),
-                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input")):
+                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input"),
+                        ("block", None), ("allow_net_charge", False), ("charge", [])):
         if not hasattr(args, name):
             setattr(args, name, value)
     return args
 
 
 def _crystal_options(args):
+    """The loader's options from the command line (:func:`madelung.io.read.load`)."""
     _structure_defaults(args)
-    return dict(source=args.file, min_distance=args.min_distance, occupancy=args.occupancy,
-                max_atoms=args.max_atoms)
+    return dict(block=args.block, min_distance=args.min_distance, occupancy=args.occupancy,
+                max_atoms=args.max_atoms, symprec=args.symprec, allow_net_charge=args.allow_net_charge,
+                mixing_denominator=getattr(args, "mixing_denominator", 2))
 
 
 def load_crystal(args):
@@ -110,21 +121,33 @@ def _load_charged(args):
 
 def _charged(args, ignore_file_states=False):
     """The crystal of the file on the command line and, for --charges-from auto, its assignment."""
-    from .charges import charged_crystal
-    from .crystal import parse_charge_rules, read_structure
+    from .crystal import parse_charge_rules
+    from .io.read import load
 
-    rules = parse_charge_rules(args.charge)
-    atoms = read_structure(args.file, max_atoms=args.max_atoms)
-    return charged_crystal(atoms, getattr(args, "charges_from", "file"), rules, symprec=args.symprec,
-                           mixing_denominator=getattr(args, "mixing_denominator", 2),
-                           ignore_file_states=ignore_file_states, **_crystal_options(args))
+    _structure_defaults(args)
+    loaded = load(args.file, getattr(args, "charges_from", "file"), rules=parse_charge_rules(args.charge),
+                  ignore_file_states=ignore_file_states, **_crystal_options(args))
+    return loaded.crystal, loaded.assignment
+
+
+#: Charge summaries list at most this many entries.
+SUMMARY_ENTRIES = 12
 
 
 def _charge_summary(crystal):
-    seen = {}
-    for symbol, label, q in zip(crystal.symbols, crystal.labels, crystal.charges):
-        seen.setdefault(label, (symbol, q))
-    return ", ".join(f"{label} {q:+g}" for label, (symbol, q) in seen.items())
+    """Charges per site label when the labels name orbits (a CIF), else per element and charge, with
+    counts: never one entry per site of a large cell."""
+    by_label = {}
+    for i, (label, q) in enumerate(zip(crystal.labels, crystal.charges)):
+        by_label.setdefault((label, round(float(q), 9)), []).append(i)
+    if len(by_label) > SUMMARY_ENTRIES:
+        by_label = {}
+        for i, q in enumerate(crystal.charges):
+            by_label.setdefault((crystal.species_label(i), round(float(q), 9)), []).append(i)
+    entries = [f"{name} {q:+g}" + (f" x{len(sites)}" if len(sites) > 1 else "")
+               for (name, q), sites in by_label.items()]
+    more = len(entries) - SUMMARY_ENTRIES
+    return ", ".join(entries[:SUMMARY_ENTRIES]) + (f" and {more} more kinds" if more > 0 else "")
 
 
 def _fmt(value, digits=6):
@@ -184,6 +207,7 @@ def _add_energy(sub):
     parser.add_argument("--repulsion", metavar="PARAMS.json",
                         help="short-range parameter file (from madelung fit): adds the repulsion, the lattice "
                              "energy and the Born–Landé, Born–Mayer and Kapustinskii closed forms")
+    _polyatomic_option(parser)
     return parser
 
 
@@ -192,6 +216,9 @@ def _run_energy(args):
     from .units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
+    found = _polyatomic_ions(args, crystal)
+    if found is not None:
+        return _run_energy_with_ions(args, crystal, found)
     result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress, method=args.method)
     lattice = None
     if args.repulsion:
@@ -212,6 +239,7 @@ def _run_energy(args):
             data["stress_eV_per_angstrom3"] = result.stress
         if lattice is not None:
             data["lattice"] = _lattice_json(lattice)
+            data["lattice"]["volume_based"] = _volume_based(crystal).to_dict()
         _print_json(data)
         return 0
     per_fu = result.energy / z
@@ -235,6 +263,9 @@ def _run_energy(args):
     if lattice is not None:
         lines.append(f"  short-range terms from {args.repulsion}")
         lines.extend(_lattice_lines(lattice))
+        volume_based = _volume_based(crystal)
+        # the Kapustinskii line above already holds a simple salt; thermochemical radii matter for ions
+        lines.extend(_volume_based_lines(volume_based, kapustinskii=volume_based.ions != "none"))
         lines.append(f"  note        {RIGID_ION_NOTE}")
     lines.append(f"  note        {MODEL_NOTE}")
     print("\n".join(lines))
@@ -356,16 +387,15 @@ def _candidate_json(assignment, candidate, rank):
             "wrong_sign_sites": candidate.wrong_sign_sites,
             "bond_valence_misfit": candidate.bond_valence_misfit,
             "mixed_valence_orbits": candidate.mixed_groups,
+            "sites_in_rarely_seen_states": candidate.rare_sites,
             "energy_per_formula_unit_eV": candidate.energy_per_formula_unit,
             "energy_per_formula_unit_kJ_per_mol": candidate.energy_per_formula_unit * EV_TO_KJ_PER_MOL}
 
 
 def _run_charges(args):
     from .charges.oxidation import mixed_note
-    from .crystal import read_structure
-
     if args.method == "equilibrate":
-        return _run_equilibrate(args, read_structure(args.file, max_atoms=args.max_atoms))
+        return _run_equilibrate(args)
     if args.total_charge != 0:
         raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
                          "assigned for a neutral cell")
@@ -375,6 +405,7 @@ def _run_charges(args):
         _print_json({"file": args.file, "formula": crystal.reduced_formula, "space_group": a.space_group,
                      "method": "oxidation-state assignment", "reason": a.reason,
                      "bond_valence_used_in_ranking": a.used_bond_valence, "truncated": a.truncated,
+                     "searched_rarely_seen_states": a.searched_rare_states,
                      "candidates": [_candidate_json(a, c, k + 1) for k, c in enumerate(a.candidates)],
                      "note": "formal oxidation states: bookkeeping of the ionic limit, not measured charges"})
         return 0
@@ -409,23 +440,24 @@ def _run_charges(args):
     print(f"  why         {a.reason}")
     if not a.used_bond_valence:
         print("  bond valence  not used in the ranking (parameters missing for some bonds or sites averaged)")
+    if a.searched_rare_states:
+        print("  searched    rarely seen oxidation states too (no common assignment was neutral, or its bond "
+              "valences misfit by more than 25 %)")
     print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
           "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
     return 0
 
 
-def _run_equilibrate(args, atoms):
-    from .charges import equilibrate
-    from .crystal import Crystal
+def _run_equilibrate(args):
+    from .io.read import load
     from .symmetry import crystal_symmetry
 
     if args.charge:
         raise InputError(f"{args.file}: --charge cannot be combined with --method equilibrate")
-    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **_crystal_options(args))
-    result = equilibrate(base, total_charge=args.total_charge, kernel=args.kernel, dielectric=args.dielectric,
-                         tol=args.tol)
-    crystal = base.with_charges(result.charges)
-    symmetry = crystal_symmetry(base, symprec=args.symprec, by_charge=False)
+    loaded = load(args.file, "equilibrate", total_charge=args.total_charge, kernel=args.kernel,
+                  dielectric=args.dielectric, tol=args.tol, **_crystal_options(args))
+    crystal, result = loaded.crystal, loaded.equilibration
+    symmetry = crystal_symmetry(crystal, symprec=args.symprec, by_charge=False)
     rows = []
     for orbit in symmetry.orbits:
         q = result.charges[list(orbit.sites)]
@@ -469,22 +501,28 @@ def _add_constant(sub):
                                         "its row and the others go on.")
     _common(parser)
     parser.add_argument("more_files", nargs="*", metavar="FILE", help=argparse.SUPPRESS)
+    _polyatomic_option(parser)
     return parser
 
 
 def _run_constant(args):
     from .constants import madelung_constants
+    from .io.read import structures_to_read
 
     files = [args.file, *args.more_files]
-    if len(files) > 1:
+    if len(files) > 1 or (args.block is None and len(structures_to_read(args.file)) > 1):
         return _constant_table(args, files)
-    crystal = load_crystal(args)
+    crystal, found = _ions_as_units(args, load_crystal(args))
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
     if args.json:
-        _print_json({"file": args.file, **c.as_dict()})
+        _print_json({"file": args.file, **c.as_dict(),
+                     **({"polyatomic_ions": found.to_dict()} if found is not None else {})})
         return 0
     print(f"madelung constant  {args.file}")
     print("\n".join(_structure_lines(crystal)))
+    if found is not None:
+        print(f"  polyatomic ions {found.summary()}: each one charge at its centre; r0 is measured to the "
+              f"ion centres (--polyatomic-ions atoms: every atom a point charge)")
     print(f"  r0 (shortest cation–anion distance)  {c.r0:.6f} Å")
     print(f"  E_fu (per {c.formula})                {c.energy_per_formula_unit:.8f} eV"
           f" = {c.energy_per_formula_unit * EV_TO_KJ_PER_MOL:.3f} kJ/mol")
@@ -498,6 +536,12 @@ def _run_constant(args):
         print(f"  {name:<16} {_fmt(value, 10):>15}   {CONVENTION_TEXT[name]}")
         if note:
             print(f"  {'':<16} {'':>15}   {note}")
+    if abs(c.r0_mean_first_shell - c.r0) > 1e-6 * c.r0:
+        print(f"\n  with r0 = mean first-shell cation–anion distance {c.r0_mean_first_shell:.6f} Å "
+              "(the choice behind tabulated values for uneven shells):")
+        print(f"  {'charges_left_in':<16} {_fmt(c.charges_left_in_mean_first_shell, 10):>15}")
+        if c.handbook_mean_first_shell is not None:
+            print(f"  {'handbook':<16} {_fmt(c.handbook_mean_first_shell, 10):>15}")
     print(f"\n  estimated error of the constants {c.error_estimate:.1e}")
     print(f"  note        {MODEL_NOTE}")
     return 0
@@ -678,17 +722,25 @@ def _run_interstitials(args):
 
 
 def _constant_table(args, files):
-    """One row per file; failures are rows too, and the run goes on."""
+    """One row per file, or per data block of a file with several (unless --block picks one); failures
+    are rows too, and the run goes on."""
     from .constants import madelung_constants
+    from .io.read import structures_to_read
 
+    chosen = args.block
+    entries = [(path, block) for path in files
+               for block in ([chosen] if chosen is not None else structures_to_read(path))]
+    files = [path if block is None else f"{path}#{block}" for path, block in entries]
     rows = []
-    for path in files:
-        args.file = path
+    for (path, block), name in zip(entries, files):
+        args.file, args.block = path, block
         try:
-            c = madelung_constants(load_crystal(args), tol=args.tol, method=args.method)
-            rows.append({"file": path, "status": "ok", **c.as_dict()})
+            crystal, found = _ions_as_units(args, load_crystal(args))
+            c = madelung_constants(crystal, tol=args.tol, method=args.method)
+            rows.append({"file": name, "status": "ok", **c.as_dict(),
+                         **({"polyatomic_ions": found.summary()} if found is not None else {})})
         except InputError as exc:
-            rows.append({"file": path, "status": str(exc)})
+            rows.append({"file": name, "status": str(exc)})
     failed = sum(row["status"] != "ok" for row in rows)
     if args.json:
         _print_json({"structures": rows, "failed": failed})
@@ -705,6 +757,8 @@ def _constant_table(args, files):
     print()
     for name in ("charges_left_in", "handbook", "common_factor"):
         print(f"  {name:<16} {CONVENTION_TEXT[name]}")
+    if any(row.get("polyatomic_ions") for row in rows):
+        print("  polyatomic ions count as one charge at their centre (--polyatomic-ions atoms: every atom)")
     print(f"  {len(rows) - failed} done, {failed} failed")
     print(f"  note        {MODEL_NOTE}")
     return 0
@@ -756,12 +810,14 @@ def _run_screen(args):
 
     if not args.inputs and not args.db:
         raise InputError("nothing to screen: give files, folders, globs or --db FILE")
+    if args.block is not None:
+        raise InputError("--block picks one structure of one file; screen reads every data block of every file")
     summary = screen(args.inputs, args.out, db=args.db, select=args.select, charges=args.charges_from,
                      charge_rules=parse_charge_rules(args.charge), tol=args.tol, workers=args.workers,
                      scheduler=args.scheduler, timeout=args.timeout, resume=args.resume, sites=args.sites,
                      write_db=args.write_db, chunk_size=args.chunk, progress=not args.no_progress,
                      spectrum_length=args.spectrum_length, symprec=args.symprec, min_distance=args.min_distance,
-                     max_atoms=args.max_atoms, occupancy=args.occupancy)
+                     max_atoms=args.max_atoms, occupancy=args.occupancy, allow_net_charge=args.allow_net_charge)
     if args.json:
         _print_json(summary.as_dict())
         return 0
@@ -1007,7 +1063,7 @@ def parse_cell(text):
 
 
 def _run_correction(args):
-    from .crystal import read_structure
+    from .io.read import read_structure
     from .defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
 
     if (args.file is None) == (args.cell is None):
@@ -1449,6 +1505,282 @@ def _run_eos(args):
     return 0
 
 
+# ---------------------------------------------------------------- polyatomic ions
+POLYATOMIC_CHOICES = ("centre", "formal", "equilibrated", "atoms")
+
+
+def _polyatomic_option(parser):
+    parser.add_argument("--polyatomic-ions", choices=POLYATOMIC_CHOICES, default="centre",
+                        help="how polyatomic ions (carbonate, sulfate, nitrate, ammonium, hydroxide, ...) are "
+                             "treated: found and summed as ions, with the whole charge at the ion's centre "
+                             "(centre, default), spread over its atoms by formal states (formal) or by charge "
+                             "equilibration within the ion (equilibrated); energies are then inter-ion energies "
+                             "and Madelung constants take one charge per ion. 'atoms': no detection, every atom "
+                             "a point charge")
+
+
+def _polyatomic_ions(args, crystal):
+    """The polyatomic ions of the crystal, or None when there are none or the user asked for atoms."""
+    from .charges.polyatomic import find_polyatomic_ions
+
+    if getattr(args, "polyatomic_ions", "atoms") == "atoms":
+        return None
+    found = find_polyatomic_ions(crystal)
+    return found if found.found else None
+
+
+def _ions_as_units(args, crystal):
+    """(crystal with one charge per polyatomic ion, ions found) or (crystal, None) without ions."""
+    from .charges.polyatomic import centred_crystal
+
+    found = _polyatomic_ions(args, crystal)
+    return (crystal, None) if found is None else (centred_crystal(crystal, found), found)
+
+
+RULE_TEXT = {"centre": "whole charge at the ion's centre", "formal": "spread over its atoms by formal states",
+             "equilibrated": "spread over its atoms by charge equilibration within the ion"}
+
+
+def _volume_based(crystal, found=None):
+    from .analysis.volume_based import volume_based_energies
+
+    return volume_based_energies(crystal, found)
+
+
+def _volume_based_lines(vb, kapustinskii=True):
+    fit = (f"alpha {vb.coefficients[0]}, beta {vb.coefficients[1]}" if vb.coefficients[1] is not None
+           else f"A {vb.coefficients[0]}")
+    lines = [f"      volume-based   {vb.volume_based:10.2f}   Glasser–Jenkins, V_m {vb.volume_per_formula_unit:.3f} Å^3, "
+             f"I = {vb.ionic_strength:g}, {vb.salt_type} fit ({fit})"]
+    if kapustinskii and vb.kapustinskii is not None:
+        radii = ", ".join(f"{ion} {r:.3f} Å" for ion, r in vb.radii.items())
+        lines.append(f"      Kapustinskii   {vb.kapustinskii:10.2f}   with thermochemical radii of polyatomic ions: "
+                     f"{radii}")
+    lines += [f"      ({note})" for note in vb.notes]
+    return lines
+
+
+def _run_energy_with_ions(args, crystal, found):
+    """The energy report for a crystal holding polyatomic ions: inter-ion energies and lattice-energy estimates."""
+    from .charges.polyatomic import centred_crystal, interionic_energy
+    from .lattice import closed_forms
+
+    for flag, name in ((args.forces, "--forces"), (args.stress, "--stress"), (args.repulsion, "--repulsion")):
+        if flag:
+            raise InputError(f"{args.file}: {name} is not available with polyatomic ions treated as ions "
+                             f"({found.summary()}); add --polyatomic-ions atoms to sum every atom as a point charge")
+    rule = args.polyatomic_ions
+    result = interionic_energy(crystal, rule, tol=args.tol, method=args.method, found=found)
+    centred = centred_crystal(crystal, found)
+    forms = closed_forms(centred, tol=args.tol)
+    vb = _volume_based(crystal, found)
+    z = result.formula_units
+    if args.json:
+        born_mayer = None if forms.born_mayer is None else forms.born_mayer * EV_TO_KJ_PER_MOL
+        _print_json({"file": args.file, "formula": result.formula, "formula_units": z, "n_atoms": len(crystal),
+                     "volume_angstrom3": crystal.volume, **result.to_dict(),
+                     "lattice_energy_estimates_kJ_per_mol": {
+                         "born_mayer": born_mayer, "madelung_constant_handbook": forms.madelung_constant,
+                         "r0_angstrom": forms.r0, "rho_angstrom": forms.rho,
+                         "volume_based": vb.to_dict(), "kapustinskii_thermochemical_radii": vb.kapustinskii}})
+        return 0
+    per_fu = result.per_formula_unit
+    lines = [f"madelung energy  {args.file}", *_structure_lines(crystal),
+             f"  polyatomic ions {found.summary()}; charge of each ion: {RULE_TEXT[rule]}",
+             f"  electrostatic energy between ions (signed; formula unit {result.formula}, Z = {z})",
+             f"      Ewald sum of the charges as placed   {result.total:16.8f} eV per cell",
+             f"      internal energy of the ions          {result.internal:16.8f} eV per cell (removed)",
+             f"      inter-ion energy                     {result.interionic:16.8f} eV per cell",
+             f"      per formula unit                     {per_fu:16.8f} eV  = {per_fu * EV_TO_KJ_PER_MOL:12.3f} kJ/mol",
+             f"  accuracy    estimated error {result.error_estimate:.2e} eV (tol {args.tol:.1e})",
+             f"  lattice-energy estimates (positive, kJ/mol per {result.formula})"]
+    if forms.born_mayer is not None:
+        lines.append(f"      Born–Mayer     {forms.born_mayer * EV_TO_KJ_PER_MOL:10.2f}   Madelung constant (handbook) "
+                     f"{forms.madelung_constant:.6f} with one charge per ion, r0 {forms.r0:.4f} Å to the ion "
+                     f"centres, rho {forms.rho_source}")
+    else:
+        lines.append(f"      Born–Mayer     not applicable: {forms.notes.get('born_mayer', '')}")
+    lines.extend(_volume_based_lines(vb))
+    lines.append(f"  note        {result.note}; lattice energies likewise exclude them")
+    lines.append("  note        polyatomic ions were found and treated as ions (default); "
+                 "--polyatomic-ions atoms sums every atom as a point charge")
+    lines += [f"  note        {g.formula} (sites {', '.join(crystal.labels[i] for i in g.members[:4])}"
+              f"{' ...' if len(g.members) > 4 else ''}): {g.note}" for g in found.unrecognised[:5]]
+    lines += [f"  note        {n}" for n in found.notes[:5]]
+    lines.append(f"  note        {MODEL_NOTE}")
+    print("\n".join(lines))
+    return 0
+
+
+# ---------------------------------------------------------------- embed
+def _add_embed(sub):
+    parser = sub.add_parser("embed", help="a cluster and a fitted point-charge field for embedded-cluster calculations",
+                            description="Cut a cluster of whole ions around a site or point and surround it with point "
+                                        "charges out to a field radius; the charges of the outermost layer are fitted "
+                                        "(zero total charge and dipole) so that the potential inside the cluster "
+                                        "matches the periodic crystal's. Writes " + ", ".join(EMBEDDING_FILES.values())
+                                        + " into the output folder, centre at the origin (Å, e).")
+    parser.add_argument("file", metavar="FILE", help="structure file: CIF, POSCAR, extended XYZ, ... (read by ASE)")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed)")
+    parser.add_argument("--center", required=True, metavar="SITE",
+                        help="centre of the cluster: a site label (its first site), #INDEX, or fractional "
+                             "coordinates x,y,z")
+    parser.add_argument("--cluster-radius", type=float, required=True, metavar="Å",
+                        help="ions whose centre lies within this distance form the cluster")
+    parser.add_argument("--field-radius", type=float, required=True, metavar="Å",
+                        help="point charges stand for every ion out to this distance")
+    parser.add_argument("--fitted-thickness", type=float, metavar="Å",
+                        help="thickness of the outer layer of fitted charges (default: the larger of 3 Å and twice "
+                             "the shortest cation-anion distance)")
+    parser.add_argument("--grid-spacing", type=float, metavar="Å",
+                        help="step of the grid of fitting points in the cluster (default: about 1200 points)")
+    parser.add_argument("--offset", choices=EMBEDDING_OFFSETS, default="ewald",
+                        help="match the periodic potential's values in the Ewald convention (ewald, default) or up "
+                             "to a fitted constant (free)")
+    parser.add_argument("--out", required=True, metavar="DIR", help="output folder (created if needed)")
+    parser.add_argument("--overwrite", action="store_true", help="replace files of an earlier run in the folder")
+    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
+                        help="accuracy of the periodic potentials, relative to k_e*sum(q^2)/d_min (default 1e-10)")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
+                        help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
+    parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
+                        help="use the cell as read (default) or spglib's standardized cell")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _structure_options(parser)
+    return parser
+
+
+def _run_embed(args):
+    check_output_folder(args.out, args.overwrite)
+    crystal = load_crystal(args)
+    result = embedding(crystal, args.center, args.cluster_radius, args.field_radius,
+                       fitted_thickness=args.fitted_thickness, grid_spacing=args.grid_spacing, offset=args.offset,
+                       tol=args.tol)
+    paths = write_embedding(result, args.out, overwrite=args.overwrite)
+    if args.json:
+        data = result.to_dict()
+        for key in ("charge_positions_angstrom", "charges_e", "formal_charges_e", "fitted", "charge_labels"):
+            data.pop(key)  # the full lists are in the files
+        _print_json({"file": args.file, **data, "files": paths})
+        return 0
+    print(embedding_report(result))
+    print(f"  wrote             {', '.join(paths.values())}")
+    return 0
+
+
+# ---------------------------------------------------------------- orderings
+def _add_orderings(sub):
+    from .analysis.orderings import DEFAULT_MAX_DISTINCT
+    from .crystal import DEFAULT_MAX_ATOMS
+    from .symmetry import DEFAULT_SYMPREC
+
+    parser = sub.add_parser("orderings", help="rank the orderings of mixed or partly occupied sites by energy",
+                            description="Place the ions of the mixed or partly occupied sites (and the vacancies) "
+                                        "in every symmetry-distinct way in a supercell, or search for the lowest "
+                                        "ways when there are too many, and rank them by electrostatic energy. "
+                                        "Writes the kept orderings as CIF files with oxidation states and the "
+                                        "energy of every distinct ordering as a table. Point charges on the "
+                                        "unrelaxed lattice: a first filter, not a phase diagram.")
+    parser.add_argument("file", metavar="FILE", help="structure file with mixed or partly occupied sites (CIF)")
+    parser.add_argument("--supercell", default="1", metavar="NxMxK",
+                        help="supercell repeats, e.g. 2x2x1 (or nine integers, the rows of a matrix); default 1")
+    parser.add_argument("--keep", type=int, default=20, metavar="N", help="orderings written as CIF (default 20)")
+    parser.add_argument("--out", required=True, metavar="DIR", help="folder for the CIF files and the energy table")
+    parser.add_argument("--overwrite", action="store_true", help="allow writing into a folder that holds files")
+    parser.add_argument("--table", choices=("parquet", "csv"), default="parquet",
+                        help="format of the table of all energies (default parquet)")
+    parser.add_argument("--strategy", choices=("auto", "enumeration", "search"), default="auto",
+                        help="enumerate every ordering, search by simulated annealing, or enumerate when there are "
+                             "at most --max-distinct symmetry-distinct orderings (auto, default)")
+    parser.add_argument("--max-distinct", type=int, default=DEFAULT_MAX_DISTINCT, metavar="N",
+                        help="largest number of symmetry-distinct orderings to enumerate "
+                             f"(default {DEFAULT_MAX_DISTINCT:.0e})")
+    parser.add_argument("--restarts", type=int, default=8, metavar="N", help="independent annealing runs (default 8)")
+    parser.add_argument("--sweeps", type=int, default=50, metavar="N",
+                        help="attempted swaps per site at each annealing temperature (default 50)")
+    parser.add_argument("--seed", type=int, default=0, metavar="N", help="random seed of the search (default 0)")
+    parser.add_argument("--workers", type=int, default=1, metavar="N", help="worker processes (default 1)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", help="run the chunks on this Dask scheduler instead")
+    parser.add_argument("--background", action="store_true",
+                        help="allow a net charge, summed with a uniform neutralizing background")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="charge of an ion by element (or site label), e.g. Li=+1 or Mg=+2 (repeat as needed)")
+    parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
+                        help="where charges come from: the file (default), assigned oxidation states (auto) or "
+                             "charge equilibration")
+    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
+                        help="accuracy of the Coulomb matrix, relative to k_e*sum(q^2)/d_min (default 1e-10)")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
+                        help="refuse ions closer than this (default 0.5 Å)")
+    parser.add_argument("--max-atoms", type=int, default=DEFAULT_MAX_ATOMS, metavar="N",
+                        help=f"refuse structures with more sites than this (default {DEFAULT_MAX_ATOMS})")
+    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å",
+                        help=f"symmetry tolerance (default {DEFAULT_SYMPREC:g} Å)")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    return parser
+
+
+def _ion_charges_of(args, crystal):
+    """Per site, the charge of each of its species, as the loader decided them (the file's states and
+    the rules, or the assignment); None after charge equilibration (partial charges: each ion's charge
+    only where a site holds one species)."""
+    if args.charges_from == "equilibrate":
+        return None
+    return [crystal.states_of(i) for i in range(len(crystal))]
+
+
+def _run_orderings(args):
+    from .analysis.ordering_output import check_output_folder, write_ranking
+    from .analysis.orderings import rank_orderings
+    from .crystal import parse_charge_rules
+    from .io.read import load
+
+    check_output_folder(args.out, args.overwrite)
+    if args.keep < 1:
+        raise InputError(f"--keep must be a positive whole number, got {args.keep}")
+    rules = parse_charge_rules(args.charge)
+    _structure_defaults(args)
+    options = {**_crystal_options(args), "allow_net_charge": args.background}
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message=".*virtual-crystal average.*")  # the point of this command
+        crystal = load(args.file, args.charges_from, rules=rules, **options).crystal
+    ranking = rank_orderings(crystal, args.supercell, keep=args.keep,
+                             ion_charges=_ion_charges_of(args, crystal), method=args.strategy,
+                             max_distinct=args.max_distinct, restarts=args.restarts, sweeps=args.sweeps,
+                             seed=args.seed, workers=args.workers, scheduler=args.scheduler,
+                             background=args.background, tol=args.tol, symprec=args.symprec)
+    files = write_ranking(ranking, args.out, table_format=args.table, overwrite=args.overwrite)
+    if args.json:
+        _print_json({**ranking.to_dict(), "files": files})
+        return 0
+    exact = ranking.method == "enumeration"
+    print(f"madelung orderings  {args.file}   {ranking.formula} x {ranking.formula_units} in a {ranking.supercell} "
+          f"supercell, {ranking.sites} disordered sites")
+    for line in ranking.sublattices:
+        print(f"  sublattice  {line}")
+    print(f"  orderings   {ranking.total_orderings} in all, {ranking.distinct_orderings} symmetry-distinct "
+          f"(Burnside, {ranking.symmetry_operations} site permutations)")
+    if exact:
+        print(f"  enumerated  {ranking.enumerated_distinct} distinct orderings "
+              f"({'equal to' if ranking.enumerated_distinct == ranking.distinct_orderings else 'DIFFERENT FROM'} "
+              f"Burnside's count) in {ranking.seconds:.2f} s; energies computed for {ranking.candidates_visited}, "
+              "the rest skipped as copies of orderings already counted")
+    else:
+        print(f"  search      simulated annealing, {args.restarts} restarts, {ranking.candidates_visited} swaps tried, "
+              f"{ranking.enumerated_distinct} distinct orderings found in {ranking.seconds:.2f} s; a search, not a "
+              "proof: a lower ordering may exist")
+    print(f"\n  {'rank':>4}  {'above lowest':>14}  {'energy':>14}  {'degeneracy':>10}  space group")
+    print(f"  {'':>4}  {'meV/f.u.':>14}  {'eV/f.u.':>14}  {'':>10}")
+    for o in ranking.orderings:
+        print(f"  {o.rank:>4}  {1000 * o.energy_above_lowest:>14.3f}  {o.energy_per_formula_unit:>14.6f}  "
+              f"{o.degeneracy:>10}  {o.space_group}")
+    print(f"\n  energy      signed electrostatic (Ewald) energy per formula unit {ranking.formula}")
+    print(f"  files       {len(files['cif'])} CIF files with oxidation states and {files['table']} in {args.out}")
+    print(f"  note        {ranking.NOTE}")
+    return 0
+
+
 # ---------------------------------------------------------------- main
 # ---------------------------------------------------------------- compile
 def _add_compile(sub):
@@ -1491,6 +1823,8 @@ COMMANDS = {
     "cycle": (_add_cycle, _run_cycle),
     "relax": (_add_relax, _run_relax),
     "eos": (_add_eos, _run_eos),
+    "embed": (_add_embed, _run_embed),
+    "orderings": (_add_orderings, _run_orderings),
     "compile": (_add_compile, _run_compile),
 }
 
