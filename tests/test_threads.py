@@ -9,7 +9,7 @@ from ase.build import bulk
 
 import madelung
 from madelung.ewald import kernels
-from madelung.ewald.direct import reciprocal_vectors
+from madelung.ewald import reciprocal_vectors
 from madelung.geometry import build_bins, wrapped_fractional
 
 pytestmark = pytest.mark.skipif(numba.config.NUMBA_NUM_THREADS < 2, reason="needs two threads")
