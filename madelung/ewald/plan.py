@@ -29,7 +29,7 @@ import numpy as np
 import spglib
 
 from ..errors import InputError
-from ..geometry import build_bins, nearest_neighbour_distances, wrapped_fractional
+from ..geometry import build_bins, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
 from .tuning import ChargeSums
@@ -194,13 +194,6 @@ def _terms_per_ion(choice, sums, volume, method):
     if method == "mesh":
         return real + choice.order ** 3
     return real + (4.0 / 3.0) * math.pi * choice.reciprocal_cutoff ** 3 * volume / (8.0 * math.pi ** 3)
-
-
-def shortest_distance(cell, positions) -> float:
-    """Shortest interionic distance (periodic images count), Å."""
-    positions = np.asarray(positions, dtype=float)
-    to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(len(positions)))
-    return float(np.min(to_any))
 
 
 def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order, decided=None):
