@@ -7,11 +7,13 @@ walk pairs through the same :class:`CellBins`; only their kernels differ.
 from __future__ import annotations
 
 import os
+import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numba
 import numpy as np
+import spglib
 
 from . import geometry_kernels as gk
 
@@ -56,6 +58,26 @@ def thread_budget(predicted_ns):
         yield
     finally:
         numba.set_num_threads(previous)
+
+
+def reduced_basis(cell):
+    """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
+    Niggli-reduced, right-handed basis (Křivý & Gruber, Acta Cryst. A32 (1976) 297) of the lattice (the cell itself if spglib cannot reduce it)."""
+    cell = np.asarray(cell, dtype=float)
+    try:
+        with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
+            warnings.simplefilter("ignore", DeprecationWarning)
+            reduced = spglib.niggli_reduce(cell, eps=1e-5)
+    except Exception:  # spglib reports failures as None or as an error depending on its version
+        reduced = None
+    if reduced is None:
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+    change = np.rint(np.asarray(reduced) @ np.linalg.inv(cell)).astype(np.int64)
+    if round(abs(np.linalg.det(change))) != 1:
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+    if np.linalg.det(change @ cell) < 0:
+        change = -change
+    return np.ascontiguousarray(change @ cell), change
 
 
 def plane_spacings(cell) -> np.ndarray:
@@ -141,8 +163,12 @@ def stencil_offsets(cell, counts, reach, cutoff):
 
 
 def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0) -> CellBins:
-    """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction."""
-    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction.
+
+    The bins are laid on the reduced basis of the lattice (``CellBins.cell``), so the walk visits a
+    compact stencil whatever basis the cell is written in; positions and results are Cartesian.
+    """
+    cell, _ = reduced_basis(cell)
     n = len(positions)
     spacing = plane_spacings(cell)
     counts = np.maximum(1, np.floor(bins_per_cutoff * spacing / cutoff)).astype(np.int64)

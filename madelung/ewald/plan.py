@@ -21,15 +21,13 @@ basis_change @ user_cell``) records the relation.
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-import spglib
 
 from ..errors import InputError
-from ..geometry import build_bins, shortest_distance, wrapped_fractional
+from ..geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
 from .tuning import ChargeSums
@@ -46,26 +44,6 @@ AUTO_DIRECT_BELOW_SECONDS = 0.015
 
 #: Share of the target first set aside for rounding (see :func:`plan_sum`).
 ROUNDING_SHARE = 1e-3
-
-
-def reduced_basis(cell):
-    """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
-    Niggli-reduced, right-handed basis of the lattice (the cell itself if spglib cannot reduce it)."""
-    cell = np.asarray(cell, dtype=float)
-    try:
-        with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
-            warnings.simplefilter("ignore", DeprecationWarning)
-            reduced = spglib.niggli_reduce(cell, eps=1e-5)
-    except Exception:  # spglib reports failures as None or as an error depending on its version
-        reduced = None
-    if reduced is None:
-        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
-    change = np.rint(np.asarray(reduced) @ np.linalg.inv(cell)).astype(np.int64)
-    if round(abs(np.linalg.det(change))) != 1:
-        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
-    if np.linalg.det(change @ cell) < 0:
-        change = -change
-    return np.ascontiguousarray(change @ cell), change
 
 
 def reciprocal_vectors(cell, k_cut):
