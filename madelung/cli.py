@@ -212,7 +212,7 @@ def _add_energy(sub):
 
 
 def _run_energy(args):
-    from . import ewald
+    from .sums.dispatch import ewald
     from .units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
@@ -1272,7 +1272,7 @@ def _run_fit(args):
                      "degrees_of_freedom": result.degrees_of_freedom, "evaluations": result.evaluations,
                      "message": result.message})
         return 0
-    from .shortrange import PARAMETER_UNITS
+    from .sums.shortrange import PARAMETER_UNITS
 
     print(f"madelung fit  {len(targets)} structure(s), {args.form} cation–anion terms -> {args.output}")
     print("  parameters (± one standard deviation)")

@@ -54,10 +54,10 @@ import numpy as np
 
 from .crystal import Crystal
 from .errors import InputError, MadelungWarning
-from .ewald import kernels, point_kernels
-from .ewald.direct import EwaldParameters
-from .ewald.plan import NEUTRAL_TOLERANCE, plan_for, plan_sum, reciprocal_vectors
-from .geometry import (EXAMINED_PAIR_NS, build_bins, nearest_neighbour_distances, plane_spacings, reduced_basis,
+from .sums._kernels import kernels, point_kernels
+from .sums.direct import EwaldParameters
+from .sums.plan import NEUTRAL_TOLERANCE, plan_for, plan_sum, reciprocal_vectors
+from .sums.geometry import (EXAMINED_PAIR_NS, build_bins, nearest_neighbour_distances, plane_spacings, reduced_basis,
                        thread_budget, wrapped_fractional)
 from .units import COULOMB_CONSTANT
 
@@ -1147,7 +1147,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
     G. Makov and M. C. Payne, Phys. Rev. B 51 (1995) 4014 (charged supercells, image energy).
     P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
-    from . import ewald
+    from .sums.dispatch import ewald
 
     started = time.perf_counter()
     vacancy, substitute, interstitial = ([vacancy] if isinstance(vacancy, str) else list(vacancy),
@@ -1409,7 +1409,7 @@ def vacancy_ranking(crystal, species="anions", *, supercell=None, min_length=Non
     E. Madelung, Phys. Z. 19 (1918) 524 (site potentials); G. Makov and M. C. Payne,
     Phys. Rev. B 51 (1995) 4014 (the image term of the supercell values).
     """
-    from . import ewald
+    from .sums.dispatch import ewald
 
     charges = np.asarray(crystal.charges)
     if species == "anions":

@@ -1,7 +1,7 @@
 """Electrostatic descriptors of one crystal for screening tables: one flat row of named numbers.
 
 :func:`describe` runs one Ewald sum (through :func:`madelung.madelung_constants`) and one
-periodic Coulomb matrix (:func:`madelung.ewald.matrix.coulomb_matrix`) and returns a dict whose
+periodic Coulomb matrix (:func:`madelung.sums.matrix.coulomb_matrix`) and returns a dict whose
 keys are :data:`COLUMNS` in that order, every value a float, int or str, so that thousands of
 rows stack into a table with one fixed schema.
 
@@ -117,7 +117,7 @@ def ewald_sum_matrix(crystal, tol=1e-8, d_min=None):
     ----------
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from .ewald.matrix import coulomb_matrix
+    from .sums.matrix import coulomb_matrix
 
     q = np.asarray(crystal.charges, dtype=float)
     coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min)
@@ -131,7 +131,7 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=1e-8, d_min=None)
     ``length`` largest magnitudes, or, for a cell beyond the Coulomb-matrix size limit, says so
     (values then NaN).
     """
-    from .ewald.matrix import MAX_MATRIX_SITES
+    from .sums.matrix import MAX_MATRIX_SITES
 
     out = np.zeros(length)
     n = len(crystal)

@@ -266,8 +266,8 @@ def closed_forms(crystal, model=None, tol=1e-10, ewald_result=None) -> ClosedFor
 
 def total_terms(crystal, model, tol=1e-10, forces=False, stress=False):
     """Coulomb (Ewald) and short-range results of one crystal: ``(EwaldResult, ShortRangeResult)``."""
-    from . import ewald
-    from .shortrange import shortrange
+    from .sums.dispatch import ewald
+    from .sums.shortrange import shortrange
 
     return ewald(crystal, tol=tol, forces=forces, stress=stress), shortrange(crystal, model, forces, stress)
 
@@ -293,7 +293,7 @@ def lattice_energy(crystal, repulsion, tol=1e-10, with_closed_forms=True) -> Lat
     ----------
     M. Born and J. E. Mayer, Z. Phys. 75 (1932) 1; P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
-    from .shortrange import load_repulsion
+    from .sums.shortrange import load_repulsion
 
     model = load_repulsion(repulsion)
     coulomb, short = total_terms(crystal, model, tol, stress=True)
@@ -322,7 +322,7 @@ def bulk_modulus(crystal, repulsion, tol=1e-10, step=0.002) -> float:
     ----------
     M. Born and K. Huang, Dynamical Theory of Crystal Lattices (Oxford, 1954), ch. III.
     """
-    from .shortrange import load_repulsion
+    from .sums.shortrange import load_repulsion
 
     model = load_repulsion(repulsion)
     pressures = []
@@ -493,7 +493,7 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
     from scipy.optimize import least_squares, lsq_linear
 
     from .crystal import Crystal
-    from .shortrange import DEFAULT_CUTOFF, DEFAULT_SWITCH_WIDTH, FORMS, PairPotential, RepulsionModel
+    from .sums.shortrange import DEFAULT_CUTOFF, DEFAULT_SWITCH_WIDTH, FORMS, PairPotential, RepulsionModel
 
     targets = [t if isinstance(t, FitTarget) else FitTarget(t) for t in targets]
     if not targets:
@@ -571,8 +571,8 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
         return RepulsionModel(tuple(pairs), cutoff, switch_width, info or {})
 
     # the Coulomb part does not depend on the parameters: once per target (and strained copies)
-    from . import ewald
-    from .shortrange import shortrange
+    from .sums.dispatch import ewald
+    from .sums.shortrange import shortrange
 
     step = 0.002
     cache = []
@@ -811,7 +811,7 @@ def equation_of_state(crystal, repulsion, span=0.06, points=11, tol=1e-10) -> Eq
     """
     from scipy.optimize import curve_fit
 
-    from .shortrange import load_repulsion
+    from .sums.shortrange import load_repulsion
 
     model = load_repulsion(repulsion)
     if not (0 < span < 0.5):

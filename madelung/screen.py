@@ -363,7 +363,7 @@ def screen_task(task, options):
 # ---------------------------------------------------------------- executors
 #: Modules the fork server imports once, so that every worker starts with them loaded (running a
 #: Numba kernel there is another matter: its OpenMP runtime does not survive a fork).
-PRELOAD = ("madelung.screen", "madelung.descriptors", "madelung.constants", "madelung.ewald.matrix",
+PRELOAD = ("madelung.screen", "madelung.descriptors", "madelung.constants", "madelung.sums.matrix",
            "madelung.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib", "scipy.special")
 
 

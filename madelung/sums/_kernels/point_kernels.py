@@ -18,7 +18,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import image_shift, neighbour_bin
+from .geometry_kernels import image_shift, neighbour_bin
 from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)

@@ -25,7 +25,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
+from .geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
                                 range_origin)
 from .erfc import erfc_and_gaussian
 
