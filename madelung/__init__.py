@@ -15,7 +15,7 @@ __version__ = "0.1.0"
 
 
 from .constants import MadelungConstants, madelung_constants  # noqa: E402
-from .defects import (charged_cell_correction, correction_series, defect_energy,  # noqa: E402
+from .analysis.defects import (charged_cell_correction, correction_series, defect_energy,  # noqa: E402
                       find_interstitials, potential_at, potential_grid, vacancy_ranking)
 from .sums.shortrange import PairPotential, RepulsionModel, shortrange  # noqa: E402
 from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy  # noqa: E402

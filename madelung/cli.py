@@ -560,7 +560,7 @@ def _series(text):
 
 
 def _dielectric_from(args):
-    from .defects import dielectric_tensor, read_dielectric_tensor
+    from .analysis.defects import dielectric_tensor, read_dielectric_tensor
 
     if getattr(args, "dielectric_tensor", None):
         if args.dielectric is not None:
@@ -612,7 +612,7 @@ def _add_map(sub):
 def _run_map(args):
     import os
 
-    from .defects import plane_section, potential_grid, write_cube, write_plane_png
+    from .analysis.defects import plane_section, potential_grid, write_cube, write_plane_png
 
     crystal = load_crystal(args)
     grid = potential_grid(crystal, args.grid, smearing=args.smearing, tol=args.tol)
@@ -667,7 +667,7 @@ def _add_interstitials(sub):
 
 
 def _run_interstitials(args):
-    from .defects import DEFAULT_PROBE_RADIUS, find_interstitials
+    from .analysis.defects import DEFAULT_PROBE_RADIUS, find_interstitials
 
     crystal = load_crystal(args)
     radii = {}
@@ -880,7 +880,7 @@ def _add_defect(sub):
 
 
 def _run_defect(args):
-    from .defects import defect_energy, vacancy_ranking
+    from .analysis.defects import defect_energy, vacancy_ranking
 
     crystal = load_crystal(args)
     if args.rank_vacancies:
@@ -895,7 +895,7 @@ def _run_defect(args):
                            neighbour_radius=args.neighbour_radius, dielectric=eps)
     series = None
     if args.series:
-        from .defects import defect_series
+        from .analysis.defects import defect_series
 
         series = defect_series(crystal, _series(args.series), supercell=args.supercell, min_length=args.min_length,
                                vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
@@ -1064,7 +1064,7 @@ def parse_cell(text):
 
 def _run_correction(args):
     from .io.read import read_structure
-    from .defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
+    from .analysis.defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
 
     if (args.file is None) == (args.cell is None):
         raise InputError("give a structure file or --cell (one of them)")

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .crystal import Crystal
-from .defects import potential_at
+from .analysis.defects import potential_at
 from .sums.direct import ewald_direct
 from .sums.matrix import coulomb_matrix
 from .sums.mesh import ewald_mesh

@@ -42,7 +42,7 @@ import numpy as np
 from scipy.linalg import solve_triangular
 
 from ..crystal import Crystal
-from ..defects import ON_ION_DISTANCE, potential_at
+from .defects import ON_ION_DISTANCE, potential_at
 from ..errors import InputError, MadelungWarning
 from ..sums.plan import NEUTRAL_TOLERANCE
 from ..units import COULOMB_CONSTANT

@@ -34,7 +34,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..crystal import Crystal
-from ..defects import make_supercell
+from .defects import make_supercell
 from ..errors import InputError
 from ..sums.matrix import coulomb_matrix, potentials_for_charge_sets
 from ..symmetry import DEFAULT_SYMPREC, crystal_symmetry
