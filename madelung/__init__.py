@@ -14,14 +14,16 @@ from .sums.plan import METHODS, SumPlan, plan_for
 __version__ = "0.1.0"
 
 
-from .constants import MadelungConstants, madelung_constants  # noqa: E402
+from .analysis.madelung_constants import MadelungConstants, madelung_constants  # noqa: E402
 from .analysis.defects import (charged_cell_correction, correction_series, defect_energy,  # noqa: E402
                       find_interstitials, potential_at, potential_grid, vacancy_ranking)
 from .sums.shortrange import PairPotential, RepulsionModel, shortrange  # noqa: E402
-from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy  # noqa: E402
-from .thermochemistry import born_haber_cycle  # noqa: E402
-from .calculator import RigidIonCalculator, relax  # noqa: E402
-from .descriptors import describe  # noqa: E402
+from .analysis.fitting import FitTarget, fit_repulsion  # noqa: E402
+from .analysis.equation_of_state import equation_of_state  # noqa: E402
+from .analysis.lattice_energy import lattice_energy  # noqa: E402
+from .analysis.thermochemistry import born_haber_cycle  # noqa: E402
+from .analysis.calculator import RigidIonCalculator, relax  # noqa: E402
+from .analysis.descriptors import describe  # noqa: E402
 from .analysis.embedding import Embedding, embedding  # noqa: E402
 from .analysis.orderings import OrderingRanking, rank_orderings  # noqa: E402
 from .io.read import Loaded, load, read_crystal  # noqa: E402  (also registers Crystal.from_file / from_ase)

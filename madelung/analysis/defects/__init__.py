@@ -2,7 +2,7 @@
 
 * :mod:`.points` — :func:`potential_at`, the Ewald potential (and field) at any Cartesian points;
 * :mod:`.grids` — :func:`potential_grid` on a regular grid over the cell, :func:`plane_section` on a
-  lattice plane, and the cube writer;
+  lattice plane, and the cube writer (the PNG of a plane is drawn in :mod:`madelung.report.plots`);
 * :mod:`.interstitials` — :func:`find_interstitials`, candidate positions for a probe charge;
 * :mod:`.supercells` — :func:`make_supercell` and the near-cubic repeat matrix;
 * :mod:`.energies` — :func:`defect_energy` for vacancies, substitutions and interstitials, and
@@ -21,7 +21,7 @@ from .corrections import (ChargedCellCorrection, CorrectionSeries, charged_cell_
 from .energies import (DefectResult, DefectSeries, DefectSite, NeighbourChange, defect_energy, defect_series,
                        interstitial_energy, substitution_energy, vacancy_energy)
 from .grids import (PlaneSection, PotentialGrid, gaussian_charge_density, grid_fractional, grid_shape, parse_miller,
-                    plane_section, potential_grid, write_cube, write_plane_png)
+                    plane_section, potential_grid, write_cube)
 from .interstitials import (DEFAULT_PROBE_RADIUS, InterstitialSearch, InterstitialSite, equivalent_sites,
                             find_interstitials, ion_radii)
 from .points import ON_ION_DISTANCE, PointPotentials, potential_at
@@ -32,7 +32,7 @@ __all__ = ["ChargedCellCorrection", "CorrectionSeries", "charged_cell_correction
            "dielectric_tensor", "read_dielectric_tensor", "DefectResult", "DefectSeries", "DefectSite",
            "NeighbourChange", "defect_energy", "defect_series", "interstitial_energy", "substitution_energy",
            "vacancy_energy", "PlaneSection", "PotentialGrid", "gaussian_charge_density", "grid_fractional",
-           "grid_shape", "parse_miller", "plane_section", "potential_grid", "write_cube", "write_plane_png",
+           "grid_shape", "parse_miller", "plane_section", "potential_grid", "write_cube",
            "DEFAULT_PROBE_RADIUS", "InterstitialSearch", "InterstitialSite", "equivalent_sites",
            "find_interstitials", "ion_radii", "ON_ION_DISTANCE", "PointPotentials", "potential_at",
            "VacancyRanking", "VacancyRow", "vacancy_ranking", "Supercell", "make_supercell", "near_cubic_matrix",

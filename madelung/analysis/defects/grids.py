@@ -1,4 +1,4 @@
-"""The potential on a regular grid over the cell and on a lattice plane; cube and PNG writers."""
+"""The potential on a regular grid over the cell and on a lattice plane; the cube writer."""
 
 from __future__ import annotations
 
@@ -246,41 +246,3 @@ def write_cube(path, grid: PotentialGrid):
         ase.io.write(str(path), atoms, format="cube", data=np.asarray(grid.values))
     except OSError as exc:
         raise InputError(f"{path}: cannot write ({exc.strerror or exc})") from None
-
-
-def write_plane_png(path, section: PlaneSection, title=""):
-    """Heat map of a plane section with the ions in the plane marked (matplotlib, Agg)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    u, v = section.u, section.v
-    lu = np.linalg.norm(u)
-    ex = u / lu
-    vx, vy = float(v @ ex), float(np.linalg.norm(v - (v @ ex) * ex))
-    n_u, n_v = section.values.shape
-    s, t = np.meshgrid(np.arange(n_u + 1) / n_u, np.arange(n_v + 1) / n_v, indexing="ij")
-    s0, t0 = s - 0.5 / n_u, t - 0.5 / n_v
-    x = s0 * lu + t0 * vx
-    y = t0 * vy
-    limit = float(np.percentile(np.abs(section.values), 98)) or 1.0
-    fig, ax = plt.subplots(figsize=(6.4, 5.2))
-    mesh = ax.pcolormesh(x, y, section.values, cmap="PuOr_r", vmin=-limit, vmax=limit, shading="flat")
-    fig.colorbar(mesh, ax=ax, label="potential / V")
-    for st0, st1, label, q, _ in section.atoms:
-        px, py = st0 * lu + st1 * vx, st1 * vy
-        ax.plot(px, py, marker="+" if q > 0 else "o", color="black", markersize=8, mfc="none")
-        ax.annotate(label, (px, py), textcoords="offset points", xytext=(4, 4), fontsize=7)
-    ax.set_aspect("equal")
-    ax.set_xlabel("Å along u")
-    ax.set_ylabel("Å")
-    h, k, l = section.miller
-    ax.set_title(title or f"potential on ({h} {k} {l}) at offset {section.offset:g}"
-                 + (f", ions smeared {section.smearing:g} Å" if section.smearing else ""), fontsize=9)
-    try:
-        fig.savefig(str(path), dpi=120, bbox_inches="tight")
-    except OSError as exc:
-        raise InputError(f"{path}: cannot write ({exc.strerror or exc})") from None
-    finally:
-        plt.close(fig)

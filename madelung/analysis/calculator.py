@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 from ase.calculators.calculator import Calculator, all_changes
 
-from .errors import InputError
+from ..errors import InputError
 
 
 class RigidIonCalculator(Calculator):
@@ -47,7 +47,7 @@ class RigidIonCalculator(Calculator):
     default_parameters = {"tol": 1e-10}
 
     def __init__(self, repulsion, charges=None, tol=1e-10, **kwargs):
-        from .sums.shortrange import load_repulsion
+        from ..sums.shortrange import load_repulsion
 
         super().__init__(**kwargs)
         self.repulsion = load_repulsion(repulsion)
@@ -58,7 +58,7 @@ class RigidIonCalculator(Calculator):
 
     def crystal(self, atoms):
         """The madelung Crystal of ``atoms`` with this calculator's charges."""
-        from .crystal import Crystal
+        from ..crystal import Crystal
 
         charges = self.charges
         if charges is None:
@@ -69,8 +69,8 @@ class RigidIonCalculator(Calculator):
         return Crystal.from_ase(atoms, charges, labels=labels, min_distance=0.0)
 
     def calculate(self, atoms=None, properties=("energy",), system_changes=all_changes):
-        from .sums.dispatch import ewald
-        from .sums.shortrange import shortrange
+        from ..sums.dispatch import ewald
+        from ..sums.shortrange import shortrange
 
         super().calculate(atoms, properties, system_changes)
         crystal = self.crystal(self.atoms)

@@ -16,7 +16,7 @@ The columns (units in the names: eV, V, e, Å):
 ``r0_A``
     Shortest cation–anion distance.
 ``madelung_charges_left_in``, ``madelung_handbook``, ``madelung_common_factor``
-    Madelung constants in the conventions of :mod:`madelung.constants` (NaN where the
+    Madelung constants in the conventions of :mod:`madelung.analysis.madelung_constants` (NaN where the
     convention is undefined for this structure, e.g. handbook with two cation kinds).
 ``cation_potential_{min,mean,max}_V``, ``anion_potential_{min,mean,max}_V``
     Statistics of the site potentials over cation and over anion sites.
@@ -71,8 +71,8 @@ import math
 
 import numpy as np
 
-from .errors import InputError
-from .units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from ..errors import InputError
+from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 
 #: Length of the padded Ewald-sum-matrix spectrum (the screening benchmark's cells have up to 40 sites).
 SPECTRUM_LENGTH = 40
@@ -117,7 +117,7 @@ def ewald_sum_matrix(crystal, tol=1e-8, d_min=None):
     ----------
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from .sums.matrix import coulomb_matrix
+    from ..sums.matrix import coulomb_matrix
 
     q = np.asarray(crystal.charges, dtype=float)
     coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min)
@@ -131,7 +131,7 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=1e-8, d_min=None)
     ``length`` largest magnitudes, or, for a cell beyond the Coulomb-matrix size limit, says so
     (values then NaN).
     """
-    from .sums.matrix import MAX_MATRIX_SITES
+    from ..sums.matrix import MAX_MATRIX_SITES
 
     out = np.zeros(length)
     n = len(crystal)
@@ -182,8 +182,8 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     P. P. Ewald, Ann. Phys. 369 (1921) 253; E. Madelung, Phys. Z. 19 (1918) 524;
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from .constants import madelung_constants
-    from .crystal import Crystal
+    from .madelung_constants import madelung_constants
+    from ..crystal import Crystal
 
     if not isinstance(crystal, Crystal):
         raise InputError(f"describe() needs a madelung.Crystal, got {type(crystal).__name__}")
