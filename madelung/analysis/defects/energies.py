@@ -29,9 +29,7 @@ References
 ----------
 P. P. Ewald, Ann. Phys. 369 (1921) 253 (the lattice sums).
 G. Makov and M. C. Payne, Phys. Rev. B 51 (1995) 4014 (point charge in a neutralizing
-background, image energy q^2 alpha / 2 eps L).
-R. Rurali and X. Cartoixà, Nano Lett. 9 (2009) 975 and Y. Kumagai and F. Oba, Phys. Rev. B 89
-(2014) 195205 (anisotropic screening: Ewald sum with a dielectric tensor).
+background, image energy q^2 alpha / 2 eps L; the correction itself is in :mod:`.corrections`).
 """
 
 from __future__ import annotations
