@@ -73,6 +73,9 @@ import numpy as np
 
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from ..crystal import Crystal
+from ..sums.matrix import coulomb_matrix, MAX_MATRIX_SITES
+from .madelung_constants import madelung_constants
 
 #: Length of the padded Ewald-sum-matrix spectrum (the screening benchmark's cells have up to 40 sites).
 SPECTRUM_LENGTH = 40
@@ -117,8 +120,6 @@ def ewald_sum_matrix(crystal, tol=1e-8, d_min=None):
     ----------
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from ..sums.matrix import coulomb_matrix
-
     q = np.asarray(crystal.charges, dtype=float)
     coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min)
     return q[:, None] * coulomb * q[None, :]
@@ -131,8 +132,6 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=1e-8, d_min=None)
     ``length`` largest magnitudes, or, for a cell beyond the Coulomb-matrix size limit, says so
     (values then NaN).
     """
-    from ..sums.matrix import MAX_MATRIX_SITES
-
     out = np.zeros(length)
     n = len(crystal)
     if n > MAX_MATRIX_SITES:
@@ -182,9 +181,6 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     P. P. Ewald, Ann. Phys. 369 (1921) 253; E. Madelung, Phys. Z. 19 (1918) 524;
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from .madelung_constants import madelung_constants
-    from ..crystal import Crystal
-
     if not isinstance(crystal, Crystal):
         raise InputError(f"describe() needs a madelung.Crystal, got {type(crystal).__name__}")
     constants = madelung_constants(crystal, tol=tol)
