@@ -1,4 +1,4 @@
-"""Measure the two cost constants the tuner uses (madelung/ewald/tuning.py): nanoseconds per
+"""Measure the two cost constants the tuner uses (madelung/sums/tuning.py): nanoseconds per
 real-space term inside the cutoff (both orders counted) and per (atom, half-space k-vector) term,
 forces included, on one thread, for rattled rock-salt supercells at fixed splitting parameters.
 
@@ -27,9 +27,10 @@ def cpu_time(function, repeat=3):
 
 
 def main():
-    from madelung.ewald import kernels, tuning
-    from madelung.ewald.plan import reciprocal_vectors
-    from madelung.geometry import build_bins, wrapped_fractional
+    from madelung.sums._kernels import kernels
+    from madelung.sums import tuning
+    from madelung.sums.plan import reciprocal_vectors
+    from madelung.sums.geometry import build_bins, wrapped_fractional
 
     numba.set_num_threads(1)
     rows, real_costs, recip_costs = [], [], []

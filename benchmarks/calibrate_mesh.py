@@ -1,4 +1,4 @@
-"""Calibrate the mesh error estimate of madelung.ewald.tuning (MESH_ERROR_MODEL: A_n and s_n).
+"""Calibrate the mesh error estimate of madelung.sums.tuning (MESH_ERROR_MODEL: A_n and s_n).
 
 For the bundled prototypes (as given, as 2x2x2 supercells with random displacements, and both
 written in an oblique basis), random neutral triclinic cells and small strongly skewed cells, at
@@ -27,10 +27,10 @@ import numpy as np
 
 sys.path.insert(0, ".")
 import madelung  # noqa: E402
-from madelung.ewald import kernels  # noqa: E402
-from madelung.ewald import mesh as mesh_mod  # noqa: E402
-from madelung.ewald.plan import reciprocal_vectors  # noqa: E402
-from madelung.geometry import reduced_basis, shortest_distance, wrapped_fractional  # noqa: E402
+from madelung.sums._kernels import kernels  # noqa: E402
+from madelung.sums import mesh as mesh_mod  # noqa: E402
+from madelung.sums.plan import reciprocal_vectors  # noqa: E402
+from madelung.sums.geometry import reduced_basis, shortest_distance, wrapped_fractional  # noqa: E402
 from madelung.units import COULOMB_CONSTANT  # noqa: E402
 
 

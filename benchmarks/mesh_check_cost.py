@@ -1,6 +1,6 @@
 """What the mesh engine's check costs: the same sum with and without it (one thread, CPU time).
 
-The check (madelung/ewald/mesh.py) is a subsample of the crystal's ions against the direct
+The check (madelung/sums/mesh.py) is a subsample of the crystal's ions against the direct
 reciprocal sum where that is cheap, and a proxy cell otherwise. The target is under about 10 % of
 the sum. Rattled rock salt in an oblique basis (rows a, 3a+b, 3a+3b+c), energy + forces.
 
@@ -15,7 +15,7 @@ import numpy as np
 
 sys.path.insert(0, ".")
 import madelung  # noqa: E402
-from madelung.ewald.mesh import ewald_mesh  # noqa: E402
+from madelung.sums.mesh import ewald_mesh  # noqa: E402
 
 sys.path.insert(0, "benchmarks")
 from common import rattled_rock_salt  # noqa: E402

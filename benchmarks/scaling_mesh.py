@@ -17,7 +17,7 @@ memory of N = 10^6 within 4 GB.
 
     python benchmarks/scaling_mesh.py            # up to N = 314432
     python benchmarks/scaling_mesh.py --largest  # also N = 10^6 (a few minutes more)
-    python benchmarks/scaling_mesh.py --calibrate  # seconds per unit of work for madelung/ewald/mesh.py
+    python benchmarks/scaling_mesh.py --calibrate  # seconds per unit of work for madelung/sums/mesh.py
 """
 
 from __future__ import annotations
@@ -214,9 +214,9 @@ def calibrate():
     from calibrate_cost import cpu_time as cpu
     from common import rattled_rock_salt
 
-    from madelung.ewald import mesh as mesh_module
-    from madelung.ewald import mesh_kernels
-    from madelung.geometry import wrapped_fractional
+    from madelung.sums import mesh as mesh_module
+    from madelung.sums._kernels import mesh_kernels
+    from madelung.sums.geometry import wrapped_fractional
 
     numba.set_num_threads(1)
     rows = []

@@ -21,7 +21,7 @@ from . import __version__
 from .analysis.embedding import OFFSETS as EMBEDDING_OFFSETS, embedding
 from .analysis.embedding_files import FILES as EMBEDDING_FILES, check_output_folder, embedding_report, write_embedding
 from .errors import InputError, MadelungWarning
-from .constants import CONVENTION_TEXT
+from .analysis.madelung_constants import CONVENTION_TEXT
 from .units import EV_TO_KJ_PER_MOL
 
 MODEL_NOTE = ("Point-charge model: with formal charges the electrostatic terms overstate what a real, "
@@ -212,7 +212,7 @@ def _add_energy(sub):
 
 
 def _run_energy(args):
-    from . import ewald
+    from .sums.dispatch import ewald
     from .units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
@@ -222,7 +222,7 @@ def _run_energy(args):
     result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress, method=args.method)
     lattice = None
     if args.repulsion:
-        from .lattice import lattice_energy
+        from .analysis.lattice_energy import lattice_energy
 
         lattice = lattice_energy(crystal, args.repulsion, tol=args.tol)
     z = crystal.formula_units
@@ -285,7 +285,7 @@ def _add_sites(sub):
 
 
 def _run_sites(args):
-    from .constants import madelung_constants
+    from .analysis.madelung_constants import madelung_constants
     from .symmetry import crystal_symmetry
 
     crystal = load_crystal(args)
@@ -506,7 +506,7 @@ def _add_constant(sub):
 
 
 def _run_constant(args):
-    from .constants import madelung_constants
+    from .analysis.madelung_constants import madelung_constants
     from .io.read import structures_to_read
 
     files = [args.file, *args.more_files]
@@ -560,7 +560,7 @@ def _series(text):
 
 
 def _dielectric_from(args):
-    from .defects import dielectric_tensor, read_dielectric_tensor
+    from .analysis.defects import dielectric_tensor, read_dielectric_tensor
 
     if getattr(args, "dielectric_tensor", None):
         if args.dielectric is not None:
@@ -612,7 +612,8 @@ def _add_map(sub):
 def _run_map(args):
     import os
 
-    from .defects import plane_section, potential_grid, write_cube, write_plane_png
+    from .analysis.defects import plane_section, potential_grid, write_cube
+    from .report.plots import write_plane_png
 
     crystal = load_crystal(args)
     grid = potential_grid(crystal, args.grid, smearing=args.smearing, tol=args.tol)
@@ -667,7 +668,7 @@ def _add_interstitials(sub):
 
 
 def _run_interstitials(args):
-    from .defects import DEFAULT_PROBE_RADIUS, find_interstitials
+    from .analysis.defects import DEFAULT_PROBE_RADIUS, find_interstitials
 
     crystal = load_crystal(args)
     radii = {}
@@ -724,7 +725,7 @@ def _run_interstitials(args):
 def _constant_table(args, files):
     """One row per file, or per data block of a file with several (unless --block picks one); failures
     are rows too, and the run goes on."""
-    from .constants import madelung_constants
+    from .analysis.madelung_constants import madelung_constants
     from .io.read import structures_to_read
 
     chosen = args.block
@@ -766,7 +767,7 @@ def _constant_table(args, files):
 
 # ---------------------------------------------------------------- screen
 def _add_screen(sub):
-    from .descriptors import SPECTRUM_LENGTH
+    from .analysis.descriptors import SPECTRUM_LENGTH
 
     parser = sub.add_parser("screen", help="descriptors of many structures into one table",
                             description="Screen many structures: one row per structure (identifiers, status, "
@@ -880,7 +881,7 @@ def _add_defect(sub):
 
 
 def _run_defect(args):
-    from .defects import defect_energy, vacancy_ranking
+    from .analysis.defects import defect_energy, vacancy_ranking
 
     crystal = load_crystal(args)
     if args.rank_vacancies:
@@ -895,7 +896,7 @@ def _run_defect(args):
                            neighbour_radius=args.neighbour_radius, dielectric=eps)
     series = None
     if args.series:
-        from .defects import defect_series
+        from .analysis.defects import defect_series
 
         series = defect_series(crystal, _series(args.series), supercell=args.supercell, min_length=args.min_length,
                                vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
@@ -1064,7 +1065,7 @@ def parse_cell(text):
 
 def _run_correction(args):
     from .io.read import read_structure
-    from .defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
+    from .analysis.defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
 
     if (args.file is None) == (args.cell is None):
         raise InputError("give a structure file or --cell (one of them)")
@@ -1236,7 +1237,7 @@ def _add_fit(sub):
 def _run_fit(args):
     import os
 
-    from .lattice import FitTarget, fit_repulsion
+    from .analysis.fitting import FitTarget, fit_repulsion
 
     fixed = _parse_pairs(args.fix, "--fix", number=False)
     for name, value in fixed.items():
@@ -1272,7 +1273,7 @@ def _run_fit(args):
                      "degrees_of_freedom": result.degrees_of_freedom, "evaluations": result.evaluations,
                      "message": result.message})
         return 0
-    from .shortrange import PARAMETER_UNITS
+    from .sums.shortrange import PARAMETER_UNITS
 
     print(f"madelung fit  {len(targets)} structure(s), {args.form} cation–anion terms -> {args.output}")
     print("  parameters (± one standard deviation)")
@@ -1331,7 +1332,7 @@ def _list_values(rules, what):
 
 
 def _run_cycle(args):
-    from .thermochemistry import born_haber_cycle, read_cycle_file
+    from .analysis.thermochemistry import born_haber_cycle, read_cycle_file
 
     data = read_cycle_file(args.input) if args.input else {}
     if args.compound:
@@ -1355,7 +1356,7 @@ def _run_cycle(args):
 
     model = kapustinskii = None
     if args.structure:
-        from .lattice import lattice_energy
+        from .analysis.lattice_energy import lattice_energy
 
         crystal = _crystal_from(args.structure, args)
         if args.repulsion:
@@ -1363,7 +1364,7 @@ def _run_cycle(args):
             model = result.lattice_energy_kj_per_mol
             forms = result.closed_forms
         else:
-            from .lattice import closed_forms
+            from .analysis.lattice_energy import closed_forms
 
             forms = closed_forms(crystal, None, tol=args.tol)
         if forms is not None and forms.kapustinskii is not None:
@@ -1372,7 +1373,7 @@ def _run_cycle(args):
         raise InputError("cycle: --repulsion needs --structure FILE for the model lattice energy")
     if kapustinskii is None:
         from .elements import shannon_radius
-        from .lattice import kapustinskii_energy
+        from .analysis.lattice_energy import kapustinskii_energy
 
         (m, zm, a), (x, zx, b) = cycle.cation, cycle.anion
         try:
@@ -1433,7 +1434,7 @@ def _run_relax(args):
 
     import ase.io
 
-    from .calculator import relax
+    from .analysis.calculator import relax
 
     crystal = load_crystal(args)
     result = relax(crystal, args.repulsion, cell=not args.positions_only, fmax=args.fmax, steps=args.steps,
@@ -1481,7 +1482,7 @@ def _add_eos(sub):
 
 
 def _run_eos(args):
-    from .lattice import equation_of_state
+    from .analysis.equation_of_state import equation_of_state
 
     crystal = load_crystal(args)
     eos = equation_of_state(crystal, args.repulsion, span=args.span, points=args.points, tol=args.tol)
@@ -1563,7 +1564,7 @@ def _volume_based_lines(vb, kapustinskii=True):
 def _run_energy_with_ions(args, crystal, found):
     """The energy report for a crystal holding polyatomic ions: inter-ion energies and lattice-energy estimates."""
     from .charges.polyatomic import centred_crystal, interionic_energy
-    from .lattice import closed_forms
+    from .analysis.lattice_energy import closed_forms
 
     for flag, name in ((args.forces, "--forces"), (args.stress, "--stress"), (args.repulsion, "--repulsion")):
         if flag:

@@ -298,12 +298,12 @@ class Crystal:
     def nearest_distances(self):
         """Shortest distance from every ion to any other ion (images included) and to any ion of
         opposite charge sign (``inf`` where there is none). Returns ``(to_any, to_opposite, partner)``."""
-        from .geometry import nearest_neighbour_distances
+        from .sums.geometry import nearest_neighbour_distances
 
         return nearest_neighbour_distances(self.cell, self.positions, self.charges)
 
     def _check_overlaps(self):
-        from .geometry import closest_pair_within
+        from .sums.geometry import closest_pair_within
 
         pair = closest_pair_within(self.cell, self.positions, self.min_distance)
         if pair is not None:

@@ -17,6 +17,7 @@ import runpy
 from dataclasses import dataclass
 
 from .errors import InputError
+from .report.plots import save_candidate_plot
 
 #: Where the demo candidates live in a checkout of the project.
 DEMO_FOLDER = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "structures", "demo")
@@ -94,46 +95,8 @@ def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folde
     keep = ("reduced_formula", "prototype", "space_group", "energy_per_atom_eV", "energy_per_formula_unit_kJ_mol",
             "madelung_charges_left_in", "anion_potential_mean_V", "source")
     ranked = [{"rank": k + 1, **{name: row[name] for name in keep}} for k, row in enumerate(rows[:max(0, top)])]
-    save_plot(rows, plot)
+    save_candidate_plot(rows, plot, PROTOTYPES, _elements)
     return DemoResult(summary=summary, ranked=ranked, table=table, sites=sites, plot=plot)
-
-
-def save_plot(rows, path):
-    """Scatter of energy per atom against the mean anion-site potential, one colour per prototype."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    figure, axes = plt.subplots(figsize=(7.5, 5.0), dpi=120)
-    markers = {"O": "o", "halide": "^"}
-    colours = {"perovskite": "#1b6f9e", "spinel": "#c4572b", "layered-rocksalt": "#3f8f3a", "other": "#777777"}
-    for prototype in (*PROTOTYPES, "other"):
-        for kind in ("O", "halide"):
-            chosen = [r for r in rows if r["prototype"] == prototype
-                      and (("O" in _elements(r["reduced_formula"])) == (kind == "O"))]
-            if not chosen:
-                continue
-            axes.scatter([r["anion_potential_mean_V"] for r in chosen], [r["energy_per_atom_eV"] for r in chosen],
-                         c=colours[prototype], marker=markers[kind], s=42, edgecolors="white", linewidths=0.6,
-                         label=f"{prototype}, {'oxides' if kind == 'O' else 'halides'}")
-    for prototype in PROTOTYPES:   # label the most strongly bound candidate of each prototype
-        chosen = [r for r in rows if r["prototype"] == prototype]
-        if chosen:
-            best = min(chosen, key=lambda r: r["energy_per_atom_eV"])
-            axes.annotate(best["reduced_formula"], (best["anion_potential_mean_V"], best["energy_per_atom_eV"]),
-                          textcoords="offset points", xytext=(7, -11), fontsize=8,
-                          arrowprops=dict(arrowstyle="-", lw=0.5, color="#444444"))
-    axes.margins(x=0.14, y=0.08)
-    axes.set_xlabel("mean electrostatic potential at the anion sites (V)")
-    axes.set_ylabel("electrostatic energy per atom (eV)")
-    axes.set_title("Coating candidates: point-charge electrostatics (model estimates)", fontsize=10)
-    axes.grid(alpha=0.3)
-    axes.legend(fontsize=8, frameon=False)
-    figure.tight_layout()
-    figure.savefig(path)
-    plt.close(figure)
-    return path
 
 
 def _elements(formula):

@@ -14,11 +14,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from .crystal import Crystal
-from .defects import potential_at
-from .ewald.direct import ewald_direct
-from .ewald.matrix import coulomb_matrix
-from .ewald.mesh import ewald_mesh
-from .shortrange import PairPotential, RepulsionModel, shortrange
+from .analysis.defects import potential_at
+from .sums.direct import ewald_direct
+from .sums.matrix import coulomb_matrix
+from .sums.mesh import ewald_mesh
+from .sums.shortrange import PairPotential, RepulsionModel, shortrange
 
 
 @dataclass(frozen=True)

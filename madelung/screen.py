@@ -1,4 +1,4 @@
-"""Screening at scale: the descriptors of :mod:`madelung.descriptors` for thousands of structures.
+"""Screening at scale: the descriptors of :mod:`madelung.analysis.descriptors` for thousands of structures.
 
 One call, :func:`screen`, takes files, folders, globs or an ASE database, computes one row per
 structure on a pool of worker processes (or on a Dask cluster), and writes a table (Parquet, CSV
@@ -28,7 +28,7 @@ Row order is the input order, whatever the executor: results are buffered until 
 them are in, and no more than a fixed window of tasks is in flight, so memory does not grow with
 the number of structures.
 
-Limits: the descriptors are those of a point-charge model (see :mod:`madelung.descriptors`).
+Limits: the descriptors are those of a point-charge model (see :mod:`madelung.analysis.descriptors`).
 """
 
 from __future__ import annotations
@@ -72,7 +72,7 @@ FORMATS = {".parquet": "parquet", ".pq": "parquet", ".csv": "csv", ".jsonl": "js
 
 def table_columns(spectrum_length=None) -> dict:
     """Every column of the screening table with its type, in order."""
-    from .descriptors import SPECTRUM_LENGTH, column_types
+    from .analysis.descriptors import SPECTRUM_LENGTH, column_types
 
     length = SPECTRUM_LENGTH if spectrum_length is None else spectrum_length
     return {**ID_COLUMNS, **column_types(length), **TAIL_COLUMNS}
@@ -80,7 +80,7 @@ def table_columns(spectrum_length=None) -> dict:
 
 def site_table_columns() -> dict:
     """Columns of the per-site table: the structure's index and source, then the site values."""
-    from .descriptors import SITE_COLUMNS
+    from .analysis.descriptors import SITE_COLUMNS
 
     return {"index": "int", "source": "str", **SITE_COLUMNS}
 
@@ -286,7 +286,7 @@ def _one_line(exc):
 
 def failed_row(task, status, options, seconds=math.nan) -> dict:
     """The row of a structure that could not be screened: identifiers, the message, NaN elsewhere."""
-    from .descriptors import empty_row
+    from .analysis.descriptors import empty_row
 
     return {"index": task.index, "source": task.source, "db_id": task.db_id, "status": status,
             "space_group": "", "space_group_number": -1, "charges_from": _charges_from(options),
@@ -314,7 +314,7 @@ def screen_task(task, options):
         The row with :func:`table_columns` keys, and the per-site rows (empty unless
         ``options.sites`` and the structure was screened).
     """
-    from .descriptors import describe
+    from .analysis.descriptors import describe
 
     prepare_process()
     started = time.perf_counter()
@@ -363,7 +363,7 @@ def screen_task(task, options):
 # ---------------------------------------------------------------- executors
 #: Modules the fork server imports once, so that every worker starts with them loaded (running a
 #: Numba kernel there is another matter: its OpenMP runtime does not survive a fork).
-PRELOAD = ("madelung.screen", "madelung.descriptors", "madelung.constants", "madelung.ewald.matrix",
+PRELOAD = ("madelung.screen", "madelung.analysis.descriptors", "madelung.analysis.madelung_constants", "madelung.sums.matrix",
            "madelung.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib", "scipy.special")
 
 
@@ -720,7 +720,7 @@ def _write_back(database, rows):
     """Store the scalar results of database rows as key-value pairs ``madelung_<column>``."""
     import ase.db
 
-    from .descriptors import spectrum_columns
+    from .analysis.descriptors import spectrum_columns
 
     skip = set(spectrum_columns(10000)) | {"index", "source", "db_id", "species_potentials_V", "formula",
                                            "reduced_formula", "notes", "ewald_matrix_note", *TIMING_COLUMNS}
@@ -872,7 +872,7 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     ScreenSummary
     """
     from .crystal import DEFAULT_MAX_ATOMS
-    from .descriptors import SPECTRUM_LENGTH
+    from .analysis.descriptors import SPECTRUM_LENGTH
     from .symmetry import DEFAULT_SYMPREC
 
     if charges not in ("file", "auto", "equilibrate"):

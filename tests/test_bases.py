@@ -15,9 +15,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import madelung
-from madelung.ewald import tuning
-from madelung.ewald.matrix import coulomb_matrix, potentials_for_charge_sets
-from madelung.ewald.mesh import ewald_mesh
+from madelung.sums import tuning
+from madelung.sums.matrix import coulomb_matrix, potentials_for_charge_sets
+from madelung.sums.mesh import ewald_mesh
 from madelung.units import COULOMB_CONSTANT
 
 from conftest import load, random_crystal

@@ -9,8 +9,9 @@ import pytest
 from ase.io import read
 
 from madelung import Crystal, InputError
-from madelung.calculator import RigidIonCalculator, relax
-from madelung.lattice import FitTarget, fit_repulsion, scaled
+from madelung.analysis.calculator import RigidIonCalculator, relax
+from madelung.analysis.fitting import FitTarget, fit_repulsion
+from madelung.analysis.lattice_energy import scaled
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
 NACL = STRUCTURES / "rocksalt-NaCl.cif"

@@ -259,7 +259,7 @@ def test_unscreened_point_kernel_is_refused_where_it_is_unstable():
 
 
 def test_equilibration_satisfies_its_own_stationarity_condition():
-    from madelung.ewald.matrix import coulomb_matrix
+    from madelung.sums.matrix import coulomb_matrix
 
     crystal = bare("zincblende-ZnS.cif")
     result = equilibrate(crystal, kernel="point")

@@ -10,7 +10,7 @@ from hypothesis import given, settings, strategies as st
 import madelung
 from madelung import Crystal, InputError, MadelungWarning
 from madelung.cli import main
-from madelung.defects import charged_cell_correction, correction_series, dielectric_tensor
+from madelung.analysis.defects import charged_cell_correction, correction_series, dielectric_tensor
 from madelung.units import COULOMB_CONSTANT as K_E
 
 # Point charge in a neutralizing background, E_image = q^2 alpha / (2 eps L), L the cubic lattice

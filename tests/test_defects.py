@@ -11,8 +11,9 @@ import pytest
 import madelung
 from madelung import Crystal, InputError, MadelungWarning
 from madelung.cli import main
-from madelung.defects import (defect_energy, find_interstitials, make_supercell, near_cubic_matrix, plane_spacings,
-                              potential_at, vacancy_ranking)
+from madelung.analysis.defects import (defect_energy, find_interstitials, make_supercell, near_cubic_matrix,
+                                       potential_at, vacancy_ranking)
+from madelung.sums.geometry import plane_spacings
 from madelung.units import COULOMB_CONSTANT as K_E
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
@@ -101,7 +102,7 @@ def test_near_cubic_supercell_reaches_the_length_with_few_cells():
 
 # ----------------------------------------------------------------------------- vacancies
 def test_vacancy_energy_is_minus_q_phi_plus_the_background_term():
-    # Derived in madelung.defects: removing ion v (charge q) from a supercell changes the energy
+    # Derived in madelung.analysis.defects: removing ion v (charge q) from a supercell changes the energy
     # by -q phi_v + E_point(q), E_point the Ewald energy of a lone charge q with its background.
     crystal = _load("rocksalt-MgO.cif")
     result = defect_energy(crystal, vacancy=["O1"], supercell="2x2x2", tol=1e-12)
@@ -237,7 +238,7 @@ def test_cli_defect_report_and_map(tmp_path, capsys):
 def test_defect_series_extrapolates_to_the_madelung_estimate():
     # In cubic supercells of side L the charged vacancy's energy is E_dilute - q^2 alpha_sc k_e / (2 L)
     # (Makov & Payne 1995, alpha_sc = 2.8373): the 1/L fit recovers both numbers.
-    from madelung.defects import defect_series
+    from madelung.analysis.defects import defect_series
 
     crystal = _load("rocksalt-MgO.cif")
     series = defect_series(crystal, (1, 2, 3), vacancy=["O1"], tol=1e-11)

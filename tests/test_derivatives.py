@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from madelung.ewald.direct import ewald_direct, shortest_distance
+from madelung.sums.direct import ewald_direct, shortest_distance
 
 from conftest import random_crystal
 

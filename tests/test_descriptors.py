@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import madelung
-from madelung.descriptors import (COLUMNS, SPECTRUM_LENGTH, column_types, describe, empty_row,
+from madelung.analysis.descriptors import (COLUMNS, SPECTRUM_LENGTH, column_types, describe, empty_row,
                                   ewald_matrix_spectrum, ewald_sum_matrix, spectrum_columns)
 from madelung.errors import InputError
 

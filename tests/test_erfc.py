@@ -8,9 +8,9 @@ import numpy as np
 from numba import njit
 from scipy.special import erfc, erfcx
 
-from madelung.ewald.erfc import erfc_and_gaussian, exp_nonpositive
-from madelung.ewald.erfc_coefficients import ERFCX_POLYNOMIAL
-from madelung.ewald.erfc_fit import evaluate, fit_coefficients
+from madelung.sums._kernels.erfc import erfc_and_gaussian, exp_nonpositive
+from madelung.sums._kernels.erfc_coefficients import ERFCX_POLYNOMIAL
+from madelung.sums._kernels.erfc_fit import evaluate, fit_coefficients
 
 
 @njit(error_model="numpy", fastmath={"contract"})

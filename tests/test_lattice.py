@@ -7,9 +7,10 @@ from pathlib import Path
 import pytest
 
 from madelung import Crystal, InputError
-from madelung.constants import madelung_constants
-from madelung.lattice import (FitTarget, born_exponent, born_lande_energy, equation_of_state, fit_repulsion,
-                              kapustinskii_energy, lattice_energy)
+from madelung.analysis.madelung_constants import madelung_constants
+from madelung.analysis.fitting import FitTarget, fit_repulsion
+from madelung.analysis.lattice_energy import born_exponent, born_lande_energy, kapustinskii_energy, lattice_energy
+from madelung.analysis.equation_of_state import equation_of_state
 from madelung.units import EV_TO_KJ_PER_MOL
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"

@@ -9,10 +9,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import madelung
-from madelung.ewald import mesh as mesh_module
-from madelung.ewald import mesh_kernels, tuning
-from madelung.ewald.direct import ewald_direct, shortest_distance
-from madelung.ewald.mesh import ewald_mesh
+from madelung.sums import mesh as mesh_module
+from madelung.sums._kernels import mesh_kernels
+from madelung.sums import tuning
+from madelung.sums.direct import ewald_direct, shortest_distance
+from madelung.sums.mesh import ewald_mesh
 from madelung.units import COULOMB_CONSTANT
 
 from conftest import load, random_crystal

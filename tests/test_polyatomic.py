@@ -22,7 +22,7 @@ from madelung.analysis.volume_based import volume_based_energies
 from madelung.charges.equilibrate import equilibrate
 from madelung.charges.polyatomic import (centred_crystal, find_polyatomic_ions, internal_energy,
                                          interionic_energy)
-from madelung.lattice import closed_forms
+from madelung.analysis.lattice_energy import closed_forms
 from madelung.units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 
 DATA = Path(__file__).parent / "data"

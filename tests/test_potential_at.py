@@ -1,4 +1,4 @@
-"""Potentials at arbitrary points and on grids (madelung.potential_at, madelung.defects.potential_grid)."""
+"""Potentials at arbitrary points and on grids (madelung.potential_at, madelung.analysis.defects.potential_grid)."""
 
 import math
 from pathlib import Path
@@ -9,7 +9,7 @@ from hypothesis import given, settings, strategies as st
 
 import madelung
 from madelung import Crystal, InputError, MadelungWarning, potential_at
-from madelung.defects import gaussian_charge_density, potential_grid, write_cube
+from madelung.analysis.defects import gaussian_charge_density, potential_grid, write_cube
 from madelung.units import COULOMB_CONSTANT as K_E
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"

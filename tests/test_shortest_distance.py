@@ -7,7 +7,7 @@ import pytest
 from ase.build import bulk
 
 from conftest import random_crystal
-from madelung.geometry import nearest_neighbour_distances, shortest_distance
+from madelung.sums.geometry import nearest_neighbour_distances, shortest_distance
 
 
 def _brute_force(cell, positions, reach=3):

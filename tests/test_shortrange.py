@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from madelung import Crystal, InputError
-from madelung.shortrange import PairPotential, RepulsionModel, shortrange
+from madelung.sums.shortrange import PairPotential, RepulsionModel, shortrange
 
 NACL = str(Path(__file__).resolve().parent.parent / "structures" / "rocksalt-NaCl.cif")
 

@@ -19,7 +19,7 @@ from ase import Atoms
 import madelung
 from madelung import Crystal, InputError, MadelungWarning, ewald
 from madelung.cli import main
-from madelung.constants import madelung_constants
+from madelung.analysis.madelung_constants import madelung_constants
 from madelung.io.cif import parse_typed_symbol
 from madelung.io.read import load
 

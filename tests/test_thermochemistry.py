@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from madelung import InputError
-from madelung.thermochemistry import born_haber_cycle, parse_formula
+from madelung.analysis.thermochemistry import born_haber_cycle, parse_formula
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
 
@@ -66,7 +66,7 @@ def test_covalent_character_flag():
     # halides are the classic case where the cycle exceeds the ionic model (fact of the trade)
     agcl = born_haber_cycle("AgCl", -127.0, {"Ag": 284.9}, {"Cl": 242.6})
     from madelung.elements import shannon_radius
-    from madelung.lattice import kapustinskii_energy
+    from madelung.analysis.lattice_energy import kapustinskii_energy
     from madelung.units import EV_TO_KJ_PER_MOL
 
     model = kapustinskii_energy(2, 1, -1, shannon_radius("Ag", 1), shannon_radius("Cl", -1)) * EV_TO_KJ_PER_MOL

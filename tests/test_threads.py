@@ -8,9 +8,9 @@ import pytest
 from ase.build import bulk
 
 import madelung
-from madelung.ewald import kernels
-from madelung.ewald import reciprocal_vectors
-from madelung.geometry import build_bins, wrapped_fractional
+from madelung.sums._kernels import kernels
+from madelung.sums import reciprocal_vectors
+from madelung.sums.geometry import build_bins, wrapped_fractional
 
 pytestmark = pytest.mark.skipif(numba.config.NUMBA_NUM_THREADS < 2, reason="needs two threads")
 

@@ -15,7 +15,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
-from ..geometry import plane_spacings, wrapped_fractional
+from ..sums.geometry import plane_spacings, wrapped_fractional
 
 #: Grid points nearer than this to an ion (Å) are not fitted (the potential there is dominated by
 #: that ion, which the array holds exactly).

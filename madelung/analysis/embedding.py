@@ -42,9 +42,9 @@ import numpy as np
 from scipy.linalg import solve_triangular
 
 from ..crystal import Crystal
-from ..defects import ON_ION_DISTANCE, potential_at
+from .defects import ON_ION_DISTANCE, potential_at
 from ..errors import InputError, MadelungWarning
-from ..ewald.plan import NEUTRAL_TOLERANCE
+from ..sums.plan import NEUTRAL_TOLERANCE
 from ..units import COULOMB_CONSTANT
 from . import _embedding_kernels as kernels
 from .cluster import array_ions, boundary_cations, clear_of_ions, resolve_center, shortest_cation_anion, sphere_grid

@@ -34,9 +34,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..crystal import Crystal
-from ..defects import make_supercell
+from .defects import make_supercell
 from ..errors import InputError
-from ..ewald.matrix import coulomb_matrix, potentials_for_charge_sets
+from ..sums.matrix import coulomb_matrix, potentials_for_charge_sets
 from ..symmetry import DEFAULT_SYMPREC, crystal_symmetry
 from ..units import EV_TO_KJ_PER_MOL
 from . import _ordering_kernels as kernels

@@ -18,7 +18,7 @@ ion as one unit (:func:`madelung.charges.polyatomic.centred_crystal`).
 
 Kapustinskii with thermochemical radii
 --------------------------------------
-Kapustinskii's equation (:func:`madelung.lattice.kapustinskii_energy`, nu z+ |z-| = 2 I for a binary
+Kapustinskii's equation (:func:`madelung.analysis.lattice_energy.kapustinskii_energy`, nu z+ |z-| = 2 I for a binary
 salt) with the thermochemical radius of each polyatomic ion (:data:`THERMOCHEMICAL_RADII`) and
 Shannon's effective ionic radius (coordination VI) for monatomic ions. Defined for one cation kind
 and one anion kind.
@@ -47,7 +47,7 @@ import numpy as np
 from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from ..elements import shannon_radius
 from ..errors import InputError
-from ..lattice import kapustinskii_energy
+from .lattice_energy import kapustinskii_energy
 from ..units import EV_TO_KJ_PER_MOL
 
 #: (alpha / kJ mol^-1 nm, beta / kJ mol^-1) by salt type, Jenkins et al., Inorg. Chem. 38 (1999)

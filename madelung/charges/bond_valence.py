@@ -29,7 +29,7 @@ import math
 
 import numpy as np
 
-from ..geometry import neighbour_pairs
+from ..sums.geometry import neighbour_pairs
 
 #: The universal softness parameter b, Å (Brown & Altermatt 1985).
 B = 0.37

@@ -16,7 +16,7 @@ allowance takes in the long O–O bond of peroxides (1.49 Å against 2 x 0.66 Å
 hydrogen bonds (H...O 1.5 Å and more against 0.31 + 0.66 + 0.40 = 1.37 Å). Hydrogen forms one bond:
 where it has several partners within reach, only the nearest is kept.
 
-Periodic images are found with the shared neighbour search (:func:`madelung.geometry.neighbour_pairs`)
+Periodic images are found with the shared neighbour search (:func:`madelung.sums.geometry.neighbour_pairs`)
 and the lattice shift of each bond is recovered exactly by enumerating every image within the bond
 limit, so small cells and bonds across several cell lengths are handled. A group that is bonded to
 its own periodic image (a chain, layer or framework) is marked ``extended``: it is not a molecule
@@ -36,7 +36,7 @@ import numpy as np
 
 from .. import elements
 from ..errors import InputError
-from ..geometry import neighbour_pairs, plane_spacings
+from ..sums.geometry import neighbour_pairs, plane_spacings
 
 #: Allowance added to the sum of covalent radii, Å (see the module docstring for the reasoning).
 DEFAULT_BOND_TOLERANCE = 0.40

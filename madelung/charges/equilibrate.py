@@ -67,6 +67,7 @@ from .. import elements
 from ..errors import InputError, MadelungWarning
 from ..units import COULOMB_CONSTANT
 from .bonds import bonded_pairs
+from ..sums.matrix import coulomb_matrix, screened_pairs
 
 KERNELS = ("gaussian", "point")
 
@@ -143,15 +144,13 @@ def equilibrate(crystal, total_charge=0.0, kernel="gaussian", parameters=None, d
     -----
     Mixed or partly occupied sites take the occupancy-weighted mean of their species' chi and J
     (a virtual-crystal average). Builds the full N x N Coulomb matrix, so it is meant for cells
-    of up to a few hundred sites (:data:`madelung.ewald.matrix.MAX_MATRIX_SITES`).
+    of up to a few hundred sites (:data:`madelung.sums.matrix.MAX_MATRIX_SITES`).
 
     References
     ----------
     A. K. Rappé and W. A. Goddard III, J. Phys. Chem. 95 (1991) 3358.
     W. J. Mortier, S. K. Ghosh and S. Shankar, J. Am. Chem. Soc. 108 (1986) 4315.
     """
-    from ..ewald.matrix import coulomb_matrix, screened_pairs
-
     where = f"{crystal.source}: " if crystal.source else ""
     if kernel not in KERNELS:
         raise InputError(f"equilibration kernel must be one of {', '.join(KERNELS)}, got {kernel!r}")

@@ -58,7 +58,7 @@ import numpy as np
 from .. import elements
 from ..crystal import ion_text
 from ..errors import InputError
-from ..ewald.matrix import potentials_for_charge_sets
+from ..sums.matrix import potentials_for_charge_sets
 from ..symmetry import DEFAULT_SYMPREC, analyse
 from . import bond_valence
 from .common_states import adjacent_pair, common_states, is_common

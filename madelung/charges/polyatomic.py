@@ -51,7 +51,7 @@ from dataclasses import dataclass
 import numpy as np
 from ase.data import atomic_masses, atomic_numbers
 
-from .. import ewald
+from ..sums.dispatch import ewald
 from ..errors import InputError, MadelungWarning
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 from .bonds import DEFAULT_BOND_TOLERANCE, bonded_groups, bonded_pairs

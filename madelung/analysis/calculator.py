@@ -18,7 +18,10 @@ from dataclasses import dataclass
 import numpy as np
 from ase.calculators.calculator import Calculator, all_changes
 
-from .errors import InputError
+from ..errors import InputError
+from ..crystal import Crystal
+from ..sums.dispatch import ewald
+from ..sums.shortrange import load_repulsion, shortrange
 
 
 class RigidIonCalculator(Calculator):
@@ -47,8 +50,6 @@ class RigidIonCalculator(Calculator):
     default_parameters = {"tol": 1e-10}
 
     def __init__(self, repulsion, charges=None, tol=1e-10, **kwargs):
-        from .shortrange import load_repulsion
-
         super().__init__(**kwargs)
         self.repulsion = load_repulsion(repulsion)
         self.charges = charges
@@ -58,8 +59,6 @@ class RigidIonCalculator(Calculator):
 
     def crystal(self, atoms):
         """The madelung Crystal of ``atoms`` with this calculator's charges."""
-        from .crystal import Crystal
-
         charges = self.charges
         if charges is None:
             charges = atoms.get_initial_charges()
@@ -69,9 +68,6 @@ class RigidIonCalculator(Calculator):
         return Crystal.from_ase(atoms, charges, labels=labels, min_distance=0.0)
 
     def calculate(self, atoms=None, properties=("energy",), system_changes=all_changes):
-        from . import ewald
-        from .shortrange import shortrange
-
         super().calculate(atoms, properties, system_changes)
         crystal = self.crystal(self.atoms)
         # forces and stress cost little beside the energy: always computed, so that ASE's separate

@@ -40,9 +40,10 @@ from fractions import Fraction
 
 import numpy as np
 
-from .errors import InputError
-from .geometry import neighbour_pairs
-from .units import COULOMB_CONSTANT
+from ..errors import InputError
+from ..sums.geometry import neighbour_pairs
+from ..units import COULOMB_CONSTANT
+from ..sums.dispatch import ewald
 
 CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
 
@@ -172,8 +173,6 @@ def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> 
     ----------
     E. Madelung, Phys. Z. 19 (1918) 524; P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
-    from . import ewald
-
     charges = np.asarray(crystal.charges)
     where = f"{crystal.source}: " if crystal.source else ""
     if not (np.any(charges > 0) and np.any(charges < 0)):

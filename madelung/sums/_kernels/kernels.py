@@ -25,7 +25,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
+from .geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
                                 range_origin)
 from .erfc import erfc_and_gaussian
 
@@ -340,7 +340,7 @@ def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s
     ``weights`` are 2 w(k) for the half-space k-vectors (the factor 2 counts -k).
     With p = exp(i k.r_i): potential sum_k weight Re[S conj(p)], force q_i sum_k weight k Im[conj(S) p].
     ``frac`` may be any points, not only the ions: with unit ``charges`` the "forces" are the
-    reciprocal-space field in e/Å^2 (``madelung.defects`` uses it so).
+    reciprocal-space field in e/Å^2 (``madelung.analysis.defects`` uses it so).
 
     Atoms go in blocks of ``BLOCK`` (one thread each); each k-vector is one loop over the block's
     atoms. Along a run of consecutive l the k-vector is k_0 + x b_3, so the force needs only

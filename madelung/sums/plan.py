@@ -27,7 +27,7 @@ from functools import cached_property
 import numpy as np
 
 from ..errors import InputError
-from ..geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
+from .geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
 from .tuning import ChargeSums

@@ -53,8 +53,9 @@ import scipy.fft
 
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT
-from ..geometry import thread_budget
-from . import kernels, mesh_kernels, tuning
+from .geometry import thread_budget
+from ._kernels import kernels, mesh_kernels
+from . import tuning
 from . import plan as plan_module
 from .direct import EwaldResult, assemble, params_of, real_space_part, symmetric, warn_if_charged
 from .tuning import ChargeSums

@@ -24,7 +24,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import PRANGE_ONLY
+from .geometry_kernels import PRANGE_ONLY
 
 
 @njit(cache=True, inline="always")

@@ -1,7 +1,7 @@
 """Electrostatic descriptors of one crystal for screening tables: one flat row of named numbers.
 
 :func:`describe` runs one Ewald sum (through :func:`madelung.madelung_constants`) and one
-periodic Coulomb matrix (:func:`madelung.ewald.matrix.coulomb_matrix`) and returns a dict whose
+periodic Coulomb matrix (:func:`madelung.sums.matrix.coulomb_matrix`) and returns a dict whose
 keys are :data:`COLUMNS` in that order, every value a float, int or str, so that thousands of
 rows stack into a table with one fixed schema.
 
@@ -16,7 +16,7 @@ The columns (units in the names: eV, V, e, Å):
 ``r0_A``
     Shortest cation–anion distance.
 ``madelung_charges_left_in``, ``madelung_handbook``, ``madelung_common_factor``
-    Madelung constants in the conventions of :mod:`madelung.constants` (NaN where the
+    Madelung constants in the conventions of :mod:`madelung.analysis.madelung_constants` (NaN where the
     convention is undefined for this structure, e.g. handbook with two cation kinds).
 ``cation_potential_{min,mean,max}_V``, ``anion_potential_{min,mean,max}_V``
     Statistics of the site potentials over cation and over anion sites.
@@ -71,8 +71,11 @@ import math
 
 import numpy as np
 
-from .errors import InputError
-from .units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from ..errors import InputError
+from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from ..crystal import Crystal
+from ..sums.matrix import coulomb_matrix, MAX_MATRIX_SITES
+from .madelung_constants import madelung_constants
 
 #: Length of the padded Ewald-sum-matrix spectrum (the screening benchmark's cells have up to 40 sites).
 SPECTRUM_LENGTH = 40
@@ -117,8 +120,6 @@ def ewald_sum_matrix(crystal, tol=1e-8, d_min=None):
     ----------
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from .ewald.matrix import coulomb_matrix
-
     q = np.asarray(crystal.charges, dtype=float)
     coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min)
     return q[:, None] * coulomb * q[None, :]
@@ -131,8 +132,6 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=1e-8, d_min=None)
     ``length`` largest magnitudes, or, for a cell beyond the Coulomb-matrix size limit, says so
     (values then NaN).
     """
-    from .ewald.matrix import MAX_MATRIX_SITES
-
     out = np.zeros(length)
     n = len(crystal)
     if n > MAX_MATRIX_SITES:
@@ -182,9 +181,6 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     P. P. Ewald, Ann. Phys. 369 (1921) 253; E. Madelung, Phys. Z. 19 (1918) 524;
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
-    from .constants import madelung_constants
-    from .crystal import Crystal
-
     if not isinstance(crystal, Crystal):
         raise InputError(f"describe() needs a madelung.Crystal, got {type(crystal).__name__}")
     constants = madelung_constants(crystal, tol=tol)

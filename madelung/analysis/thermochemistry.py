@@ -46,8 +46,9 @@ import os
 import re
 from dataclasses import dataclass
 
-from .errors import InputError
-from .units import EV_TO_KJ_PER_MOL
+from ..errors import InputError
+from ..units import EV_TO_KJ_PER_MOL
+from ..elements import common_oxidation_states, electron_affinity as library_affinity, ionisation_energies
 
 #: A model lattice energy this far below the cycle value (fraction) is flagged as covalent character.
 #: A rule of thumb: rigid-ion and Kapustinskii values of clearly ionic alkali halides fall within
@@ -118,8 +119,6 @@ def _as_list(value, name):
 
 
 def _infer_charges(counts):
-    from .elements import common_oxidation_states
-
     (m, a), (x, b) = counts.items()
     anion_states = [s for s in common_oxidation_states(x) if s < 0]
     cation_states = [s for s in common_oxidation_states(m) if s > 0]
@@ -164,9 +163,6 @@ def born_haber_cycle(compound, formation, atomisation=None, dissociation=None, c
     ----------
     M. Born, Verh. Dtsch. Phys. Ges. 21 (1919) 13; F. Haber, Verh. Dtsch. Phys. Ges. 21 (1919) 750.
     """
-    from .elements import electron_affinity as library_affinity
-    from .elements import ionisation_energies
-
     counts = parse_formula(compound)
     if len(counts) != 2:
         raise InputError(f"compound {compound}: the cycle is written for binary compounds (two elements), "

@@ -22,9 +22,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import MadelungWarning
-from ..geometry import thread_budget
+from .geometry import thread_budget
 from ..units import COULOMB_CONSTANT
-from . import kernels
+from ._kernels import kernels
 from . import plan as plan_module
 
 @dataclass(frozen=True)
@@ -71,7 +71,7 @@ class EwaldResult:
     background : True when a neutralizing background was applied (net charge not zero).
     n_atoms : number of ions.
     seconds : wall time of the sum, s.
-    plan : the :class:`~madelung.ewald.plan.SumPlan` the sum ran with.
+    plan : the :class:`~madelung.sums.plan.SumPlan` the sum ran with.
     """
 
     energy: float

@@ -46,9 +46,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import InputError
+from ..errors import InputError
 from .geometry import build_bins, thread_budget
-from . import shortrange_kernels
+from ._kernels import shortrange_kernels
 
 #: Parameters of each form, in the order stored.
 FORMS = {

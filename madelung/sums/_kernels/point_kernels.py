@@ -10,7 +10,7 @@ The ions are sorted into bins by ``geometry.build_bins``; each point is given it
 non-positive ``beta`` means point ions (the erfc(beta d) term is left out). The
 reciprocal-space part at points is ``kernels.reciprocal_site_terms`` with unit charges.
 
-Kernels do arithmetic only; the Python side (``madelung.defects``) validates and chooses.
+Kernels do arithmetic only; the Python side (``madelung.analysis.defects``) validates and chooses.
 """
 
 import math
@@ -18,7 +18,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import image_shift, neighbour_bin
+from .geometry_kernels import image_shift, neighbour_bin
 from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)

@@ -15,7 +15,7 @@ import numba
 import numpy as np
 import spglib
 
-from . import geometry_kernels as gk
+from ._kernels import geometry_kernels as gk
 
 def _choose_threading():
     """Threading layer and OpenMP waiting, unless the user has chosen them.

@@ -2,7 +2,7 @@
 
 The Ewald sum is linear in the charges. For a fixed cell and positions, the splitting parameter,
 the bins and the reciprocal vectors are chosen once and every charge set reuses them with the
-same kernels as :func:`madelung.ewald.direct.ewald_direct`. Column ``j`` of the Coulomb matrix is
+same kernels as :func:`madelung.sums.direct.ewald_direct`. Column ``j`` of the Coulomb matrix is
 the potential (V) at every site from a unit charge on site ``j`` and all its periodic images,
 with a uniform neutralizing background; so ``phi = J @ q`` and, for a neutral ``q``,
 ``E = q @ J @ q / 2`` reproduce the direct sum (the background terms cancel).
@@ -20,9 +20,9 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..geometry import neighbour_pairs, thread_budget
+from .geometry import neighbour_pairs, thread_budget
 from ..units import COULOMB_CONSTANT
-from . import kernels
+from ._kernels import kernels
 from .plan import plan_sum
 from .tuning import ChargeSums
 

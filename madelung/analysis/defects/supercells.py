@@ -1,0 +1,132 @@
+"""Supercells for defect calculations: repeat matrices, the near-cubic choice, tiling."""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from ...crystal import Crystal
+from ...errors import InputError
+from ...sums.geometry import plane_spacings
+
+@dataclass(frozen=True)
+class Supercell:
+    """A supercell of a crystal: ``crystal.cell = matrix @ parent.cell``; the parent's sites come first."""
+
+    crystal: Crystal
+    matrix: np.ndarray
+    parent: Crystal
+
+    @property
+    def size(self) -> int:
+        """Parent cells in the supercell."""
+        return int(round(abs(np.linalg.det(self.matrix))))
+
+    def describe(self) -> str:
+        m = self.matrix
+        if np.count_nonzero(m - np.diag(np.diag(m))) == 0:
+            return "x".join(str(int(x)) for x in np.diag(m))
+        return "[" + "; ".join(" ".join(str(int(x)) for x in row) for row in m) + "]"
+
+
+def parse_supercell(text):
+    """``"3x3x3"``, ``"3"`` or ``"2x2x1"`` into a diagonal matrix; nine integers (rows) into a matrix."""
+    if isinstance(text, (int, np.integer)):
+        values = [int(text)] * 3
+    elif isinstance(text, str):
+        parts = [p for p in re.split(r"[x×,;\s]+", text.strip().lower()) if p]
+        try:
+            values = [int(p) for p in parts]
+        except ValueError:
+            raise InputError(f"supercell {text!r} must look like 3x3x3 (or nine integers, rows of the matrix)") from None
+        if len(values) == 1:
+            values = values * 3
+    else:
+        values = np.asarray(text).astype(int).ravel().tolist()
+    if len(values) == 3:
+        matrix = np.diag(values)
+    elif len(values) == 9:
+        matrix = np.array(values).reshape(3, 3)
+    else:
+        raise InputError(f"supercell {text!r} must have 3 repeats (3x3x3) or 9 integers")
+    if round(np.linalg.det(matrix)) <= 0:
+        raise InputError(f"supercell {text!r} must have a positive determinant")
+    return matrix.astype(np.int64)
+
+
+def near_cubic_matrix(cell, min_length):
+    """The smallest supercell matrix whose lattice-plane spacings all reach ``min_length`` Å (so
+    every periodic image of a defect is at least that far away), preferring the most cubic shape."""
+    cell = np.asarray(cell, float)
+    try:
+        min_length = float(min_length)
+    except (TypeError, ValueError):
+        raise InputError(f"minimum supercell length must be a number of Å, got {min_length!r}") from None
+    if not (math.isfinite(min_length) and min_length > 0):
+        raise InputError(f"minimum supercell length must be positive, got {min_length!r}")
+    spacing = plane_spacings(cell)
+    best = np.diag(np.maximum(1, np.ceil(min_length / spacing - 1e-9)).astype(np.int64))
+    best_key = (round(abs(np.linalg.det(best))), 0.0)
+    deltas = np.array(np.meshgrid(*[[-1, 0, 1]] * 9, indexing="ij")).reshape(9, -1).T.reshape(-1, 3, 3)
+    for scale in np.linspace(1.0, 1.6, 13):
+        ideal = np.round(scale * min_length * np.linalg.inv(cell)).astype(np.int64)
+        matrices = ideal[None] + deltas
+        dets = np.round(np.linalg.det(matrices.astype(float))).astype(np.int64)
+        ok = (dets > 0) & (dets <= best_key[0])
+        if not ok.any():
+            continue
+        matrices, dets = matrices[ok], dets[ok]
+        cells = matrices @ cell
+        volumes = np.abs(np.linalg.det(cells))
+        spacings = np.stack([volumes / np.linalg.norm(np.cross(cells[:, (a + 1) % 3], cells[:, (a + 2) % 3]), axis=1)
+                             for a in range(3)], axis=1)
+        shortest = spacings.min(axis=1)
+        reach = shortest >= min_length - 1e-9
+        if not reach.any():
+            continue
+        cubicness = -shortest[reach] / volumes[reach] ** (1.0 / 3.0)
+        order = np.lexsort((cubicness, dets[reach]))
+        key = (int(dets[reach][order[0]]), float(cubicness[order[0]]))
+        if key < best_key:
+            best, best_key = matrices[reach][order[0]], key
+    return best
+
+
+def make_supercell(crystal, supercell=None, min_length=None) -> Supercell:
+    """Build a supercell from a repeat spec (``"3x3x3"``, an int, a 3x3 matrix) or the smallest
+    near-cubic one with all plane spacings at least ``min_length`` Å."""
+    if supercell is not None and min_length is not None:
+        raise InputError("give either a supercell (e.g. 3x3x3) or a minimum length, not both")
+    if supercell is None and min_length is None:
+        matrix = np.eye(3, dtype=np.int64)
+    elif supercell is not None:
+        matrix = parse_supercell(supercell)
+    else:
+        matrix = near_cubic_matrix(crystal.cell, min_length)
+    if round(np.linalg.det(matrix)) * len(crystal) > 200000:
+        raise InputError(f"supercell of {round(np.linalg.det(matrix))} cells is too large")
+    if np.count_nonzero(matrix - np.diag(np.diag(matrix))) == 0:
+        return Supercell(crystal.repeat(np.diag(matrix)), matrix, crystal)
+    new_cell = matrix @ crystal.cell
+    det = int(round(np.linalg.det(matrix)))
+    # lattice points of the parent inside the supercell: corners of the supercell in parent units bound them
+    corners = np.array([(i, j, k) for i in (0, 1) for j in (0, 1) for k in (0, 1)]) @ matrix
+    low, high = corners.min(axis=0), corners.max(axis=0)
+    grid = np.array(np.meshgrid(*[np.arange(low[a], high[a] + 1) for a in range(3)], indexing="ij")).reshape(3, -1).T
+    inside = np.linalg.solve(matrix.T.astype(float), grid.T.astype(float)).T
+    keep = np.all((inside > -1e-9) & (inside < 1 - 1e-9), axis=1)
+    shifts = grid[keep]
+    order = np.lexsort((shifts[:, 2], shifts[:, 1], shifts[:, 0], np.abs(shifts).sum(axis=1)))
+    shifts = shifts[order]
+    if len(shifts) != det:
+        raise InputError(f"supercell matrix {matrix.tolist()} does not tile the cell ({len(shifts)} of {det} cells)")
+    translations = shifts @ crystal.cell
+    positions = (crystal.positions[None] + translations[:, None]).reshape(-1, 3)
+    tile = lambda seq: [x for _ in range(det) for x in seq]  # noqa: E731
+    big = Crystal(new_cell, positions, np.tile(crystal.charges, det), tile(crystal.symbols), tile(crystal.labels),
+                  np.tile(crystal.occupancies, det), source=crystal.source, min_distance=crystal.min_distance,
+                  info=crystal.info, species=None if crystal.species is None else tile(crystal.species))
+    return Supercell(big, matrix, crystal)
