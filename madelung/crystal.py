@@ -19,6 +19,7 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from .bounds import check_cell, check_charges, precheck_file
 from .errors import InputError, MadelungWarning
 
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
@@ -124,6 +125,7 @@ class Crystal:
         if np.any(lengths < 1e-8) or volume < 1e-6 * float(np.prod(lengths)) or volume < 1e-8:
             raise InputError(f"{where}the cell is degenerate (volume {volume:.3g} Å^3); "
                              "three non-coplanar lattice vectors are needed")
+        check_cell(cell, positions, self.source, min_distance)
 
         if symbols is None:
             symbols = ["X"] * n
@@ -149,6 +151,7 @@ class Crystal:
 
         species = _resolve_species(species, symbols, occupancies, labels, where)
         charges = _resolve_charges(charges, symbols, labels, where, species)
+        check_charges(charges, labels, self.source)
 
         self.cell = cell
         self.positions = positions
@@ -440,6 +443,7 @@ def read_structure(path, index=-1, format=None, max_atoms=DEFAULT_MAX_ATOMS):
         raise InputError(f"{path}: no such file")
     if os.path.isdir(path):
         raise InputError(f"{path}: is a folder, not a structure file")
+    precheck_file(path, format, max_atoms)
     is_cif = (format or "").lower() == "cif" or path.lower().endswith((".cif", ".mcif"))
     if is_cif:
         _precheck_cif(path, max_atoms)

@@ -17,6 +17,7 @@ import runpy
 from dataclasses import dataclass
 
 from .errors import InputError
+from .report.files import check_outputs, write_with
 
 #: Where the demo candidates live in a checkout of the project.
 DEMO_FOLDER = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "structures", "demo")
@@ -77,16 +78,32 @@ class DemoResult:
         return "\n".join(lines)
 
 
-def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folder=DEMO_FOLDER) -> DemoResult:
-    """Screen the demo candidates, rank them and plot them (see the module docstring)."""
+def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folder=DEMO_FOLDER, parents=False,
+             overwrite=False) -> DemoResult:
+    """Screen the demo candidates, rank them and plot them (see the module docstring).
+
+    Creates ``out_dir`` (and its missing parents only with ``parents=True``); refuses files of an
+    earlier run in it unless ``overwrite``.
+    """
     from .screen import TableWriter, screen, table_columns
 
     folder = demo_structures(folder)
-    os.makedirs(out_dir, exist_ok=True)
+    out_dir = os.fspath(out_dir)
     table = os.path.join(out_dir, "candidates.parquet")
     sites = os.path.join(out_dir, "candidate_sites.parquet")
     plot = os.path.join(out_dir, "candidates.png")
-    summary = screen([folder], table, sites=sites, workers=workers, progress=progress)
+    if os.path.exists(out_dir) and not os.path.isdir(out_dir):
+        raise InputError(f"{out_dir}: exists and is not a folder")
+    if not os.path.isdir(out_dir):
+        parent = os.path.dirname(os.path.abspath(out_dir))
+        if not os.path.isdir(parent) and not parents:
+            raise InputError(f"{out_dir}: its parent folder {parent} does not exist (create it, or pass --parents)")
+        try:
+            os.makedirs(out_dir) if parents else os.mkdir(out_dir)
+        except OSError as exc:
+            raise InputError(f"{out_dir}: cannot create the folder ({exc.strerror or exc})") from None
+    check_outputs([table, sites, plot], overwrite=overwrite)
+    summary = screen([folder], table, sites=sites, workers=workers, progress=progress, overwrite=overwrite)
     rows = [r for r in TableWriter(table, table_columns()).read() if r["status"] == "ok"]
     for row in rows:
         row["prototype"] = prototype_of(row["source"])
@@ -94,7 +111,7 @@ def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folde
     keep = ("reduced_formula", "prototype", "space_group", "energy_per_atom_eV", "energy_per_formula_unit_kJ_mol",
             "madelung_charges_left_in", "anion_potential_mean_V", "source")
     ranked = [{"rank": k + 1, **{name: row[name] for name in keep}} for k, row in enumerate(rows[:max(0, top)])]
-    save_plot(rows, plot)
+    write_with(plot, lambda temporary: save_plot(rows, temporary), binary=True)
     return DemoResult(summary=summary, ranked=ranked, table=table, sites=sites, plot=plot)
 
 

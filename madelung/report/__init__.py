@@ -1,0 +1,1 @@
+"""Reports: text, JSON and the files the commands write."""
