@@ -43,7 +43,9 @@ class _Parser(argparse.ArgumentParser):
     """argparse that reports usage mistakes as one line and exit code 2."""
 
     def error(self, message):
-        self.exit(2, f"madelung: {message} (see madelung {self.prog.split()[-1]} --help)\n")
+        command = self.prog.split()[-1]
+        self.exit(2, f"madelung: {message} (see {'madelung' if command == 'madelung' else 'madelung ' + command} "
+                     "--help)\n")
 
 
 def _tolerance(text):
