@@ -31,8 +31,13 @@ MAX_CELL_ASPECT = 1.0e3
 MAX_CHARGE = 1.0e3
 #: Ions may lie this many cell lengths outside the cell, no further (precision of the wrapping).
 MAX_CELLS_AWAY = 1.0e3
-#: Integers longer than this many digits are refused (no structure file needs them).
-MAX_DIGITS = 30
+#: Integers longer than this many digits are refused (no structure file needs them; 18 digits
+#: still fit a 64-bit integer).
+MAX_DIGITS = 18
+#: Most columns an extended-XYZ ``Properties=`` entry may claim for one property.
+MAX_XYZ_COLUMNS = 64
+#: Ions nearer than this, Å, are the same point: refused even when the distance check is off.
+COINCIDENT_DISTANCE = 1.0e-6
 #: Fewest bytes one atom line of an extended-XYZ or POSCAR file can take ("H 0 0 0\n").
 MIN_BYTES_PER_ATOM = 6
 
@@ -120,6 +125,14 @@ def _check_xyz_counts(path, text, size, max_atoms):
         claimed = int(token)
         frame += 1
         _check_claim(path, claimed, size, max_atoms, f"the header of frame {frame}")
+        comment = lines[i + 1] if i + 1 < len(lines) else ""
+        found = re.search(r"properties=(\S+)", comment, flags=re.IGNORECASE)
+        if found:
+            fields = found.group(1).strip("'\"").split(":")
+            for name, count in zip(fields[0::3], fields[2::3]):
+                if count.isdigit() and int(count) > MAX_XYZ_COLUMNS:
+                    raise InputError(f"{path}: frame {frame} claims {count} columns for property {name}, more "
+                                     f"than the {MAX_XYZ_COLUMNS} allowed")
         if i + 2 + claimed > len(lines):
             raise InputError(f"{path}: frame {frame} claims {claimed} atoms, but only "
                              f"{max(0, len(lines) - i - 2)} lines follow")

@@ -19,7 +19,7 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
-from .bounds import check_cell, check_charges, precheck_file
+from .bounds import COINCIDENT_DISTANCE, check_cell, check_charges, precheck_file
 from .errors import InputError, MadelungWarning
 
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
@@ -165,8 +165,7 @@ class Crystal:
             array.setflags(write=False)
 
         self.min_distance = float(min_distance)
-        if self.min_distance > 0:
-            self._check_overlaps()
+        self._check_overlaps()
 
     # ------------------------------------------------------------------ basics
     def __len__(self):
@@ -288,11 +287,12 @@ class Crystal:
     def _check_overlaps(self):
         from .geometry import closest_pair_within
 
-        pair = closest_pair_within(self.cell, self.positions, self.min_distance)
+        limit = max(self.min_distance, COINCIDENT_DISTANCE)   # coincident ions: always refused
+        pair = closest_pair_within(self.cell, self.positions, limit)
         if pair is not None:
             i, j, d = pair
             raise InputError(f"{_where(self.source)}sites {self.labels[i]} (#{i}) and {self.labels[j]} (#{j}) "
-                             f"are {d:.3f} Å apart, closer than the {self.min_distance:g} Å allowed "
+                             f"are {d:.3g} Å apart, closer than the {limit:g} Å allowed "
                              "(duplicate atoms? set min_distance to change the limit)")
 
     # --------------------------------------------------------- constructors
