@@ -238,6 +238,10 @@ def test_charges_beyond_what_the_sums_represent_are_refused(argv_tail, words):
     ("claims.xyz", lambda: "1000000000\nLattice=\"5 0 0 0 5 0 0 0 5\"\nNa 0 0 0\n", ["claims 1000000000 atoms"]),
     ("POSCAR", lambda: "NaCl\n-1e308\n5 0 0\n0 5 0\n0 0 5\nNa Cl\n1 1\nDirect\n0 0 0\n0.5 0.5 0.5\n",
      ["volume", "limit"]),
+    ("skewed.vasp", lambda: "NaCl\n1.0\n0 9999.9 2.8201\n2.8201 0 0\n2.8201 2.8201 0\nNa Cl\n1 1\nDirect\n0 0 0\n"
+                            "0.5 0.5 0.5\n", ["skewed", "reduced basis"]),
+    ("columns.xyz", lambda: "2\nLattice=\"5 0 0 0 5 0 0 0 5\" Properties=species:S:1:pos:R:1000000000\n"
+                           "Na 0 0 0\nCl 2.5 2.5 2.5\n", ["columns"]),
     ("needle.xyz", lambda: "2\nLattice=\"0.05 0 0 0 50 0 0 0 50\" Properties=species:S:1:pos:R:3\n"
                           "Na 0 0 0\nCl 0.025 25 25\n", ["lattice vector"]),
 ])
