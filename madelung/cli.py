@@ -790,7 +790,8 @@ def _add_screen(sub):
     parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run on this Dask distributed scheduler (e.g. tcp://10.0.0.5:8786) instead of the "
-                             "local pool; needs pip install 'madelung[dask]'")
+                             "local pool; needs pip install 'madelung[dask]'. The cluster must be trusted: "
+                             "results come back by its serialisation, so a hostile worker can run code here")
     parser.add_argument("--timeout", type=float, metavar="S", help="seconds allowed per structure")
     parser.add_argument("--resume", action="store_true", help="keep rows already ok in --out, screen the rest")
     parser.add_argument("--overwrite", action="store_true",

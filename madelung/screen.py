@@ -522,6 +522,9 @@ class DaskExecutor:
     that has not finished ``timeout`` seconds after it was handed to the cluster is recorded as
     timed out and cancelled (Dask cannot stop a running task: its thread may finish in vain).
     A task whose worker died more often than the cluster allows is recorded as crashed.
+
+    Security: results come back through Dask's serialisation (pickle), so whoever controls the
+    scheduler or a worker can run code in this process. Use only a cluster you trust.
     """
 
     def __init__(self, scheduler, options, timeout=None):
