@@ -946,7 +946,8 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     if workers is not None and (not isinstance(workers, int) or workers < 1):
         raise InputError(f"workers must be at least 1, got {workers!r}")
     outputs = [table.path] + ([site_writer.path] if site_writer is not None else [])
-    check_outputs(outputs, overwrite=True)
+    named = [os.fspath(i) for i in inputs if not _is_glob(os.fspath(i))] + ([os.fspath(db)] if db else [])
+    check_outputs(outputs, inputs=named, overwrite=True)
     if not resume and not overwrite:
         for path in outputs:
             if os.path.lexists(path):

@@ -130,12 +130,16 @@ def make_case(rng) -> dict:
 
 def run_in_process(case, folder):
     """Write the case's file into ``folder`` and run the command in this process: ``(code, out, err)``."""
-    from madelung.cli import main
-
     path = os.path.join(folder, case["name"])
     with open(path, "wb") as handle:
         handle.write(case["data"])
-    argv = [path if a == "{FILE}" else a for a in case["argv"]]
+    return run_command([path if a == "{FILE}" else a for a in case["argv"]])
+
+
+def run_command(argv):
+    """``madelung ARGV`` in this process: ``(exit code, stdout, stderr)``."""
+    from madelung.cli import main
+
     out, err = io.StringIO(), io.StringIO()
     with redirect_stdout(out), redirect_stderr(err):
         try:

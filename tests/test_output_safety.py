@@ -7,33 +7,22 @@ that the files on disk are what they were.
 """
 
 import errno
-import io
 import os
 import signal
 import subprocess
 import sys
 import time
-from contextlib import redirect_stderr, redirect_stdout
 
 import numpy as np
 import pytest
 
 import madelung
-from madelung.cli import COMMANDS, main
+from madelung.cli import COMMANDS
 
 from conftest import ROOT, structure
+from fuzz_corpus import run_command as run
 
 NACL = structure("rocksalt-NaCl")
-
-
-def run(argv):
-    out, err = io.StringIO(), io.StringIO()
-    with redirect_stdout(out), redirect_stderr(err):
-        try:
-            code = main(argv)
-        except SystemExit as exc:   # argparse usage errors
-            code = exc.code
-    return code, out.getvalue(), err.getvalue()
 
 
 def one_line(err, *words):

@@ -120,6 +120,8 @@ def atomic_output(path, binary=False):
             reason = "no space left on the device" if exc.errno == errno.ENOSPC else (exc.strerror or str(exc))
             kept = "the old file is kept" if os.path.exists(path) else "nothing written"
             raise InputError(f"{path}: cannot write ({reason}); {kept}") from None
+        if isinstance(exc, InputError) and temporary in str(exc):   # a writer named the file it was given
+            raise InputError(str(exc).replace(temporary, path)) from None
         raise
 
 
