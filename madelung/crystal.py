@@ -292,7 +292,7 @@ class Crystal:
         if pair is not None:
             i, j, d = pair
             raise InputError(f"{_where(self.source)}sites {self.labels[i]} (#{i}) and {self.labels[j]} (#{j}) "
-                             f"are {d:.3g} Å apart, closer than the {limit:g} Å allowed "
+                             f"are {d:.3f} Å apart, closer than the {limit:g} Å allowed "
                              "(duplicate atoms? set min_distance to change the limit)")
 
     # --------------------------------------------------------- constructors

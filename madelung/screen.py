@@ -869,7 +869,8 @@ class ScreenSummary:
 
     def as_dict(self):
         return {"total": self.total, "ok": self.ok, "failed": self.failed, "skipped": self.skipped,
-                "seconds": self.seconds, "structures_per_second": self.rate, "out": self.out,
+                "seconds": self.seconds, "structures_per_second": self.rate if math.isfinite(self.rate) else None,
+                "out": self.out,
                 "sites": self.sites, "executor": self.executor,
                 "failures": [{"source": s, "status": m} for s, m in self.failures]}
 
