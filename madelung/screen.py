@@ -49,7 +49,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
-from .report.files import atomic_output, check_outputs
+from .report.files import atomic_output, check_outputs, remove_stale_temporaries
 
 #: Columns that come before the descriptors, with their types.
 ID_COLUMNS = {"index": "int", "source": "str", "db_id": "int", "status": "str", "space_group": "str",
@@ -959,6 +959,8 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     lock = TableLock(table.path)
     executor = None
     try:
+        for path in outputs:
+            remove_stale_temporaries(path)   # left by a run killed mid-write; the lock says none is alive
         if scheduler is not None:
             executor = DaskExecutor(scheduler, options, timeout)
             name = f"dask ({getattr(executor.client, 'scheduler', None) and executor.client.scheduler.address})"

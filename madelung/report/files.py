@@ -92,10 +92,9 @@ def atomic_output(path, binary=False):
     """
     path = os.fspath(path)
     folder = os.path.dirname(os.path.abspath(path))
-    name = os.path.basename(path)
-    ending = os.path.splitext(name)[1]
+    prefix, suffix = _temporary_pattern(path)
     try:
-        descriptor, temporary = tempfile.mkstemp(prefix=f".{name}.", suffix=f".part{ending}", dir=folder)
+        descriptor, temporary = tempfile.mkstemp(prefix=prefix, suffix=suffix, dir=folder)
     except OSError as exc:
         raise InputError(f"{path}: cannot write ({exc.strerror or exc})") from None
     handle = os.fdopen(descriptor, "wb" if binary else "w", **({} if binary else {"encoding": "utf-8",
@@ -123,6 +122,27 @@ def atomic_output(path, binary=False):
         if isinstance(exc, InputError) and temporary in str(exc):   # a writer named the file it was given
             raise InputError(str(exc).replace(temporary, path)) from None
         raise
+
+
+def _temporary_pattern(path):
+    name = os.path.basename(os.fspath(path))
+    return f".{name}.", f".part{os.path.splitext(name)[1]}"
+
+
+def remove_stale_temporaries(path):
+    """Remove temporary files :func:`atomic_output` left beside ``path`` when a run writing it was
+    killed mid-write. Call it only while holding the lock on ``path`` (no other writer is alive).
+    Links and folders are never touched."""
+    folder = os.path.dirname(os.path.abspath(path))
+    prefix, suffix = _temporary_pattern(path)
+    with os.scandir(folder) as entries:
+        for entry in entries:
+            if entry.name.startswith(prefix) and entry.name.endswith(suffix) and \
+                    entry.is_file(follow_symlinks=False):
+                try:
+                    os.unlink(entry.path)
+                except OSError:
+                    pass
 
 
 def write_text(path, text):
