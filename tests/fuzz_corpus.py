@@ -4,7 +4,7 @@
 (bytes) corrupted by a few mutations -- byte flips, truncations, deleted and duplicated lines,
 numbers replaced by extreme values (1e308, NaN, 400-digit integers, ...), very long lines,
 non-UTF-8 bytes, atom counts in the header claiming a billion atoms -- and the command line to
-run on it (``energy``, ``sites`` or ``constant`` with some of their options).
+run on it (``energy``, ``sites``, ``constant`` or ``charges`` with some of their options).
 
 ``classify(code, out, err)`` names the outcome; only ``result`` and ``clean error`` are allowed.
 
@@ -106,8 +106,11 @@ def make_case(rng) -> dict:
     data = base.encode()
     for _ in range(rng.randint(1, 4)):
         data = _mutate(rng, data, kind)
-    command = rng.choice(["energy", "energy", "sites", "constant"])
+    command = rng.choice(["energy", "energy", "sites", "constant", "charges"])
     argv = [command, "{FILE}"]
+    if command == "charges":   # oxidation states assigned (or equilibrated) for the corrupted structure
+        return {"kind": kind, "name": FILE_NAMES[kind], "data": data,
+                "argv": argv + rng.choice([[], [], ["--method", "equilibrate"], ["--ignore-file-states"]])}
     if kind != "cif" or rng.random() < 0.2:
         na, cl = rng.choice([("1", "-1"), ("1", "-1"), ("1e308", "-1e308"), ("1e4", "-1e4"), ("nan", "1"),
                              ("1" * 400, "-1"), ("2", "-1")])
