@@ -28,7 +28,7 @@ def cpu_time(function, repeat=3):
 
 def main():
     from madelung.ewald import kernels, tuning
-    from madelung.ewald.direct import reciprocal_vectors
+    from madelung.ewald.plan import reciprocal_vectors
     from madelung.geometry import build_bins, wrapped_fractional
 
     numba.set_num_threads(1)

@@ -8,11 +8,11 @@ electrostatic energies overstate what a real, partly covalent solid holds.
 from .crystal import Crystal
 from .errors import InputError, MadelungError, MadelungWarning
 from .ewald import EwaldParameters, EwaldResult
+from .ewald.direct import run_direct
+from .ewald.mesh import run_mesh
+from .ewald.plan import METHODS, SumPlan, plan_for
 
 __version__ = "0.1.0"
-
-
-METHODS = ("auto", "direct", "mesh")
 
 
 def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="auto"):
@@ -31,10 +31,12 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="au
         Fix the Ewald splitting parameter (1/Å); by default it is chosen for the least work.
     method : {"auto", "direct", "mesh"}, optional
         "direct": the Ewald sum over k-vectors (cost about N^1.5); "mesh": smooth particle-mesh
-        Ewald (about N log N); "auto" (default): the one predicted to be faster at this ``tol``,
-        each with its own tuned parameters. ``result.params.method`` says which ran, and for
-        "auto" ``result.params.extra["predicted_seconds_by_method"]`` holds both predictions
-        (the mesh's is None for sums too small to be worth tuning it).
+        Ewald (about N log N), checked against an independent direct reciprocal sum (see
+        :mod:`madelung.ewald.mesh`); "auto" (default): the one predicted to be faster at this
+        ``tol``. One sum plan (``result.plan``) decides everything once, in the reduced basis
+        of the lattice, so the result does not depend on the basis the cell is written in.
+        ``result.params.method`` says which ran and ``result.params.extra["predicted_seconds_by_method"]``
+        the predictions (None for an engine not considered).
 
     Returns
     -------
@@ -44,6 +46,10 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="au
 
     Notes
     -----
+    ``error_estimate`` includes a rounding floor: double precision resolves the energy only to
+    about eps * E_scale * sqrt(terms per ion); a ``tol`` below that is refused with an InputError
+    that names the smallest meaningful value.
+
     A cell with a net charge is summed with a uniform neutralizing background; the result's
     ``background`` flag says so and a :class:`MadelungWarning` is issued.
 
@@ -53,24 +59,12 @@ def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="au
     A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351.
     U. Essmann et al., J. Chem. Phys. 103 (1995) 8577 (smooth particle-mesh Ewald).
     """
-    from .ewald.direct import ewald_direct, shortest_distance
-    from .ewald.mesh import ewald_mesh, predicted_seconds
-
     if not isinstance(crystal, Crystal):
         raise InputError(f"ewald() needs a madelung.Crystal, got {type(crystal).__name__}")
-    if method not in METHODS:
-        raise InputError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
-    d_min = shortest_distance(crystal)
-    predictions = None
-    if method == "auto":
-        predictions = predicted_seconds(crystal, tol, alpha=alpha, d_min=d_min)
-        method = min(predictions, key=predictions.get)
-    run = ewald_mesh if method == "mesh" else ewald_direct
-    result = run(crystal, tol=tol, forces=forces, stress=stress, alpha=alpha, d_min=d_min)
-    if predictions is not None:  # None: not predicted (the mesh is not tuned for small sums)
-        result.params.extra["predicted_seconds_by_method"] = {
-            name: (None if seconds == float("inf") else seconds) for name, seconds in predictions.items()}
-    return result
+    plan = plan_for(crystal, tol, method=method, alpha=alpha)
+    if plan.method == "mesh":
+        return run_mesh(crystal, plan, forces=forces, stress=stress)
+    return run_direct(crystal, plan, forces=forces, stress=stress)
 
 
 from .constants import MadelungConstants, madelung_constants  # noqa: E402
@@ -81,10 +75,13 @@ from .lattice import FitTarget, equation_of_state, fit_repulsion, lattice_energy
 from .thermochemistry import born_haber_cycle  # noqa: E402
 from .calculator import RigidIonCalculator, relax  # noqa: E402
 from .descriptors import describe  # noqa: E402
+from .analysis.embedding import Embedding, embedding  # noqa: E402
+from .analysis.orderings import OrderingRanking, rank_orderings  # noqa: E402
 
-__all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "madelung_constants",
+__all__ = ["Crystal", "ewald", "EwaldResult", "EwaldParameters", "SumPlan", "plan_for", "madelung_constants",
            "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning",
            "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
            "charged_cell_correction", "correction_series",
            "PairPotential", "RepulsionModel", "shortrange", "FitTarget", "fit_repulsion", "lattice_energy",
-           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax"]
+           "equation_of_state", "born_haber_cycle", "RigidIonCalculator", "relax", "embedding", "Embedding",
+           "rank_orderings", "OrderingRanking"]

@@ -20,6 +20,8 @@ import warnings
 import numpy as np
 
 from . import __version__
+from .analysis.embedding import OFFSETS as EMBEDDING_OFFSETS, embedding
+from .analysis.embedding_files import FILES as EMBEDDING_FILES, check_output_folder, embedding_report, write_embedding
 from .errors import InputError, MadelungError, MadelungWarning
 from .constants import CONVENTION_TEXT
 from .report.files import check_outputs, cif_text, write_text, write_with
@@ -225,6 +227,7 @@ def _add_energy(sub):
     parser.add_argument("--repulsion", metavar="PARAMS.json",
                         help="short-range parameter file (from madelung fit): adds the repulsion, the lattice "
                              "energy and the Born–Landé, Born–Mayer and Kapustinskii closed forms")
+    _polyatomic_option(parser)
     return parser
 
 
@@ -233,6 +236,9 @@ def _run_energy(args):
     from .units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
+    found = _polyatomic_ions(args, crystal)
+    if found is not None:
+        return _run_energy_with_ions(args, crystal, found)
     result = ewald(crystal, tol=args.tol, forces=args.forces, stress=args.stress, method=args.method)
     lattice = None
     if args.repulsion:
@@ -253,6 +259,7 @@ def _run_energy(args):
             data["stress_eV_per_angstrom3"] = result.stress
         if lattice is not None:
             data["lattice"] = _lattice_json(lattice)
+            data["lattice"]["volume_based"] = _volume_based(crystal).to_dict()
         _print_json(data)
         return 0
     per_fu = result.energy / z
@@ -276,6 +283,9 @@ def _run_energy(args):
     if lattice is not None:
         lines.append(f"  short-range terms from {args.repulsion}")
         lines.extend(_lattice_lines(lattice))
+        volume_based = _volume_based(crystal)
+        # the Kapustinskii line above already holds a simple salt; thermochemical radii matter for ions
+        lines.extend(_volume_based_lines(volume_based, kapustinskii=volume_based.ions != "none"))
         lines.append(f"  note        {RIGID_ION_NOTE}")
     lines.append(f"  note        {MODEL_NOTE}")
     print("\n".join(lines))
@@ -510,6 +520,7 @@ def _add_constant(sub):
                                         "its row and the others go on.")
     _common(parser)
     parser.add_argument("more_files", nargs="*", metavar="FILE", help=argparse.SUPPRESS)
+    _polyatomic_option(parser)
     return parser
 
 
@@ -519,13 +530,17 @@ def _run_constant(args):
     files = [args.file, *args.more_files]
     if len(files) > 1:
         return _constant_table(args, files)
-    crystal = load_crystal(args)
+    crystal, found = _ions_as_units(args, load_crystal(args))
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
     if args.json:
-        _print_json({"file": args.file, **c.as_dict()})
+        _print_json({"file": args.file, **c.as_dict(),
+                     **({"polyatomic_ions": found.to_dict()} if found is not None else {})})
         return 0
     print(f"madelung constant  {args.file}")
     print("\n".join(_structure_lines(crystal)))
+    if found is not None:
+        print(f"  polyatomic ions {found.summary()}: each one charge at its centre; r0 is measured to the "
+              f"ion centres (--polyatomic-ions atoms: every atom a point charge)")
     print(f"  r0 (shortest cation–anion distance)  {c.r0:.6f} Å")
     print(f"  E_fu (per {c.formula})                {c.energy_per_formula_unit:.8f} eV"
           f" = {c.energy_per_formula_unit * EV_TO_KJ_PER_MOL:.3f} kJ/mol")
@@ -539,6 +554,12 @@ def _run_constant(args):
         print(f"  {name:<16} {_fmt(value, 10):>15}   {CONVENTION_TEXT[name]}")
         if note:
             print(f"  {'':<16} {'':>15}   {note}")
+    if abs(c.r0_mean_first_shell - c.r0) > 1e-6 * c.r0:
+        print(f"\n  with r0 = mean first-shell cation–anion distance {c.r0_mean_first_shell:.6f} Å "
+              "(the choice behind tabulated values for uneven shells):")
+        print(f"  {'charges_left_in':<16} {_fmt(c.charges_left_in_mean_first_shell, 10):>15}")
+        if c.handbook_mean_first_shell is not None:
+            print(f"  {'handbook':<16} {_fmt(c.handbook_mean_first_shell, 10):>15}")
     print(f"\n  estimated error of the constants {c.error_estimate:.1e}")
     print(f"  note        {MODEL_NOTE}")
     return 0
@@ -727,8 +748,10 @@ def _constant_table(args, files):
     for path in files:
         args.file = path
         try:
-            c = madelung_constants(load_crystal(args), tol=args.tol, method=args.method)
-            rows.append({"file": path, "status": "ok", **c.as_dict()})
+            crystal, found = _ions_as_units(args, load_crystal(args))
+            c = madelung_constants(crystal, tol=args.tol, method=args.method)
+            rows.append({"file": path, "status": "ok", **c.as_dict(),
+                         **({"polyatomic_ions": found.summary()} if found is not None else {})})
         except InputError as exc:
             rows.append({"file": path, "status": str(exc)})
     failed = sum(row["status"] != "ok" for row in rows)
@@ -748,6 +771,8 @@ def _constant_table(args, files):
     print()
     for name in ("charges_left_in", "handbook", "common_factor"):
         print(f"  {name:<16} {CONVENTION_TEXT[name]}")
+    if any(row.get("polyatomic_ions") for row in rows):
+        print("  polyatomic ions count as one charge at their centre (--polyatomic-ions atoms: every atom)")
     print(f"  {len(rows) - failed} done, {failed} failed")
     print(f"  note        {MODEL_NOTE}")
     return code()
@@ -1539,6 +1564,296 @@ def _run_eos(args):
     return 0
 
 
+# ---------------------------------------------------------------- polyatomic ions
+POLYATOMIC_CHOICES = ("centre", "formal", "equilibrated", "atoms")
+
+
+def _polyatomic_option(parser):
+    parser.add_argument("--polyatomic-ions", choices=POLYATOMIC_CHOICES, default="centre",
+                        help="how polyatomic ions (carbonate, sulfate, nitrate, ammonium, hydroxide, ...) are "
+                             "treated: found and summed as ions, with the whole charge at the ion's centre "
+                             "(centre, default), spread over its atoms by formal states (formal) or by charge "
+                             "equilibration within the ion (equilibrated); energies are then inter-ion energies "
+                             "and Madelung constants take one charge per ion. 'atoms': no detection, every atom "
+                             "a point charge")
+
+
+def _polyatomic_ions(args, crystal):
+    """The polyatomic ions of the crystal, or None when there are none or the user asked for atoms."""
+    from .charges.polyatomic import find_polyatomic_ions
+
+    if getattr(args, "polyatomic_ions", "atoms") == "atoms":
+        return None
+    found = find_polyatomic_ions(crystal)
+    return found if found.found else None
+
+
+def _ions_as_units(args, crystal):
+    """(crystal with one charge per polyatomic ion, ions found) or (crystal, None) without ions."""
+    from .charges.polyatomic import centred_crystal
+
+    found = _polyatomic_ions(args, crystal)
+    return (crystal, None) if found is None else (centred_crystal(crystal, found), found)
+
+
+RULE_TEXT = {"centre": "whole charge at the ion's centre", "formal": "spread over its atoms by formal states",
+             "equilibrated": "spread over its atoms by charge equilibration within the ion"}
+
+
+def _volume_based(crystal, found=None):
+    from .analysis.volume_based import volume_based_energies
+
+    return volume_based_energies(crystal, found)
+
+
+def _volume_based_lines(vb, kapustinskii=True):
+    fit = (f"alpha {vb.coefficients[0]}, beta {vb.coefficients[1]}" if vb.coefficients[1] is not None
+           else f"A {vb.coefficients[0]}")
+    lines = [f"      volume-based   {vb.volume_based:10.2f}   Glasser–Jenkins, V_m {vb.volume_per_formula_unit:.3f} Å^3, "
+             f"I = {vb.ionic_strength:g}, {vb.salt_type} fit ({fit})"]
+    if kapustinskii and vb.kapustinskii is not None:
+        radii = ", ".join(f"{ion} {r:.3f} Å" for ion, r in vb.radii.items())
+        lines.append(f"      Kapustinskii   {vb.kapustinskii:10.2f}   with thermochemical radii of polyatomic ions: "
+                     f"{radii}")
+    lines += [f"      ({note})" for note in vb.notes]
+    return lines
+
+
+def _run_energy_with_ions(args, crystal, found):
+    """The energy report for a crystal holding polyatomic ions: inter-ion energies and lattice-energy estimates."""
+    from .charges.polyatomic import centred_crystal, interionic_energy
+    from .lattice import closed_forms
+
+    for flag, name in ((args.forces, "--forces"), (args.stress, "--stress"), (args.repulsion, "--repulsion")):
+        if flag:
+            raise InputError(f"{args.file}: {name} is not available with polyatomic ions treated as ions "
+                             f"({found.summary()}); add --polyatomic-ions atoms to sum every atom as a point charge")
+    rule = args.polyatomic_ions
+    result = interionic_energy(crystal, rule, tol=args.tol, method=args.method, found=found)
+    centred = centred_crystal(crystal, found)
+    forms = closed_forms(centred, tol=args.tol)
+    vb = _volume_based(crystal, found)
+    z = result.formula_units
+    if args.json:
+        born_mayer = None if forms.born_mayer is None else forms.born_mayer * EV_TO_KJ_PER_MOL
+        _print_json({"file": args.file, "formula": result.formula, "formula_units": z, "n_atoms": len(crystal),
+                     "volume_angstrom3": crystal.volume, **result.to_dict(),
+                     "lattice_energy_estimates_kJ_per_mol": {
+                         "born_mayer": born_mayer, "madelung_constant_handbook": forms.madelung_constant,
+                         "r0_angstrom": forms.r0, "rho_angstrom": forms.rho,
+                         "volume_based": vb.to_dict(), "kapustinskii_thermochemical_radii": vb.kapustinskii}})
+        return 0
+    per_fu = result.per_formula_unit
+    lines = [f"madelung energy  {args.file}", *_structure_lines(crystal),
+             f"  polyatomic ions {found.summary()}; charge of each ion: {RULE_TEXT[rule]}",
+             f"  electrostatic energy between ions (signed; formula unit {result.formula}, Z = {z})",
+             f"      Ewald sum of the charges as placed   {result.total:16.8f} eV per cell",
+             f"      internal energy of the ions          {result.internal:16.8f} eV per cell (removed)",
+             f"      inter-ion energy                     {result.interionic:16.8f} eV per cell",
+             f"      per formula unit                     {per_fu:16.8f} eV  = {per_fu * EV_TO_KJ_PER_MOL:12.3f} kJ/mol",
+             f"  accuracy    estimated error {result.error_estimate:.2e} eV (tol {args.tol:.1e})",
+             f"  lattice-energy estimates (positive, kJ/mol per {result.formula})"]
+    if forms.born_mayer is not None:
+        lines.append(f"      Born–Mayer     {forms.born_mayer * EV_TO_KJ_PER_MOL:10.2f}   Madelung constant (handbook) "
+                     f"{forms.madelung_constant:.6f} with one charge per ion, r0 {forms.r0:.4f} Å to the ion "
+                     f"centres, rho {forms.rho_source}")
+    else:
+        lines.append(f"      Born–Mayer     not applicable: {forms.notes.get('born_mayer', '')}")
+    lines.extend(_volume_based_lines(vb))
+    lines.append(f"  note        {result.note}; lattice energies likewise exclude them")
+    lines.append("  note        polyatomic ions were found and treated as ions (default); "
+                 "--polyatomic-ions atoms sums every atom as a point charge")
+    lines += [f"  note        {g.formula} (sites {', '.join(crystal.labels[i] for i in g.members[:4])}"
+              f"{' ...' if len(g.members) > 4 else ''}): {g.note}" for g in found.unrecognised[:5]]
+    lines += [f"  note        {n}" for n in found.notes[:5]]
+    lines.append(f"  note        {MODEL_NOTE}")
+    print("\n".join(lines))
+    return 0
+
+
+# ---------------------------------------------------------------- embed
+def _add_embed(sub):
+    parser = sub.add_parser("embed", help="a cluster and a fitted point-charge field for embedded-cluster calculations",
+                            description="Cut a cluster of whole ions around a site or point and surround it with point "
+                                        "charges out to a field radius; the charges of the outermost layer are fitted "
+                                        "(zero total charge and dipole) so that the potential inside the cluster "
+                                        "matches the periodic crystal's. Writes " + ", ".join(EMBEDDING_FILES.values())
+                                        + " into the output folder, centre at the origin (Å, e).")
+    parser.add_argument("file", metavar="FILE", help="structure file: CIF, POSCAR, extended XYZ, ... (read by ASE)")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed)")
+    parser.add_argument("--center", required=True, metavar="SITE",
+                        help="centre of the cluster: a site label (its first site), #INDEX, or fractional "
+                             "coordinates x,y,z")
+    parser.add_argument("--cluster-radius", type=float, required=True, metavar="Å",
+                        help="ions whose centre lies within this distance form the cluster")
+    parser.add_argument("--field-radius", type=float, required=True, metavar="Å",
+                        help="point charges stand for every ion out to this distance")
+    parser.add_argument("--fitted-thickness", type=float, metavar="Å",
+                        help="thickness of the outer layer of fitted charges (default: the larger of 3 Å and twice "
+                             "the shortest cation-anion distance)")
+    parser.add_argument("--grid-spacing", type=float, metavar="Å",
+                        help="step of the grid of fitting points in the cluster (default: about 1200 points)")
+    parser.add_argument("--offset", choices=EMBEDDING_OFFSETS, default="ewald",
+                        help="match the periodic potential's values in the Ewald convention (ewald, default) or up "
+                             "to a fitted constant (free)")
+    parser.add_argument("--out", required=True, metavar="DIR", help="output folder (created if needed)")
+    parser.add_argument("--overwrite", action="store_true", help="replace files of an earlier run in the folder")
+    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
+                        help="accuracy of the periodic potentials, relative to k_e*sum(q^2)/d_min (default 1e-10)")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
+                        help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
+    parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
+                        help="use the cell as read (default) or spglib's standardized cell")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _structure_options(parser)
+    return parser
+
+
+def _run_embed(args):
+    check_output_folder(args.out, args.overwrite)
+    crystal = load_crystal(args)
+    result = embedding(crystal, args.center, args.cluster_radius, args.field_radius,
+                       fitted_thickness=args.fitted_thickness, grid_spacing=args.grid_spacing, offset=args.offset,
+                       tol=args.tol)
+    paths = write_embedding(result, args.out, overwrite=args.overwrite)
+    if args.json:
+        data = result.to_dict()
+        for key in ("charge_positions_angstrom", "charges_e", "formal_charges_e", "fitted", "charge_labels"):
+            data.pop(key)  # the full lists are in the files
+        _print_json({"file": args.file, **data, "files": paths})
+        return 0
+    print(embedding_report(result))
+    print(f"  wrote             {', '.join(paths.values())}")
+    return 0
+
+
+# ---------------------------------------------------------------- orderings
+def _add_orderings(sub):
+    from .analysis.orderings import DEFAULT_MAX_DISTINCT
+    from .crystal import DEFAULT_MAX_ATOMS
+    from .symmetry import DEFAULT_SYMPREC
+
+    parser = sub.add_parser("orderings", help="rank the orderings of mixed or partly occupied sites by energy",
+                            description="Place the ions of the mixed or partly occupied sites (and the vacancies) "
+                                        "in every symmetry-distinct way in a supercell, or search for the lowest "
+                                        "ways when there are too many, and rank them by electrostatic energy. "
+                                        "Writes the kept orderings as CIF files with oxidation states and the "
+                                        "energy of every distinct ordering as a table. Point charges on the "
+                                        "unrelaxed lattice: a first filter, not a phase diagram.")
+    parser.add_argument("file", metavar="FILE", help="structure file with mixed or partly occupied sites (CIF)")
+    parser.add_argument("--supercell", default="1", metavar="NxMxK",
+                        help="supercell repeats, e.g. 2x2x1 (or nine integers, the rows of a matrix); default 1")
+    parser.add_argument("--keep", type=int, default=20, metavar="N", help="orderings written as CIF (default 20)")
+    parser.add_argument("--out", required=True, metavar="DIR", help="folder for the CIF files and the energy table")
+    parser.add_argument("--overwrite", action="store_true", help="allow writing into a folder that holds files")
+    parser.add_argument("--table", choices=("parquet", "csv"), default="parquet",
+                        help="format of the table of all energies (default parquet)")
+    parser.add_argument("--strategy", choices=("auto", "enumeration", "search"), default="auto",
+                        help="enumerate every ordering, search by simulated annealing, or enumerate when there are "
+                             "at most --max-distinct symmetry-distinct orderings (auto, default)")
+    parser.add_argument("--max-distinct", type=int, default=DEFAULT_MAX_DISTINCT, metavar="N",
+                        help="largest number of symmetry-distinct orderings to enumerate "
+                             f"(default {DEFAULT_MAX_DISTINCT:.0e})")
+    parser.add_argument("--restarts", type=int, default=8, metavar="N", help="independent annealing runs (default 8)")
+    parser.add_argument("--sweeps", type=int, default=50, metavar="N",
+                        help="attempted swaps per site at each annealing temperature (default 50)")
+    parser.add_argument("--seed", type=int, default=0, metavar="N", help="random seed of the search (default 0)")
+    parser.add_argument("--workers", type=int, default=1, metavar="N", help="worker processes (default 1)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", help="run the chunks on this Dask scheduler instead")
+    parser.add_argument("--background", action="store_true",
+                        help="allow a net charge, summed with a uniform neutralizing background")
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
+                        help="charge of an ion by element (or site label), e.g. Li=+1 or Mg=+2 (repeat as needed)")
+    parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
+                        help="where charges come from: the file (default), assigned oxidation states (auto) or "
+                             "charge equilibration")
+    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
+                        help="accuracy of the Coulomb matrix, relative to k_e*sum(q^2)/d_min (default 1e-10)")
+    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
+                        help="refuse ions closer than this (default 0.5 Å)")
+    parser.add_argument("--max-atoms", type=int, default=DEFAULT_MAX_ATOMS, metavar="N",
+                        help=f"refuse structures with more sites than this (default {DEFAULT_MAX_ATOMS})")
+    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å",
+                        help=f"symmetry tolerance (default {DEFAULT_SYMPREC:g} Å)")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    return parser
+
+
+def _ion_charges_of(args, atoms, crystal, assignment, rules):
+    """Per site, the charge of each of its species: from the assignment, else the rules and the file
+    (None after charge equilibration: then only single-species sites can be resolved)."""
+    from .crystal import file_states
+
+    if args.charges_from == "equilibrate":
+        return None  # partial charges: each ion's charge only where a site holds one species
+    if assignment is not None:
+        per_site = [None] * len(crystal)
+        for group, states in zip(assignment.groups, assignment.best.states):
+            for site in group.sites:
+                per_site[site] = tuple(states)
+        return per_site
+    states = file_states(atoms)
+    per_site = []
+    for i in range(len(crystal)):
+        parts = crystal.species_of(i)
+        given = states[i] if len(states[i]) == len(parts) else (None,) * len(parts)
+        per_site.append(tuple(rules.get(crystal.labels[i] if len(parts) == 1 else None, rules.get(el, q))
+                              for (el, _), q in zip(parts, given)))
+    return per_site
+
+
+def _run_orderings(args):
+    from .analysis.ordering_output import check_output_folder, write_ranking
+    from .analysis.orderings import rank_orderings
+    from .charges import charged_crystal
+    from .crystal import parse_charge_rules, read_structure
+
+    check_output_folder(args.out, args.overwrite)
+    if args.keep < 1:
+        raise InputError(f"--keep must be a positive whole number, got {args.keep}")
+    rules = parse_charge_rules(args.charge)
+    atoms = read_structure(args.file, max_atoms=args.max_atoms)
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message=".*virtual-crystal average.*")  # the point of this command
+        crystal, assignment = charged_crystal(atoms, args.charges_from, rules, symprec=args.symprec,
+                                              **_crystal_options(args))
+    ranking = rank_orderings(crystal, args.supercell, keep=args.keep,
+                             ion_charges=_ion_charges_of(args, atoms, crystal, assignment, rules), method=args.strategy,
+                             max_distinct=args.max_distinct, restarts=args.restarts, sweeps=args.sweeps,
+                             seed=args.seed, workers=args.workers, scheduler=args.scheduler,
+                             background=args.background, tol=args.tol, symprec=args.symprec)
+    files = write_ranking(ranking, args.out, table_format=args.table, overwrite=args.overwrite)
+    if args.json:
+        _print_json({**ranking.to_dict(), "files": files})
+        return 0
+    exact = ranking.method == "enumeration"
+    print(f"madelung orderings  {args.file}   {ranking.formula} x {ranking.formula_units} in a {ranking.supercell} "
+          f"supercell, {ranking.sites} disordered sites")
+    for line in ranking.sublattices:
+        print(f"  sublattice  {line}")
+    print(f"  orderings   {ranking.total_orderings} in all, {ranking.distinct_orderings} symmetry-distinct "
+          f"(Burnside, {ranking.symmetry_operations} site permutations)")
+    if exact:
+        print(f"  enumerated  {ranking.enumerated_distinct} distinct orderings "
+              f"({'equal to' if ranking.enumerated_distinct == ranking.distinct_orderings else 'DIFFERENT FROM'} "
+              f"Burnside's count) in {ranking.seconds:.2f} s; energies computed for {ranking.candidates_visited}, "
+              "the rest skipped as copies of orderings already counted")
+    else:
+        print(f"  search      simulated annealing, {args.restarts} restarts, {ranking.candidates_visited} swaps tried, "
+              f"{ranking.enumerated_distinct} distinct orderings found in {ranking.seconds:.2f} s; a search, not a "
+              "proof: a lower ordering may exist")
+    print(f"\n  {'rank':>4}  {'above lowest':>14}  {'energy':>14}  {'degeneracy':>10}  space group")
+    print(f"  {'':>4}  {'meV/f.u.':>14}  {'eV/f.u.':>14}  {'':>10}")
+    for o in ranking.orderings:
+        print(f"  {o.rank:>4}  {1000 * o.energy_above_lowest:>14.3f}  {o.energy_per_formula_unit:>14.6f}  "
+              f"{o.degeneracy:>10}  {o.space_group}")
+    print(f"\n  energy      signed electrostatic (Ewald) energy per formula unit {ranking.formula}")
+    print(f"  files       {len(files['cif'])} CIF files with oxidation states and {files['table']} in {args.out}")
+    print(f"  note        {ranking.NOTE}")
+    return 0
+
+
 # ---------------------------------------------------------------- main
 COMMANDS = {
     "energy": (_add_energy, _run_energy),
@@ -1555,6 +1870,8 @@ COMMANDS = {
     "cycle": (_add_cycle, _run_cycle),
     "relax": (_add_relax, _run_relax),
     "eos": (_add_eos, _run_eos),
+    "embed": (_add_embed, _run_embed),
+    "orderings": (_add_orderings, _run_orderings),
 }
 
 

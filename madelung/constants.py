@@ -4,11 +4,20 @@ With r0 the shortest cation–anion distance and E_fu the electrostatic energy p
 unit of the reduced composition (k_e the Coulomb constant):
 
 ``charges_left_in``
-    E_fu = -M k_e / r0. The ion charges stay inside M (fluorite CaF2: 5.0388, corundum: 25.03).
+    E_fu = -M k_e / r0. The ion charges stay inside M (fluorite CaF2: 5.0388; corundum with the
+    bundled structure: 24.33).
 ``handbook``
     E_fu = -M z+ z- k_e / r0, with z+ and |z-| the charges of the one cation kind and the one
-    anion kind (fluorite: 2.5194, corundum: 4.172, CaO: 1.7476). Undefined when the structure
-    has more than one kind of cation or anion.
+    anion kind (fluorite: 2.5194, CaO: 1.7476; corundum with the bundled structure: 4.056).
+    Undefined when the structure has more than one kind of cation or anion.
+
+Both also come with r0 taken as the **mean first-shell cation–anion distance**
+(``r0_mean_first_shell``; the shell is every anion within FIRST_SHELL_FACTOR times each cation's
+nearest anion distance). Where the cations' first shells are uneven (rutile, anatase, corundum)
+the tabulated handbook values follow this choice: the bundled corundum gives 4.183 with it
+(the CRC table lists 4.1719 for its own structure parameters) against 4.056 with the shortest
+distance; rutile 2.401 against 2.388 (CRC 2.408, from memory). For rock salt, CsCl, fluorite and
+zinc blende the two r0 coincide.
 ``common_factor``
     E_fu = -M Z^2 k_e / r0, with Z the highest common factor of the ion charges (fluorite:
     5.0388, CaO: 1.7476). Undefined when the charges are not whole multiples of one value.
@@ -31,9 +40,29 @@ from fractions import Fraction
 import numpy as np
 
 from .errors import InputError
+from .geometry import neighbour_pairs
 from .units import COULOMB_CONSTANT
 
 CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
+
+#: Anions within this factor of a cation's nearest anion distance form its first shell (for
+#: ``r0_mean_first_shell``); 1.2 separates the first shell of every bundled oxide and halide from
+#: the next (corundum 1.86-1.97 Å against 3.2 Å; rutile 1.95-1.98 Å against 3.5 Å).
+FIRST_SHELL_FACTOR = 1.2
+
+
+def mean_first_shell_distance(crystal) -> float:
+    """Mean cation–anion distance over every cation's first shell of anions, Å."""
+    charges = np.asarray(crystal.charges)
+    cations = np.flatnonzero(charges > 0)
+    _, to_opposite, _ = crystal.nearest_distances()
+    reach = FIRST_SHELL_FACTOR * float(np.max(to_opposite[cations])) * (1 + 1e-9)
+    owner, partner, distance = neighbour_pairs(crystal.cell, crystal.positions, reach, sites=cations)
+    anion = charges[partner] < 0
+    owner, distance = owner[anion], distance[anion]
+    nearest = to_opposite[cations][owner]
+    shell = distance <= FIRST_SHELL_FACTOR * nearest * (1 + 1e-9)
+    return float(np.mean(distance[shell]))
 
 CONVENTION_TEXT = {
     "charges_left_in": "E_fu = -M k_e / r0 (ion charges inside M)",
@@ -59,6 +88,8 @@ class MadelungConstants:
     handbook_charges : (z+, |z-|) used, or None.
     common_factor : M with E_fu = -M Z^2 k_e / r0, or None (see ``common_factor_note``).
     common_factor_z : Z used, or None.
+    r0_mean_first_shell : mean cation–anion distance over the cations' first shells, Å.
+    charges_left_in_mean_first_shell, handbook_mean_first_shell : the same conventions with that r0.
     site : (N,) site constants M_i = -phi_i r0 / (k_e q_i) (nan for uncharged sites).
     error_estimate : estimated error of the constants from the sum's truncation error.
     handbook_note, common_factor_note : why a convention is undefined here ("" when defined).
@@ -80,10 +111,19 @@ class MadelungConstants:
     site: np.ndarray
     error_estimate: float
     ewald: object
+    r0_mean_first_shell: float = math.nan
+    charges_left_in_mean_first_shell: float = math.nan
+    handbook_mean_first_shell: float | None = None
 
     def as_dict(self):
+        return self.to_dict()
+
+    def to_dict(self):
         return {
             "formula": self.formula, "formula_units": self.formula_units, "r0_angstrom": self.r0,
+            "r0_mean_first_shell_angstrom": self.r0_mean_first_shell,
+            "charges_left_in_mean_first_shell": self.charges_left_in_mean_first_shell,
+            "handbook_mean_first_shell": self.handbook_mean_first_shell,
             "energy_eV": self.energy, "energy_per_formula_unit_eV": self.energy_per_formula_unit,
             "charges_left_in": self.charges_left_in,
             "handbook": self.handbook, "handbook_charges": self.handbook_charges,
@@ -173,7 +213,10 @@ def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> 
     with np.errstate(divide="ignore", invalid="ignore"):
         site = np.where(charges != 0, -result.potentials * r0 / (k_e * charges), np.nan)
     error = result.error_estimate / z * r0 / k_e
+    r0_mean = mean_first_shell_distance(crystal)
     return MadelungConstants(
+        r0_mean_first_shell=r0_mean, charges_left_in_mean_first_shell=m_in * r0_mean / r0,
+        handbook_mean_first_shell=None if handbook is None else handbook * r0_mean / r0,
         formula=crystal.reduced_formula, formula_units=z, r0=r0, energy=result.energy,
         energy_per_formula_unit=e_fu, charges_left_in=m_in, handbook=handbook,
         handbook_charges=handbook_charges, handbook_note=handbook_note, common_factor=common_value,

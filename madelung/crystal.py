@@ -266,6 +266,23 @@ class Crystal:
                        source=self.source, min_distance=self.min_distance, info=self.info,
                        species=None if self.species is None else tile(self.species))
 
+    def in_basis(self, change) -> "Crystal":
+        """The same crystal written with other lattice vectors: rows ``change @ cell``.
+
+        ``change`` must be a 3x3 integer matrix of determinant ±1 (a unimodular change of basis,
+        so the lattice and every result stay the same); atoms, charges and labels are unchanged.
+        """
+        try:
+            matrix = np.array(change, dtype=float)
+        except (TypeError, ValueError):
+            raise InputError(f"a change of basis must be a 3x3 matrix of whole numbers, got {change!r}") from None
+        if matrix.shape != (3, 3) or not np.all(np.isfinite(matrix)) or np.any(matrix != np.round(matrix)):
+            raise InputError(f"a change of basis must be a 3x3 matrix of whole numbers, got {change!r}")
+        if round(abs(float(np.linalg.det(matrix)))) != 1:
+            raise InputError(f"a change of basis must have determinant +1 or -1 (the same lattice), got "
+                             f"{float(np.linalg.det(matrix)):g}")
+        return self.replace(cell=matrix @ self.cell)
+
     def to_ase(self):
         """An ``ase.Atoms`` with the charges as initial charges and labels in ``arrays['labels']``."""
         from ase import Atoms

@@ -54,8 +54,9 @@ import numpy as np
 
 from .crystal import Crystal
 from .errors import InputError, MadelungWarning
-from .ewald import kernels, point_kernels, tuning
-from .ewald.direct import NEUTRAL_TOLERANCE, EwaldParameters, reciprocal_vectors, shortest_distance
+from .ewald import kernels, point_kernels
+from .ewald.direct import EwaldParameters
+from .ewald.plan import NEUTRAL_TOLERANCE, plan_for, plan_sum, reciprocal_vectors, reduced_basis
 from .geometry import (EXAMINED_PAIR_NS, build_bins, nearest_neighbour_distances, plane_spacings,
                        thread_budget, wrapped_fractional)
 from .units import COULOMB_CONSTANT
@@ -139,48 +140,40 @@ class _PointSum:
             raise InputError(f"smearing must be a width >= 0 in Å, got {smearing!r}")
         self.crystal = crystal
         self.smearing = smearing
-        cell = np.ascontiguousarray(crystal.cell, dtype=np.float64)
-        positions = np.ascontiguousarray(crystal.positions, dtype=np.float64)
         charges = np.ascontiguousarray(crystal.charges, dtype=np.float64)
         n = len(charges)
-        volume = abs(float(np.linalg.det(cell)))
-        q2 = float(np.dot(charges, charges))
-        q_abs = float(np.abs(charges).sum())
-        net = float(charges.sum())
-        d_min = shortest_distance(crystal) if n > 1 else float(np.min(plane_spacings(cell)))
-        k_e = COULOMB_CONSTANT
+        d_min = None if n > 1 else float(np.min(plane_spacings(crystal.cell)))
         self.beta = 1.0 / (math.sqrt(2.0) * smearing) if smearing > 0 else 0.0
-        choice = tuning.choose(tol, n, volume, q2, q_abs, d_min, k_e, alpha=alpha)
-        if self.beta > 0 and self.beta <= choice.alpha:
+        plan = plan_for(crystal, tol, method="direct", alpha=alpha, d_min=d_min)
+        if self.beta > 0 and self.beta <= plan.alpha:
             # wide Gaussians: their potential is the reciprocal sum at alpha = beta alone
-            choice = tuning.choose(tol, n, volume, q2, q_abs, d_min, k_e, alpha=self.beta)
-        self.choice = choice
-        self.alpha = choice.alpha
-        self.background = abs(net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(q2))
+            plan = plan_for(crystal, tol, method="direct", alpha=self.beta, d_min=plan.d_min)
+        self.plan = plan
+        self.alpha = plan.alpha
+        self.background = plan.background
+        net = plan.sums.net
         if self.background and warn:
             warnings.warn(f"{_where(crystal)}the cell carries a net charge of {net:+.6g} e; "
                           "a uniform neutralizing background was added", MadelungWarning, stacklevel=3)
-        self.cell, self.charges, self.volume, self.net = cell, charges, volume, net
+        self.cell, self.charges, self.volume, self.net = plan.cell, charges, plan.volume, net
         self.tol = tol
-        self.bins = build_bins(cell, positions, choice.real_cutoff)
+        self.bins = plan.bins
         self.sorted_charges = self.bins.sorted_values(charges)
-        self.examined_per_point = n * self.bins.examined_volume / volume
+        self.examined_per_point = n * self.bins.examined_volume / plan.volume
         self.rank = np.empty(n, dtype=np.int64)
         self.rank[self.bins.order] = np.arange(n)
-        self.hkl, self.kvectors, self.hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
+        ks = plan.kspace
+        self.hkl, self.kvectors, self.hmax, self.weights = ks.hkl, ks.kvectors, ks.hmax, ks.weights
         if len(self.hkl):
-            k2 = np.einsum("ij,ij->i", self.kvectors, self.kvectors)
-            self.weights = np.ascontiguousarray(
-                2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
-            frac = wrapped_fractional(cell, positions)
             with thread_budget(RECIPROCAL_TERM_NS * n * len(self.hkl)):
-                self.s_re, self.s_im = kernels.structure_factors(frac, charges, self.hkl, self.hmax, kernels.CHUNKS)
+                self.s_re, self.s_im = kernels.structure_factors(plan.frac, charges, self.hkl, self.hmax,
+                                                                 kernels.CHUNKS)
         # potential error: the energy estimate is k_e/2 sum|q| dphi
-        self.potential_error = 2.0 * choice.error_estimate / q_abs
+        self.potential_error = 2.0 * plan.error_estimate / plan.sums.absolute_sum
 
     def params(self, pairs):
-        return EwaldParameters(method="direct", alpha=self.alpha, real_cutoff=self.choice.real_cutoff,
-                               reciprocal_cutoff=self.choice.reciprocal_cutoff, real_space_pairs=int(pairs),
+        return EwaldParameters(method="direct", alpha=self.alpha, real_cutoff=self.plan.real_cutoff,
+                               reciprocal_cutoff=self.plan.reciprocal_cutoff, real_space_pairs=int(pairs),
                                k_vectors=int(len(self.hkl)), image_reach=tuple(int(x) for x in self.bins.reach),
                                extra={"smearing_angstrom": self.smearing})
 
@@ -202,7 +195,7 @@ class _PointSum:
         with thread_budget(m * (self.examined_per_point * EXAMINED_PAIR_NS + RECIPROCAL_TERM_NS * len(self.hkl))):
             phi_r, e_r, nearest, nearest_sorted, pairs = point_kernels.real_space_at_points(
                 wrapped, point_bin, exclude_sorted, b.positions, self.sorted_charges, b.cell, b.counts, b.offsets,
-                b.bin_start, self.alpha, self.beta, self.choice.real_cutoff, ON_ION_DISTANCE, bool(want_field))
+                b.bin_start, self.alpha, self.beta, self.plan.real_cutoff, ON_ION_DISTANCE, bool(want_field))
             if len(self.hkl):
                 phi_k, e_k = kernels.reciprocal_site_terms(frac, np.ones(m), self.hkl, self.hmax, self.kvectors,
                                                            self.weights, self.s_re, self.s_im, bool(want_field))
@@ -227,7 +220,7 @@ class _PointSum:
         with thread_budget(len(points) * self.examined_per_point * EXAMINED_PAIR_NS):
             _, _, nearest, nearest_sorted, _ = point_kernels.real_space_at_points(
                 wrapped, point_bin, np.full(len(points), -1, dtype=np.int64), b.positions, self.sorted_charges,
-                b.cell, b.counts, b.offsets, b.bin_start, self.alpha, self.beta, self.choice.real_cutoff,
+                b.cell, b.counts, b.offsets, b.bin_start, self.alpha, self.beta, self.plan.real_cutoff,
                 ON_ION_DISTANCE, False)
         return nearest, np.where(nearest_sorted >= 0, b.order[np.maximum(nearest_sorted, 0)], -1)
 
@@ -940,7 +933,7 @@ def make_supercell(crystal, supercell=None, min_length=None) -> Supercell:
     tile = lambda seq: [x for _ in range(det) for x in seq]  # noqa: E731
     big = Crystal(new_cell, positions, np.tile(crystal.charges, det), tile(crystal.symbols), tile(crystal.labels),
                   np.tile(crystal.occupancies, det), source=crystal.source, min_distance=crystal.min_distance,
-                  info=crystal.info)
+                  info=crystal.info, species=None if crystal.species is None else tile(crystal.species))
     return Supercell(big, matrix, crystal)
 
 
@@ -1602,20 +1595,21 @@ def charged_cell_correction(cell, charge, dielectric=1.0, *, tol=1e-10) -> Charg
     inverse = np.ascontiguousarray(np.linalg.inv(eps))
     inverse_root = vectors @ np.diag(values ** -0.5) @ vectors.T
 
+    # the lattice sums run in the reduced basis (the same lattice, well-shaped image boxes);
     # tuning in the coordinates where the sum is isotropic
-    scaled = cell @ inverse_root
-    scaled_volume = volume / root_det
-    to_any, _, _ = nearest_neighbour_distances(scaled, np.zeros((1, 3)), np.ones(1))
-    choice = tuning.choose(tol, 1, scaled_volume, 1.0, 1.0, float(to_any[0]), k_e)
+    sum_cell, _ = reduced_basis(cell)
+    scaled = sum_cell @ inverse_root
+    # one unit charge in the scaled cell: the plan's splitting parameter and cutoffs
+    choice = plan_sum(scaled, np.zeros((1, 3)), np.ones(1), tol=tol, method="direct")
     a = choice.alpha
 
     # real space: s_n < r_cut needs |n| < r_cut sqrt(max eigenvalue)
     reach = choice.real_cutoff * math.sqrt(values.max())
-    nmax = np.ceil(reach / plane_spacings(cell)).astype(np.int64)
+    nmax = np.ceil(reach / plane_spacings(sum_cell)).astype(np.int64)
     real_sum, real_terms = point_kernels.anisotropic_real_space_sum(
-        np.ascontiguousarray(cell), inverse, a, choice.real_cutoff, nmax)
+        np.ascontiguousarray(sum_cell), inverse, a, choice.real_cutoff, nmax)
     # reciprocal space: k.eps.k <= k_cut^2 needs |k| <= k_cut / sqrt(min eigenvalue)
-    _, kvectors, _ = reciprocal_vectors(cell, choice.reciprocal_cutoff / math.sqrt(values.min()))
+    _, kvectors, _ = reciprocal_vectors(sum_cell, choice.reciprocal_cutoff / math.sqrt(values.min()))
     kek = np.einsum("mi,ij,mj->m", kvectors, eps, kvectors)
     inside = kek <= choice.reciprocal_cutoff ** 2
     kek = kek[inside]

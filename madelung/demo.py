@@ -17,7 +17,7 @@ import runpy
 from dataclasses import dataclass
 
 from .errors import InputError
-from .report.files import check_outputs, write_with
+from .report.files import check_outputs, make_folder, write_with
 
 #: Where the demo candidates live in a checkout of the project.
 DEMO_FOLDER = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "structures", "demo")
@@ -92,16 +92,10 @@ def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folde
     table = os.path.join(out_dir, "candidates.parquet")
     sites = os.path.join(out_dir, "candidate_sites.parquet")
     plot = os.path.join(out_dir, "candidates.png")
-    if os.path.exists(out_dir) and not os.path.isdir(out_dir):
-        raise InputError(f"{out_dir}: exists and is not a folder")
-    if not os.path.isdir(out_dir):
-        parent = os.path.dirname(os.path.abspath(out_dir))
-        if not os.path.isdir(parent) and not parents:
-            raise InputError(f"{out_dir}: its parent folder {parent} does not exist (create it, or pass --parents)")
-        try:
-            os.makedirs(out_dir) if parents else os.mkdir(out_dir)
-        except OSError as exc:
-            raise InputError(f"{out_dir}: cannot create the folder ({exc.strerror or exc})") from None
+    if not os.path.isdir(out_dir) and not os.path.lexists(out_dir) and not parents and \
+            not os.path.isdir(os.path.dirname(os.path.abspath(out_dir))):
+        raise InputError(f"{out_dir}: its parent folder does not exist (create it, or pass --parents)")
+    make_folder(out_dir, parents=parents)
     check_outputs([table, sites, plot], overwrite=overwrite)
     summary = screen([folder], table, sites=sites, workers=workers, progress=progress, overwrite=overwrite)
     rows = [r for r in TableWriter(table, table_columns()).read() if r["status"] == "ok"]

@@ -2,7 +2,7 @@
 database), cached, in this project's units.
 
 Sources as the library states them: oxidation states (main states of each element),
-Pauling electronegativities, ionisation energies and electron affinities (NIST-based
+Pauling electronegativities, covalent radii (Cordero et al. 2008), ionisation energies and electron affinities (NIST-based
 tables), and Shannon's effective ionic radii (R. D. Shannon, Acta Cryst. A32 (1976) 751).
 """
 
@@ -78,6 +78,14 @@ def all_oxidation_states(symbol) -> tuple:
 def electronegativity(symbol) -> float | None:
     """Pauling electronegativity, or None where the library has none (noble gases)."""
     return _value(_row(symbol)["en_pauling"])
+
+
+@lru_cache(maxsize=None)
+def covalent_radius(symbol) -> float | None:
+    """Single-bond covalent radius in Å (B. Cordero et al., Dalton Trans. (2008) 2832, as the
+    library lists it), or None where it has none."""
+    value = _value(_row(symbol)["covalent_radius_cordero"])
+    return None if value is None else value / 100.0  # pm -> Å
 
 
 @lru_cache(maxsize=None)

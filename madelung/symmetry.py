@@ -189,6 +189,28 @@ def analyse(cell, frac_positions, types, symprec=DEFAULT_SYMPREC, angle_toleranc
                         operations=int(len(data.rotations)), conventional_volume=conventional_volume)
 
 
+def symmetry_operations(cell, frac_positions, types, symprec=DEFAULT_SYMPREC):
+    """Space-group operations of a periodic structure as ``(rotations, translations)``: integer
+    (M, 3, 3) matrices and (M, 3) vectors acting on fractional coordinates, ``f' = R f + t``; every
+    operation that maps the structure (with its site types) onto itself in this cell, pure
+    translations of a supercell included.
+
+    References
+    ----------
+    A. Togo and I. Tanaka, arXiv:1808.01590 (2018) (spglib).
+    """
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    frac = np.ascontiguousarray(frac_positions, dtype=np.float64)
+    types = np.ascontiguousarray(types, dtype=np.int64).reshape(-1)
+    if not (np.isfinite(symprec) and symprec > 0):
+        raise InputError(f"symmetry tolerance must be a positive length in Å, got {symprec!r}")
+    data = _dataset(cell, frac, types, symprec)
+    if data is None:
+        raise InputError(f"spglib found no symmetry at tolerance {symprec:g} Å "
+                         "(positions overlapping or the cell is degenerate?)")
+    return np.asarray(data.rotations, dtype=np.int64), np.asarray(data.translations, dtype=np.float64)
+
+
 def site_types(crystal, by_charge=True) -> np.ndarray:
     """Integer type of every site: same species (element or mixture) and, if ``by_charge``, same charge."""
     keys = {}

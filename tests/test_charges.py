@@ -222,8 +222,11 @@ def test_equilibration_with_a_net_charge_keeps_the_total():
 def test_equilibrated_charges_do_not_depend_on_the_cell_chosen():
     crystal = bare("spinel-MgAl2O4.cif")
     primitive = standard_cell(crystal, "primitive")
-    by_label = lambda c, r: {l: round(q, 8) for l, q in zip(c.labels, r.charges)}  # noqa: E731
-    assert by_label(primitive, equilibrate(primitive)) == by_label(crystal, equilibrated("spinel-MgAl2O4.cif"))
+    by_label = lambda c, r: {l: q for l, q in zip(c.labels, r.charges)}  # noqa: E731
+    first, second = by_label(primitive, equilibrate(primitive)), by_label(crystal, equilibrated("spinel-MgAl2O4.cif"))
+    assert first.keys() == second.keys()
+    # the same charges to the accuracy of the sums (tol 1e-10 of the energy scale), not bit for bit
+    assert all(first[label] == pytest.approx(second[label], abs=1e-7) for label in first)
 
 
 def test_charge_transfer_follows_the_electronegativity_difference():

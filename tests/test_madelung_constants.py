@@ -48,6 +48,30 @@ def test_conventions_of_fluorite_and_calcium_oxide():
     assert lime.charges_left_in == pytest.approx(4 * 1.747564594633, abs=4e-9)
 
 
+@pytest.mark.parametrize("name,tabulated", [
+    ("corundum-Al2O3", 4.1719),  # CRC Handbook, "Madelung constants" table (from memory)
+    ("rutile-TiO2", 2.408),      # CRC Handbook, same table (from memory)
+])
+def test_tabulated_uneven_shells_follow_the_mean_first_shell_distance(name, tabulated):
+    # for cations with uneven first shells the tabulated handbook values take r0 as the mean
+    # first-shell distance; the bundled structures' parameters differ from the table's a little,
+    # so the mean-shell value must be the closer one and within 0.5 %
+    constants = madelung.madelung_constants(load(name), tol=1e-10)
+    assert constants.r0_mean_first_shell > constants.r0
+    mean_shell = constants.handbook_mean_first_shell
+    assert abs(mean_shell - tabulated) < abs(constants.handbook - tabulated)
+    assert mean_shell == pytest.approx(tabulated, rel=5e-3)
+    assert constants.charges_left_in_mean_first_shell == pytest.approx(
+        constants.charges_left_in * constants.r0_mean_first_shell / constants.r0, rel=1e-12)
+
+
+def test_even_shells_give_one_r0():
+    # rock salt and fluorite: every cation's first shell is at one distance (fact of the trade)
+    for name in ("rocksalt-NaCl", "fluorite-CaF2"):
+        constants = madelung.madelung_constants(load(name), tol=1e-8)
+        assert constants.r0_mean_first_shell == pytest.approx(constants.r0, rel=1e-12)
+
+
 def test_handbook_convention_refused_for_three_ion_kinds():
     spinel = madelung.madelung_constants(load("spinel-MgAl2O4"), tol=1e-8)
     assert spinel.handbook is None

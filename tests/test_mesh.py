@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 
 import madelung
 from madelung.ewald import mesh as mesh_module
-from madelung.ewald import mesh_kernels
+from madelung.ewald import mesh_kernels, tuning
 from madelung.ewald.direct import ewald_direct, shortest_distance
 from madelung.ewald.mesh import ewald_mesh
 from madelung.units import COULOMB_CONSTANT
@@ -55,7 +55,7 @@ def test_mesh_agrees_with_direct_on_a_rattled_supercell(rng):
     base = load("rocksalt-NaCl").repeat(2)
     crystal = base.replace(positions=base.positions + rng.normal(0.0, 0.1, base.positions.shape))
     mesh, _ = _compare(crystal, 1e-8)
-    assert mesh.params.extra["order"] in mesh_module.TUNED_ORDERS
+    assert mesh.params.extra["order"] in tuning.TUNED_ORDERS
 
 
 def test_net_charge_is_summed_with_the_same_background(rng):
@@ -177,7 +177,7 @@ def test_method_choice(rng):
     assert madelung.ewald(small, tol=1e-6, method="direct").params.method == "direct"
     # the direct sum grows as N^1.5, the mesh as N log N: for a large cell the mesh is predicted faster
     big = load("rocksalt-NaCl").repeat(10)
-    predicted = mesh_module.predicted_seconds(big, 1e-8)
+    predicted = madelung.plan_for(big, 1e-8).predicted_seconds
     assert predicted["mesh"] < predicted["direct"]
     with pytest.raises(madelung.InputError):
         madelung.ewald(small, method="fastest")
@@ -205,8 +205,8 @@ def test_bad_mesh_options_are_input_errors():
 def test_failed_check_refines_the_mesh(monkeypatch, rng):
     # an estimate 10^4 times too optimistic picks too coarse a mesh; the subsample check must
     # catch it and refine the mesh until the measured error meets the target
-    optimistic = {n: (a * 1e-4, s) for n, (a, s) in mesh_module.MESH_ERROR_MODEL.items()}
-    monkeypatch.setattr(mesh_module, "MESH_ERROR_MODEL", optimistic)
+    optimistic = {n: (a * 1e-4, s) for n, (a, s) in tuning.MESH_ERROR_MODEL.items()}
+    monkeypatch.setattr(tuning, "MESH_ERROR_MODEL", optimistic)
     base = load("rocksalt-NaCl")
     crystal = base.replace(positions=base.positions + rng.normal(0.0, 0.1, base.positions.shape))
     tol = 1e-7
@@ -214,6 +214,26 @@ def test_failed_check_refines_the_mesh(monkeypatch, rng):
     refined = ewald_mesh(crystal, tol=tol, check=True)
     reference = ewald_direct(crystal, tol=1e-12)
     assert abs(coarse.energy - reference.energy) > tol * reference.energy_scale  # the trap is real
-    assert refined.params.extra["check"]["attempt"] >= 1
+    assert len(refined.params.extra["checks"]) >= 2 and refined.params.extra["check"]["kind"] == "subsample"
     assert np.prod(refined.params.extra["mesh"]) > np.prod(coarse.params.extra["mesh"])
     assert abs(refined.energy - reference.energy) <= tol * reference.energy_scale
+
+
+def test_proxy_check_catches_an_optimistic_estimate(monkeypatch, rng):
+    # with the subsample check priced out, the proxy cell (same splitting parameter and mesh step,
+    # random ions) must expose an estimate 10^4 times too optimistic and refine the mesh
+    optimistic = {n: (a * 1e-4, s) for n, (a, s) in tuning.MESH_ERROR_MODEL.items()}
+    monkeypatch.setattr(tuning, "MESH_ERROR_MODEL", optimistic)
+    monkeypatch.setattr(mesh_module, "CHECK_SHARE", 0.0)
+    base = load("rocksalt-NaCl").repeat(3)
+    crystal = base.replace(positions=base.positions + rng.normal(0.0, 0.1, base.positions.shape))
+    tol = 1e-6
+    coarse = ewald_mesh(crystal, tol=tol, check=False)
+    checked = ewald_mesh(crystal, tol=tol)
+    reference = ewald_direct(crystal, tol=1e-10)
+    assert abs(coarse.energy - reference.energy) > tol * reference.energy_scale  # the trap is real
+    assert checked.params.extra["check"]["kind"] == "proxy cell"
+    assert checked.params.extra["checks"][0]["measured_over_predicted"] > 10.0
+    assert np.prod(checked.params.extra["mesh"]) > np.prod(coarse.params.extra["mesh"])
+    assert abs(checked.energy - reference.energy) <= tol * reference.energy_scale
+    assert abs(checked.energy - reference.energy) <= checked.error_estimate

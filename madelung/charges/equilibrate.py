@@ -57,13 +57,16 @@ P. P. Ewald, Ann. Phys. 369 (1921) 253.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.special import erf
 
 from .. import elements
-from ..errors import InputError
+from ..errors import InputError, MadelungWarning
 from ..units import COULOMB_CONSTANT
+from .bonds import bonded_pairs
 
 KERNELS = ("gaussian", "point")
 
@@ -213,16 +216,12 @@ def equilibrate(crystal, total_charge=0.0, kernel="gaussian", parameters=None, d
             raise InputError(f"{where}charge equilibration with the {kernel} kernel is unstable here "
                              f"(lowest curvature {lowest:.3g} eV/e^2: the Coulomb attraction outgrows the "
                              "hardness); use the gaussian kernel or other parameters")
-    system = np.zeros((n + 1, n + 1))
-    system[:n, :n] = h
-    system[:n, n] = -1.0
-    system[n, :n] = 1.0
-    rhs = np.concatenate([-chi, [total_charge]])
-    solution = np.linalg.solve(system, rhs)
-    charges = solution[:n].copy()
-    mu = float(solution[n])
+    charges, mu = _equal_potentials(h, chi, total_charge)
     energy = float(chi @ charges + 0.5 * charges @ h @ charges)
     _warn_beyond_formal(crystal, charges, where)
+    bonds = bonded_pairs(crystal)
+    for message in sign_warnings(crystal.symbols, crystal.labels, charges, zip(bonds.first, bonds.second)):
+        warnings.warn(f"{where}{message}", MadelungWarning, stacklevel=2)
     for array in (charges, chi, hardness):
         array.setflags(write=False)
     return EquilibrationResult(charges=charges, total_charge=total_charge, chemical_potential=mu, energy=energy,
@@ -233,10 +232,6 @@ def equilibrate(crystal, total_charge=0.0, kernel="gaussian", parameters=None, d
 
 def _warn_beyond_formal(crystal, charges, where):
     """Warn when a charge exceeds the largest formal state of its element (model near its limit)."""
-    import warnings
-
-    from ..errors import MadelungWarning
-
     for i, q in enumerate(charges):
         if crystal.is_averaged(i):
             continue
@@ -246,3 +241,70 @@ def _warn_beyond_formal(crystal, charges, where):
                           f"formal state of {crystal.symbols[i]}; the model is near its stability limit "
                           "(raise the dielectric constant)", MadelungWarning, stacklevel=3)
             return
+
+
+def sign_warnings(symbols, labels, charges, pairs):
+    """Messages for equilibrated charges whose sign contradicts the chemistry: a hydrogen bonded to
+    oxygen with a negative charge, or a carbon bonded to oxygen (an oxoanion such as carbonate)
+    with a negative charge. ``pairs``: bonded site pairs ``(i, j)``. One message per kind."""
+    oxygen_partners = {}
+    for i, j in pairs:
+        for a, b in ((int(i), int(j)), (int(j), int(i))):
+            if symbols[b] == "O":
+                oxygen_partners.setdefault(a, True)
+    messages = []
+    for element, what in (("H", "hydrogen bonded to oxygen"), ("C", "carbon bonded to oxygen (an oxoanion)")):
+        wrong = [i for i in oxygen_partners if symbols[i] == element and charges[i] < 0]
+        if wrong:
+            i = wrong[0]
+            messages.append(f"charge equilibration gives {what} a negative charge ({labels[i]} {charges[i]:+.3f} e"
+                            f"{f' and {len(wrong) - 1} more' if len(wrong) > 1 else ''}): the sign contradicts "
+                            "the chemistry; the Mulliken parameters misjudge such bonds, so treat these charges "
+                            "with care (or use formal charges)")
+    return messages
+
+
+def equilibrate_group(symbols, positions, total_charge, parameters=None):
+    """Charge equilibration of one isolated group of atoms (e.g. a polyatomic ion) with the Gaussian
+    kernel and no periodic images or screening: the charges that equalise chi_i + J_i q_i +
+    sum_j k_e erf(r_ij / s_ij) / r_ij q_j at fixed total charge.
+
+    Parameters
+    ----------
+    symbols : sequence of element symbols.
+    positions : (n, 3) Cartesian positions of the connected group, Å.
+    total_charge : charge of the group, e.
+    parameters : mapping, optional
+        ``{element: (chi_eV, J_eV)}`` overriding the Mulliken values.
+
+    Returns
+    -------
+    (n,) charges, e.
+
+    References
+    ----------
+    A. K. Rappé and W. A. Goddard III, J. Phys. Chem. 95 (1991) 3358; R. S. Mulliken,
+    J. Chem. Phys. 2 (1934) 782; D. M. York and W. Yang, J. Chem. Phys. 104 (1996) 159.
+    """
+    positions = np.asarray(positions, dtype=float).reshape(-1, 3)
+    values = [tuple(parameters[el]) if parameters and el in parameters else mulliken_parameters(el) for el in symbols]
+    chi = np.array([v[0] for v in values])
+    hardness = np.array([v[1] for v in values])
+    width = COULOMB_CONSTANT / (math.sqrt(math.pi) * hardness)
+    r = np.linalg.norm(positions[:, None, :] - positions[None, :, :], axis=2)
+    scale = np.sqrt(2.0 * (width[:, None] ** 2 + width[None, :] ** 2))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        h = np.where(r > 0, COULOMB_CONSTANT * erf(r / scale) / r, 0.0)
+    h += np.diag(hardness)
+    return _equal_potentials(h, chi, float(total_charge))[0]
+
+
+def _equal_potentials(h, chi, total_charge):
+    """Charges q and chemical potential mu with chi + H q = mu everywhere and sum q = total_charge."""
+    n = len(chi)
+    system = np.zeros((n + 1, n + 1))
+    system[:n, :n] = h
+    system[:n, n] = -1.0
+    system[n, :n] = 1.0
+    solution = np.linalg.solve(system, np.concatenate([-chi, [total_charge]]))
+    return solution[:n].copy(), float(solution[n])

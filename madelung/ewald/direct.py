@@ -22,12 +22,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import MadelungWarning
-from ..geometry import build_bins, nearest_neighbour_distances, thread_budget, wrapped_fractional
+from ..geometry import thread_budget
 from ..units import COULOMB_CONSTANT
-from . import kernels, tuning
-
-#: Net charges below this (e) are taken as zero: rounding in the charges, not a charged cell.
-NEUTRAL_TOLERANCE = 1e-8
+from . import kernels
+from . import plan as plan_module
 
 @dataclass(frozen=True)
 class EwaldParameters:
@@ -73,6 +71,7 @@ class EwaldResult:
     background : True when a neutralizing background was applied (net charge not zero).
     n_atoms : number of ions.
     seconds : wall time of the sum, s.
+    plan : the :class:`~madelung.ewald.plan.SumPlan` the sum ran with.
     """
 
     energy: float
@@ -88,36 +87,29 @@ class EwaldResult:
     background: bool
     n_atoms: int
     seconds: float
+    plan: object = None
 
     @property
     def energy_per_atom(self) -> float:
         """eV per ion."""
         return self.energy / self.n_atoms
 
+    def to_dict(self) -> dict:
+        """JSON-ready: energies eV, potentials V, forces eV/Å, stress eV/Å^3, the plan's record."""
+        def listed(array):
+            return None if array is None else np.asarray(array).tolist()
 
-def reciprocal_vectors(cell, k_cut):
-    """Half-space reciprocal vectors with 0 < |k| <= k_cut.
-
-    Returns ``(hkl (M, 3) int64, k (M, 3) 1/Å, hmax (3,) int64)``; of each pair k, -k only the
-    one with the first non-zero Miller index positive is kept.
-    """
-    recip = 2.0 * math.pi * np.linalg.inv(cell).T  # rows b_i with a_i . b_j = 2 pi delta_ij
-    hmax = np.floor(k_cut * np.linalg.norm(cell, axis=1) / (2.0 * math.pi)).astype(np.int64)
-    rows = []
-    k2_cut = k_cut * k_cut
-    for h in range(0, hmax[0] + 1):
-        ks = np.arange(-hmax[1], hmax[1] + 1)
-        ls = np.arange(-hmax[2], hmax[2] + 1)
-        kk, ll = np.meshgrid(ks, ls, indexing="ij")
-        hkl = np.stack([np.full(kk.size, h), kk.ravel(), ll.ravel()], axis=1)
-        if h == 0:
-            keep = (hkl[:, 1] > 0) | ((hkl[:, 1] == 0) & (hkl[:, 2] > 0))
-            hkl = hkl[keep]
-        kv = hkl @ recip
-        rows.append(hkl[np.einsum("ij,ij->i", kv, kv) <= k2_cut])
-    hkl = np.ascontiguousarray(np.concatenate(rows).astype(np.int64)) if rows else np.zeros((0, 3), np.int64)
-    kvectors = np.ascontiguousarray(hkl @ recip)
-    return hkl, kvectors, hmax
+        return {"energy_eV": self.energy, "energy_per_atom_eV": self.energy_per_atom,
+                "components_eV": dict(self.components), "error_estimate_eV": self.error_estimate,
+                "tol": self.tol, "energy_scale_eV": self.energy_scale, "net_charge_e": self.net_charge,
+                "background": self.background, "n_atoms": self.n_atoms, "seconds": self.seconds,
+                "potentials_V": listed(self.potentials), "forces_eV_per_angstrom": listed(self.forces),
+                "stress_eV_per_cubic_angstrom": listed(self.stress),
+                "parameters": {"method": self.params.method, "alpha_per_angstrom": self.params.alpha,
+                               "real_cutoff_angstrom": self.params.real_cutoff,
+                               "reciprocal_cutoff_per_angstrom": self.params.reciprocal_cutoff,
+                               "real_space_pairs": self.params.real_space_pairs,
+                               "k_vectors": self.params.k_vectors, **self.params.extra}}
 
 
 def _as_crystal_arrays(crystal):
@@ -128,14 +120,13 @@ def _as_crystal_arrays(crystal):
 
 
 def shortest_distance(crystal) -> float:
-    """Shortest interionic distance (images included), Å."""
-    to_any, _, _ = nearest_neighbour_distances(crystal.cell, crystal.positions, crystal.charges)
-    return float(np.min(to_any))
+    """Shortest interionic distance of a crystal (images included), Å."""
+    return plan_module.shortest_distance(crystal.cell, crystal.positions)
 
 
-def warn_if_charged(crystal, net, charge_sq_sum) -> bool:
+def warn_if_charged(crystal, plan) -> bool:
     """Whether the cell carries a net charge (then a neutralizing background is added, with a warning)."""
-    background = abs(net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(charge_sq_sum))
+    background, net = plan.background, plan.sums.net
     if background:
         warnings.warn(f"{crystal.source + ': ' if crystal.source else ''}the cell carries a net charge of "
                       f"{net:+.6g} e; a uniform neutralizing background was added", MadelungWarning,
@@ -143,15 +134,15 @@ def warn_if_charged(crystal, net, charge_sq_sum) -> bool:
     return background
 
 
-def real_space_part(cell, positions, charges, alpha, r_cut, forces, stress):
-    """Real-space sum in Gaussian units, in the original atom order.
+def real_space_part(plan, charges, forces, stress):
+    """Real-space sum in Gaussian units, in the original atom order, on the plan's bins.
 
     Returns ``(potentials (N,), forces (N, 3) or None, virial (6,) or None, pairs, image reach)``.
     """
-    bins = build_bins(cell, positions, r_cut)
+    bins = plan.bins
     phi_r, f_r, w_r, pairs = kernels.real_space_terms(
         bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
-        bins.bin_start, alpha, r_cut, bool(forces), bool(stress))
+        bins.bin_start, plan.alpha, plan.real_cutoff, bool(forces), bool(stress))
     return (bins.unsorted(phi_r), bins.unsorted(f_r) if forces else None, w_r.sum(axis=0) if stress else None,
             int(pairs), tuple(int(x) for x in bins.reach))
 
@@ -191,10 +182,41 @@ def assemble(charges, phi_real, phi_recip, e_recip, alpha, volume, net, backgrou
     return potentials, sum(components.values()), components, forces, stress
 
 
-def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_min=None) -> EwaldResult:
-    """Ewald sum with cutoffs chosen for relative energy error ``tol``.
+def reciprocal_part(plan, frac, charges, forces):
+    """Direct reciprocal sum in Gaussian units on the plan's k-vectors: ``(potentials (N,),
+    forces (N, 3), energy, |S(k)|^2)``."""
+    ks = plan.kspace
+    if not len(ks.hkl):
+        n = len(charges)
+        return np.zeros(n), np.zeros((n, 3)), 0.0, np.zeros(0)
+    s_re, s_im = kernels.structure_factors(frac, charges, ks.hkl, ks.hmax, kernels.CHUNKS)
+    phi_k, f_k = kernels.reciprocal_site_terms(frac, charges, ks.hkl, ks.hmax, ks.kvectors, ks.weights,
+                                               s_re, s_im, bool(forces))
+    s2 = s_re * s_re + s_im * s_im
+    return phi_k, f_k, 0.5 * float(np.dot(ks.weights, s2)), s2
 
-    See :func:`madelung.ewald` for the parameters.
+
+def params_of(plan, pairs, reach, shape=None, **extra) -> EwaldParameters:
+    """The public record of how a planned sum ran (``shape``: the mesh that ran, if refined)."""
+    if plan.method == "mesh":
+        shape = shape or plan.mesh
+        lengths = np.linalg.norm(plan.cell, axis=1)
+        k_vectors = int(shape[0] * shape[1] * (shape[2] // 2 + 1))
+        reciprocal_cutoff = float(min(math.pi * shape[i] / lengths[i] for i in range(3)))
+    else:
+        k_vectors, reciprocal_cutoff = int(len(plan.kspace.hkl)), plan.reciprocal_cutoff
+    return EwaldParameters(
+        method=plan.method, alpha=plan.alpha, real_cutoff=plan.real_cutoff,
+        reciprocal_cutoff=reciprocal_cutoff, real_space_pairs=int(pairs), k_vectors=k_vectors,
+        image_reach=reach, extra={"chosen_by": plan.chosen_by,
+                                  "predicted_seconds_by_method": dict(plan.predicted_seconds),
+                                  "reduced_cell": plan.cell.tolist(), "basis_change": plan.basis_change.tolist(),
+                                  "real_error_eV": plan.real_error, "reciprocal_error_eV": plan.reciprocal_error,
+                                  "rounding_error_eV": plan.rounding_error, **extra})
+
+
+def run_direct(crystal, plan, forces=False, stress=False) -> EwaldResult:
+    """The direct Ewald sum of ``crystal`` as ``plan`` (method "direct") laid it out.
 
     References
     ----------
@@ -203,54 +225,34 @@ def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_m
     D. M. Heyes, J. Chem. Phys. 74 (1981) 1924 (pressure/stress of the Ewald sum).
     """
     started = time.perf_counter()
-    cell, positions, charges = _as_crystal_arrays(crystal)
-    n = len(charges)
-    volume = abs(float(np.linalg.det(cell)))
-    k_e = COULOMB_CONSTANT
-    q2 = float(np.dot(charges, charges))
-    net = float(charges.sum())
-    if d_min is None:
-        d_min = shortest_distance(crystal)
-    choice = tuning.choose(tol, n, volume, q2, float(np.abs(charges).sum()), d_min, k_e, alpha=alpha)
-    a = choice.alpha
-
-    background = warn_if_charged(crystal, net, q2)
-
-    with thread_budget(choice.predicted_cost):
-        phi_real, force_real, real_w, pairs, reach = real_space_part(
-            cell, positions, charges, a, choice.real_cutoff, forces, stress)
-
-        # reciprocal space
-        hkl, kvectors, hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
-        frac = wrapped_fractional(cell, positions)
-        k2 = np.einsum("ij,ij->i", kvectors, kvectors)
-        gauss = np.exp(-k2 / (4.0 * a * a)) / k2
-        weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * gauss)
-        if len(hkl):
-            s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
-            phi_k, f_k = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
-                                                       s_re, s_im, bool(forces))
-            s2 = s_re * s_re + s_im * s_im
-        else:
-            s2 = np.zeros(0)
-            phi_k, f_k = np.zeros(n), np.zeros((n, 3))
+    charges = np.ascontiguousarray(crystal.charges, dtype=np.float64)
+    a = plan.alpha
+    background = warn_if_charged(crystal, plan)
+    with thread_budget(plan.predicted_ns):
+        phi_real, force_real, real_w, pairs, reach = real_space_part(plan, charges, forces, stress)
+        phi_k, f_k, e_recip, s2 = reciprocal_part(plan, plan.frac, charges, forces)
 
     recip_virial = None
     if stress:
         # d E_recip / d strain_ab = sum_half 2 w(k)/2 |S|^2 [-delta_ab + 2 k_a k_b (1/k^2 + 1/(4 alpha^2))]
-        half = 0.5 * weights * s2
-        factor = 2.0 * (1.0 / k2 + 1.0 / (4.0 * a * a)) * half
-        recip_virial = -half.sum() * np.eye(3) + np.einsum("m,ma,mb->ab", factor, kvectors, kvectors)
+        ks = plan.kspace
+        half = 0.5 * ks.weights * s2
+        factor = 2.0 * (1.0 / ks.k2 + 1.0 / (4.0 * a * a)) * half
+        recip_virial = -half.sum() * np.eye(3) + np.einsum("m,ma,mb->ab", factor, ks.kvectors, ks.kvectors)
     potentials, energy, components, force_array, stress_array = assemble(
-        charges, phi_real, phi_k, 0.5 * float(np.dot(weights, s2)), a, volume, net, background, k_e,
+        charges, phi_real, phi_k, e_recip, a, plan.volume, plan.sums.net, background, COULOMB_CONSTANT,
         (force_real, f_k) if forces else None, (symmetric(real_w), recip_virial) if stress else None)
-
-    params = EwaldParameters(
-        method="direct", alpha=a, real_cutoff=choice.real_cutoff,
-        reciprocal_cutoff=choice.reciprocal_cutoff, real_space_pairs=int(pairs),
-        k_vectors=int(len(hkl)), image_reach=reach)
     return EwaldResult(
-        energy=energy, potentials=potentials, forces=force_array, stress=stress_array, params=params,
-        error_estimate=choice.error_estimate, tol=float(tol), energy_scale=k_e * q2 / d_min,
-        components=components, net_charge=net, background=bool(background), n_atoms=n,
-        seconds=time.perf_counter() - started)
+        energy=energy, potentials=potentials, forces=force_array, stress=stress_array,
+        params=params_of(plan, pairs, reach), error_estimate=plan.error_estimate, tol=plan.tol,
+        energy_scale=plan.energy_scale, components=components, net_charge=plan.sums.net,
+        background=bool(background), n_atoms=len(charges), seconds=time.perf_counter() - started, plan=plan)
+
+
+def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_min=None) -> EwaldResult:
+    """Ewald sum with cutoffs chosen for relative energy error ``tol`` (the direct engine).
+
+    See :func:`madelung.ewald` for the parameters.
+    """
+    plan = plan_module.plan_for(crystal, tol, method="direct", alpha=alpha, d_min=d_min)
+    return run_direct(crystal, plan, forces=forces, stress=stress)

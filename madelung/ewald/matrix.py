@@ -20,10 +20,11 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..geometry import build_bins, nearest_neighbour_distances, neighbour_pairs, thread_budget, wrapped_fractional
+from ..geometry import neighbour_pairs, thread_budget
 from ..units import COULOMB_CONSTANT
-from . import kernels, tuning
-from .direct import reciprocal_vectors
+from . import kernels
+from .plan import plan_sum
+from .tuning import ChargeSums
 
 #: Largest number of sites for which a full N x N Coulomb matrix is built.
 MAX_MATRIX_SITES = 600
@@ -48,42 +49,33 @@ def potentials_for_charge_sets(cell, positions, charge_sets, tol=1e-10, d_min=No
     References
     ----------
     P. P. Ewald, Ann. Phys. 369 (1921) 253.
-    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351 (accuracy control, via ``tuning``).
+    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351 (accuracy control, via the sum plan).
     """
-    cell = np.ascontiguousarray(cell, dtype=np.float64)
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     sets = np.atleast_2d(np.asarray(charge_sets, dtype=np.float64))
     n = len(positions)
     if sets.shape[1] != n:
         raise InputError(f"charge sets have {sets.shape[1]} entries for {n} sites")
-    volume = abs(float(np.linalg.det(cell)))
-    if d_min is None:
-        to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(n))
-        d_min = float(np.min(to_any))
-    q2 = float(np.max(np.einsum("mi,mi->m", sets, sets)))
-    q1 = float(np.max(np.abs(sets).sum(axis=1)))
-    choice = tuning.choose(tol, n, volume, q2, q1, d_min, COULOMB_CONSTANT)
-    a = choice.alpha
-    bins = build_bins(cell, positions, choice.real_cutoff)
-    hkl, kvectors, hmax = reciprocal_vectors(cell, choice.reciprocal_cutoff)
-    frac = wrapped_fractional(cell, positions)
-    k2 = np.einsum("ij,ij->i", kvectors, kvectors)
-    weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * a * a)) / k2)
+    square = np.einsum("mi,mi->m", sets, sets)
+    sums = ChargeSums(n, float(np.max(square)), float(np.max(np.abs(sets).sum(axis=1))), 0.0)
+    plan = plan_sum(cell, positions, sums=sums, tol=tol, method="direct", d_min=d_min)
+    a = plan.alpha
+    bins, ks, frac = plan.bins, plan.kspace, plan.frac
     out = np.empty((len(sets), n))
-    with thread_budget(choice.predicted_cost):
+    with thread_budget(plan.predicted_ns):
         for m, charges in enumerate(sets):
             charges = np.ascontiguousarray(charges)
             phi_r, _, _, _ = kernels.real_space_terms(
                 bins.positions, bins.sorted_values(charges), bins.cell, bins.counts, bins.offsets, bins.bin_of,
-                bins.bin_start, a, choice.real_cutoff, False, False)
+                bins.bin_start, a, plan.real_cutoff, False, False)
             phi = bins.unsorted(phi_r)
-            if len(hkl):
-                s_re, s_im = kernels.structure_factors(frac, charges, hkl, hmax, kernels.CHUNKS)
-                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights,
+            if len(ks.hkl):
+                s_re, s_im = kernels.structure_factors(frac, charges, ks.hkl, ks.hmax, kernels.CHUNKS)
+                phi_k, _ = kernels.reciprocal_site_terms(frac, charges, ks.hkl, ks.hmax, ks.kvectors, ks.weights,
                                                          s_re, s_im, False)
                 phi = phi + phi_k
             net = float(charges.sum())
-            self_and_background = 2.0 * a / math.sqrt(math.pi) * charges + math.pi * net / (volume * a * a)
+            self_and_background = 2.0 * a / math.sqrt(math.pi) * charges + math.pi * net / (plan.volume * a * a)
             out[m] = COULOMB_CONSTANT * (phi - self_and_background)
     return out
 
@@ -128,24 +120,18 @@ def coulomb_matrix(cell, positions, tol=1e-10, d_min=None):
     ----------
     P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
-    cell = np.ascontiguousarray(cell, dtype=np.float64)
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
     if n > MAX_MATRIX_SITES:
         raise InputError(f"a full Coulomb matrix of {n} sites is more than the limit of {MAX_MATRIX_SITES}")
-    volume = abs(float(np.linalg.det(cell)))
-    if d_min is None:
-        to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(n))
-        d_min = float(np.min(to_any))
-    choice = tuning.choose(tol, n, volume, float(n), float(n), d_min, COULOMB_CONSTANT)
-    a = choice.alpha
-    real = screened_pairs(cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), choice.real_cutoff)
-    _, kvectors, _ = reciprocal_vectors(cell, choice.reciprocal_cutoff)
-    k2 = np.einsum("ij,ij->i", kvectors, kvectors)
-    weights = 2.0 * (4.0 * math.pi / volume) * np.exp(-k2 / (4.0 * a * a)) / k2
-    phase = positions @ kvectors.T                       # (N, M)
+    plan = plan_sum(cell, positions, sums=ChargeSums(n, float(n), float(n), float(n)), tol=tol, method="direct",
+                    d_min=d_min)
+    a = plan.alpha
+    real = screened_pairs(plan.cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), plan.real_cutoff)
+    ks = plan.kspace
+    phase = positions @ ks.kvectors.T                    # (N, M)
     cos, sin = np.cos(phase), np.sin(phase)
-    recip = (cos * weights) @ cos.T + (sin * weights) @ sin.T
-    matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (volume * a * a)
+    recip = (cos * ks.weights) @ cos.T + (sin * ks.weights) @ sin.T
+    matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (plan.volume * a * a)
     matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
     return matrix

@@ -1,28 +1,46 @@
-"""Choosing the Ewald splitting parameter and cutoffs for a stated accuracy.
+"""Error estimates and cost models of the Ewald engines, and the parameter choice they imply.
+
+Everything here is a function of a few numbers (ion count, volume, charge sums, cell vectors,
+tolerance); :mod:`.plan` calls it once per sum and hands the result to every engine. Nothing else
+in the package chooses a splitting parameter, a cutoff or a mesh.
 
 The user states ``tol``, the wanted error of the energy relative to the scale
 ``E_scale = k_e * sum(q_i^2) / d_min`` (d_min the shortest interionic distance).
-We pick the splitting parameter alpha that minimises the predicted cost, with the
-real-space cutoff and the reciprocal cutoff each set so that its truncation-error
-estimate is a share of the target.
 
-Truncation-error estimates (Kolafa & Perram, Mol. Simul. 9 (1992) 351, for the energy,
-Q = sum q_i^2, V the volume, L = V^(1/3), K = k_cut L / (2 pi))::
+Truncation errors (Kolafa & Perram, Mol. Simul. 9 (1992) 351): the root-mean-square error of the
+potential at one ion, summed *coherently* over the ions (``dE = 1/2 sum|q_i| dphi``), because in
+an ordered crystal the omitted shells and Bragg reflections err the same way at every equivalent
+ion. With Q = sum q^2, V the volume::
 
-    dE_real  ~ k_e Q sqrt(r_cut / (2 V)) (alpha r_cut)^-2 exp(-alpha^2 r_cut^2)
-    dE_recip ~ k_e Q alpha / pi^2 K^(-3/2) exp(-(pi K / (alpha L))^2)
+    dphi_real  = q_rms sqrt(N / V) exp(-alpha^2 r_c^2) / (alpha^2 r_c^1.5)
+    dphi_recip = sqrt(8 Q alpha^2 / (V k_c^3)) exp(-k_c^2 / 4 alpha^2)
 
-These are root-mean-square estimates for disordered charges. A crystal's errors are
-systematic (whole shells or Bragg reflections left out), so we aim ``SAFETY`` below the
-target; the convergence benchmark and the tests check the achieved error against
-independent high-precision values for every bundled prototype.
+Both have the form ``C alpha^-1/2 x^-3/2 exp(-x^2)`` in x = alpha r_c and x = k_c / (2 alpha), so
+each cutoff is one Newton solve of ``x^2 + 1.5 ln x = L`` (monotone for x > 0).
 
-Cost model: the real-space sum costs ``REAL_PAIR_COST`` nanoseconds per (i, j, image) term inside
-the cutoff (counting both orders, as in the double sum) plus ``STENCIL_COST`` per atom and bin of
-the stencil searched around it; the reciprocal sum costs ``RECIPROCAL_TERM_COST`` nanoseconds per
-atom and half-space k-vector (structure factors and site terms together). All were measured on
-one thread of the 2-core reference machine with ``benchmarks/calibrate_cost.py``; the predicted
-cost is in nanoseconds of one thread.
+Mesh error (smooth particle-mesh Ewald, Essmann et al., J. Chem. Phys. 103 (1995) 8577): the
+B-spline interpolation of exp(i k.r) with order n on K_a points along lattice vector a errs
+through aliasing, governed by the ratio of the Miller index m_a that the sum needs to K_a
+(Deserno & Holm, J. Chem. Phys. 109 (1998) 7678: the error is a power of that ratio set by the
+order). The Miller index reached along a at |k| = k is at most ``k |a_a| / 2 pi`` (|a_a| the
+*length* of the lattice vector, not the plane spacing: in an oblique basis the two differ by large
+factors, and the plane spacing underestimates the indices needed). So the estimate takes the step
+``h_a = |a_a| / K_a`` in::
+
+    dE_mesh = k_e / 2 * Q * alpha * A_n * mean_a (alpha h_a / pi)^s_n
+
+with A_n, s_n calibrated (MESH_ERROR_MODEL, ``benchmarks/calibrate_mesh.py``) on the bundled
+prototypes, rattled supercells, both also in oblique bases, random triclinic cells and strongly
+skewed small cells, with a 2x margin. The sums run in a reduced basis (:mod:`.plan`), where |a_a|
+is close to the plane spacing; a check against an independent direct sum guards the estimate
+(:mod:`.mesh`).
+
+Rounding: double precision resolves an energy only to about ``eps * E_scale * sqrt(terms per
+ion)`` (each ion's potential is a sum of that many terms of size up to k_e q / d_min, rounded
+independently); this floor is added to every estimate and a ``tol`` below it is refused.
+
+Cost model: nanoseconds of one thread, measured on the 2-core reference machine with
+``benchmarks/calibrate_cost.py`` (direct) and ``benchmarks/scaling_mesh.py --calibrate`` (mesh).
 """
 
 from __future__ import annotations
@@ -31,6 +49,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft
 
 from ..errors import InputError
 
@@ -50,137 +69,269 @@ STENCIL_BINS = 330
 MIN_REAL_NEIGHBOURS = 30.0
 MIN_K_VECTORS = 10.0
 
+#: Machine epsilon of float64 and the factor of the rounding floor (see the module notes). Measured
+#: against 30-digit mpmath sums of random 2-8 ion cells at tol 1e-12 ... 1e-15 the achieved error
+#: stays below eps E_scale sqrt(terms per ion) (1e-16 to 1.5e-15 relative against 5e-15 to 8e-15).
+EPSILON = float(np.finfo(float).eps)
+ROUNDING_FACTOR = 1.0
+
+#: Mesh: spline orders the tuner considers, orders accepted when given explicitly.
+TUNED_ORDERS = (4, 6, 8)
+ALLOWED_ORDERS = (4, 5, 6, 7, 8)
+
+#: Calibrated mesh error model: order -> (A_n, s_n). The exponents s_n are least-squares fits and
+#: A_n twice the largest prefactor seen, both printed by benchmarks/calibrate_mesh.py, run on the
+#: reduced basis with the step |a_a| / K_a over 1254 cases: the bundled prototypes as given, as
+#: rattled 2x2x2 supercells and both again in an oblique basis, random triclinic cells and small
+#: strongly skewed cells, alpha d_min 2 to 4.5 (largest A: 8.54, 776.6, 210.1, 1.477e4, 4972 for
+#: orders 4..8; medians 4.48, 166, 89.4, 2506, 2600).
+MESH_ERROR_MODEL = {4: (17.1, 4.201), 5: (1553.0, 6.816), 6: (420.0, 7.069), 7: (2.95e4, 9.247),
+                    8: (9944.0, 9.816)}
+
+#: Nanoseconds of one thread per unit of work of the mesh part (rattled rock salt, N = 4096 and
+#: 32768): one (ion, mesh point) spline weight, one point x log2(points) of an FFT, and the
+#: influence function and array work per mesh point.
+SPLINE_POINT_NS = 1.8
+FFT_POINT_LOG_NS = 0.45
+MESH_POINT_NS = 8.0
+
+#: At least this many times the spline order of mesh points along each axis.
+MIN_MESH_PER_ORDER = 2
+
+#: Largest mesh the tuner picks, in bytes of peak mesh memory (16 bytes per point).
+MESH_MEMORY_LIMIT_BYTES = 2.0e9
+
+
 @dataclass(frozen=True)
-class Choice:
-    """Splitting parameter (1/Å), cutoffs (Å, 1/Å) and their predicted errors (eV) and cost."""
+class ChargeSums:
+    """What the estimates need of the charges: ion count, sum q^2 (e^2), sum |q| (e), net (e)."""
+
+    n_atoms: int
+    square_sum: float
+    absolute_sum: float
+    net: float
+
+    @classmethod
+    def of(cls, charges):
+        charges = np.asarray(charges, dtype=float)
+        return cls(len(charges), float(np.dot(charges, charges)), float(np.abs(charges).sum()),
+                   float(charges.sum()))
+
+
+@dataclass(frozen=True)
+class DirectChoice:
+    """Splitting parameter (1/Å), cutoffs (Å, 1/Å), their predicted errors (eV) and cost (ns)."""
 
     alpha: float
     real_cutoff: float
     reciprocal_cutoff: float
     real_error: float
     reciprocal_error: float
-    predicted_cost: float  # ns of one thread
-
-    @property
-    def error_estimate(self) -> float:
-        return self.real_error + self.reciprocal_error
+    predicted_ns: float
 
 
-def real_space_error(alpha, r_cut, n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e):
-    """Truncation error of the real-space energy, eV (works on arrays of alpha and r_cut).
+@dataclass(frozen=True)
+class MeshChoice:
+    """Splitting parameter, real cutoff, mesh shape and order, errors (eV), cost (ns)."""
 
-    Kolafa and Perram's root-mean-square error of the potential at one ion from the omitted
-    pairs, ``dphi = q_rms sqrt(rho) exp(-alpha^2 r_cut^2) / (alpha^2 r_cut^1.5)``, summed coherently
-    over the ions, ``dE = 1/2 sum|q_i| dphi``: in an ordered crystal the omitted shells err the
-    same way at every equivalent ion, so the errors add rather than average out.
-    """
-    q_rms = math.sqrt(charge_sq_sum / n_atoms)
-    dphi = q_rms * math.sqrt(n_atoms / volume) * np.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
-    return k_e * 0.5 * charge_abs_sum * dphi
-
-
-def reciprocal_space_error(alpha, k_cut, n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e):
-    """Truncation error of the reciprocal-space energy, eV (works on arrays of alpha and k_cut).
-
-    As for :func:`real_space_error`: the root-mean-square potential error at one ion from the
-    omitted k-vectors, ``dphi = sqrt(8 Q alpha^2 / (V k_cut^3)) exp(-k_cut^2 / 4 alpha^2)``
-    (Q = sum q^2), summed coherently over the ions.
-    """
-    dphi = np.sqrt(8.0 * charge_sq_sum * alpha ** 2 / (volume * k_cut ** 3)) \
-        * np.exp(-k_cut ** 2 / (4.0 * alpha ** 2))
-    return k_e * 0.5 * charge_abs_sum * dphi
+    alpha: float
+    real_cutoff: float
+    shape: tuple
+    order: int
+    real_error: float
+    mesh_error: float
+    predicted_ns: float
 
 
-def _solve_decreasing(func, target, low, high):
-    """Smallest x in [low, high] with func(x) <= target, for func decreasing there; elementwise
-    bisection in log x over arrays of starting brackets."""
-    low = np.array(low, dtype=float)
-    high = np.array(high, dtype=float)
-    for _ in range(60):
-        short = func(high) > target
-        if not short.any():
-            break
-        high = np.where(short, 2.0 * high, high)
-    else:
-        raise InputError("cannot reach the requested accuracy; is tol too small?")
-    done = func(low) <= target
-    for _ in range(80):
-        mid = np.sqrt(low * high)
-        above = func(mid) > target
-        low = np.where(above, mid, low)
-        high = np.where(above, high, mid)
-        if np.all(high / low < 1.0 + 1e-6):  # cutoffs need no more digits than this
-            break
-    return np.where(done, low, high)
+def check_tol(tol):
+    if isinstance(tol, bool) or not (isinstance(tol, (int, float, np.floating)) and math.isfinite(tol) and 0 < tol < 1):
+        raise InputError(f"tol must be a number between 0 and 1, got {tol!r}")
+    return float(tol)
 
 
-def cutoffs_for(alpha, target_real, target_recip, stats):
-    """Smallest cutoffs meeting each error share at this alpha (scalar or array), respecting the
-    minimum term counts."""
-    n_atoms, volume = stats[0], stats[1]
+def check_alpha(alpha):
+    if alpha is None:
+        return None
+    if isinstance(alpha, bool) or not (isinstance(alpha, (int, float, np.floating)) and math.isfinite(alpha)
+                                       and alpha > 0):
+        raise InputError(f"alpha must be a positive number (1/Å), got {alpha!r}")
+    return float(alpha)
+
+
+def _real_prefactor(sums, volume, k_e):
+    q_rms = math.sqrt(sums.square_sum / sums.n_atoms)
+    return k_e * 0.5 * sums.absolute_sum * q_rms * math.sqrt(sums.n_atoms / volume)
+
+
+def _recip_prefactor(sums, volume, k_e):
+    return k_e * 0.5 * sums.absolute_sum * math.sqrt(sums.square_sum / volume)
+
+
+def real_space_error(alpha, r_cut, sums, volume, k_e):
+    """Truncation error of the real-space energy, eV (Kolafa–Perram, coherent over the ions)."""
     alpha = np.asarray(alpha, dtype=float)
-    density = n_atoms / volume
+    return _real_prefactor(sums, volume, k_e) * np.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
+
+
+def reciprocal_space_error(alpha, k_cut, sums, volume, k_e):
+    """Truncation error of the reciprocal-space energy, eV (Kolafa–Perram, coherent over the ions)."""
+    alpha = np.asarray(alpha, dtype=float)
+    return (_recip_prefactor(sums, volume, k_e) * np.sqrt(8.0 * alpha ** 2 / k_cut ** 3)
+            * np.exp(-k_cut ** 2 / (4.0 * alpha ** 2)))
+
+
+def _solve_gaussian_tail(level):
+    """x >= 1 with x^2 + 1.5 ln x = level (x = 1 where level <= 1), elementwise, by Newton."""
+    level = np.asarray(level, dtype=float)
+    x = np.sqrt(np.maximum(level, 1.0))
+    for _ in range(12):
+        step = (x * x + 1.5 * np.log(x) - level) / (2.0 * x + 1.5 / x)
+        x = np.maximum(x - step, 1.0)
+        if np.max(np.abs(step)) < 1e-10 * np.max(x):
+            break
+    return x
+
+
+def cutoffs_for(alpha, real_target, recip_target, sums, volume, k_e):
+    """Smallest real and reciprocal cutoffs meeting each error share at ``alpha`` (arrays), with the
+    minimum term counts respected."""
+    alpha = np.asarray(alpha, dtype=float)
+    density = sums.n_atoms / volume
     r_min = (3.0 * MIN_REAL_NEIGHBOURS / (4.0 * math.pi * density)) ** (1.0 / 3.0)
-    # half-space k-vector count = (4/3) pi k^3 V / (8 pi^3) / 2
     k_min = (MIN_K_VECTORS * 12.0 * math.pi ** 2 / volume) ** (1.0 / 3.0)
-    # beyond these the functions are monotone decreasing in the cutoff
-    r_cut = _solve_decreasing(lambda r: real_space_error(alpha, r, *stats),
-                              target_real, np.maximum(r_min, 1.0 / alpha), 100.0 / alpha)
-    k_cut = _solve_decreasing(lambda k: reciprocal_space_error(alpha, k, *stats),
-                              target_recip, np.maximum(k_min, 2.0 * alpha), 200.0 * alpha)
-    if r_cut.ndim == 0:
-        return float(r_cut), float(k_cut)
-    return r_cut, k_cut
+    x = _solve_gaussian_tail(np.log(_real_prefactor(sums, volume, k_e) / (real_target * np.sqrt(alpha))))
+    y = _solve_gaussian_tail(np.log(_recip_prefactor(sums, volume, k_e) / (recip_target * np.sqrt(alpha))))
+    return np.maximum(x / alpha, r_min), np.maximum(2.0 * alpha * y, k_min)
 
 
-def predicted_cost(r_cut, k_cut, n_atoms, volume):
-    """Predicted cost of one energy + potentials + forces evaluation, ns of one thread (scalar or array)."""
+def direct_cost_ns(r_cut, k_cut, n_atoms, volume):
+    """Predicted cost of one energy + potentials + forces evaluation, ns of one thread."""
     density = n_atoms / volume
-    real_pairs = n_atoms * (4.0 / 3.0) * math.pi * r_cut ** 3 * density
-    k_vectors = (4.0 / 3.0) * math.pi * k_cut ** 3 * volume / (16.0 * math.pi ** 3)
+    real_pairs = n_atoms * (4.0 / 3.0) * math.pi * np.asarray(r_cut) ** 3 * density
+    k_vectors = (4.0 / 3.0) * math.pi * np.asarray(k_cut) ** 3 * volume / (16.0 * math.pi ** 3)
     return (REAL_PAIR_COST * real_pairs + STENCIL_COST * STENCIL_BINS * n_atoms
             + RECIPROCAL_TERM_COST * n_atoms * k_vectors)
 
 
-def choose(tol, n_atoms, volume, charge_sq_sum, charge_abs_sum, d_min, k_e, alpha=None) -> Choice:
-    """Choose alpha and both cutoffs for relative energy error ``tol``.
+def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
+    """Splitting parameter and cutoffs of the direct sum for an energy error ``target`` (eV).
 
-    Parameters
-    ----------
-    tol : float
-        Target error of the energy relative to ``k_e * sum(q^2) / d_min``.
-    n_atoms, volume, charge_sq_sum, charge_abs_sum, d_min : number of ions, Å^3, e^2, e, Å.
-    k_e : Coulomb constant, eV·Å.
-    alpha : float, optional
-        Fix the splitting parameter (1/Å) instead of minimising the cost.
+    The error shares are half the target each, times :data:`SAFETY`. Without a given ``alpha``
+    the predicted cost is minimised over alpha: a coarse logarithmic scan and one refinement
+    around the best, each cutoff a closed-form Newton solve (no bisection).
 
     References
     ----------
-    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351 (error estimates).
+    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351.
     """
-    if not (isinstance(tol, (int, float)) and math.isfinite(tol) and 0 < tol < 1):
-        raise InputError(f"tol must be a number between 0 and 1, got {tol!r}")
-    if charge_sq_sum <= 0:
-        raise InputError("all charges are zero; there is no electrostatic energy to compute")
-    scale = k_e * charge_sq_sum / d_min
-    target = tol * scale * SAFETY
-    share = 0.5 * target
+    share = 0.5 * target * SAFETY
 
-    stats = (n_atoms, volume, charge_sq_sum, charge_abs_sum, k_e)
-
-    def make(alphas):
-        r_cut, k_cut = cutoffs_for(alphas, share, share, stats)
-        cost = predicted_cost(r_cut, k_cut, n_atoms, volume)
-        best = int(np.argmin(cost))
-        a, r, k = float(alphas[best]), float(r_cut[best]), float(k_cut[best])
-        return Choice(a, r, k, float(real_space_error(a, r, *stats)) / SAFETY,
-                      float(reciprocal_space_error(a, k, *stats)) / SAFETY, float(cost[best]))
+    def evaluate(alphas):
+        r_cut, k_cut = cutoffs_for(alphas, share, share, sums, volume, k_e)
+        return r_cut, k_cut, direct_cost_ns(r_cut, k_cut, sums.n_atoms, volume)
 
     if alpha is not None:
-        if not (math.isfinite(alpha) and alpha > 0):
-            raise InputError(f"alpha must be a positive number (1/Å), got {alpha!r}")
-        return make(np.array([float(alpha)]))
-    # around the usual balance point sqrt(pi) (N / V^2)^(1/6), then refined near the best
-    centre = math.sqrt(math.pi) * (n_atoms / volume ** 2) ** (1.0 / 6.0)
-    coarse = make(centre * np.geomspace(0.1, 10.0, 61))
-    return make(coarse.alpha * np.geomspace(0.93, 1.075, 15))
+        alphas = np.array([alpha])
+    else:
+        centre = math.sqrt(math.pi) * (sums.n_atoms / volume ** 2) ** (1.0 / 6.0)
+        alphas = centre * np.geomspace(0.1, 10.0, 21)
+        r_cut, k_cut, cost = evaluate(alphas)
+        alphas = alphas[int(np.argmin(cost))] * np.geomspace(0.8, 1.25, 11)
+    r_cut, k_cut, cost = evaluate(alphas)
+    best = int(np.argmin(cost))
+    a, r, k = float(alphas[best]), float(r_cut[best]), float(k_cut[best])
+    return DirectChoice(a, r, k, float(real_space_error(a, r, sums, volume, k_e)) / SAFETY,
+                        float(reciprocal_space_error(a, k, sums, volume, k_e)) / SAFETY, float(cost[best]))
+
+
+def mesh_error(alpha, steps, order, sums, k_e):
+    """Predicted error of the mesh energy, eV, for steps ``h_a = |a_a| / K_a`` (Å).
+
+    ``k_e / 2 * Q * alpha * A_n * mean_a (alpha h_a / pi)^s_n`` (see the module notes; the form is
+    the aliasing picture of Deserno and Holm, the constants are calibrated).
+
+    References
+    ----------
+    U. Essmann et al., J. Chem. Phys. 103 (1995) 8577; M. Deserno and C. Holm, J. Chem. Phys.
+    109 (1998) 7678.
+    """
+    prefactor, power = MESH_ERROR_MODEL[order]
+    mean = sum((alpha * h / math.pi) ** power for h in steps) / 3.0
+    return k_e * 0.5 * sums.square_sum * alpha * prefactor * mean
+
+
+def mesh_shape_for(alpha, order, target, lengths, sums, k_e):
+    """Smallest FFT-friendly mesh meeting ``target`` (eV) at this alpha and order: equal steps
+    ``|a_a| / K_a`` along every lattice vector, at least two spline widths per axis."""
+    prefactor, power = MESH_ERROR_MODEL[order]
+    x = (target / (k_e * 0.5 * sums.square_sum * alpha * prefactor)) ** (1.0 / power)
+    h = x * math.pi / alpha
+    return tuple(int(scipy.fft.next_fast_len(max(MIN_MESH_PER_ORDER * order, int(math.ceil(length / h))),
+                                             real=True)) for length in lengths)
+
+
+def mesh_steps(lengths, shape):
+    return tuple(float(lengths[i]) / int(shape[i]) for i in range(3))
+
+
+def mesh_cost_ns(r_cut, shape, order, n_atoms, volume):
+    """Predicted cost of one mesh evaluation with forces, ns of one thread: the real-space part as
+    in the direct engine, two B-spline passes over order^3 points per ion, two FFTs, the mesh work."""
+    points = float(np.prod(shape))
+    return (direct_cost_ns(r_cut, 0.0, n_atoms, volume)
+            + SPLINE_POINT_NS * 2.0 * n_atoms * order ** 3
+            + FFT_POINT_LOG_NS * 2.0 * points * math.log2(max(points, 2.0))
+            + MESH_POINT_NS * points)
+
+
+def choose_mesh(target, sums, volume, lengths, d_min, k_e, alpha=None, mesh=None, order=None) -> MeshChoice:
+    """Splitting parameter, real cutoff, mesh and spline order of the mesh engine for an energy
+    error ``target`` (eV): half to the real part (times :data:`SAFETY`), half to the mesh.
+
+    ``lengths`` are the lattice-vector lengths of the (reduced) cell the mesh is laid on.
+    ``alpha``, ``mesh`` (3 ints) and ``order`` may be fixed.
+
+    References
+    ----------
+    U. Essmann et al., J. Chem. Phys. 103 (1995) 8577; M. Deserno and C. Holm,
+    J. Chem. Phys. 109 (1998) 7678; A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351.
+    """
+    real_share = 0.5 * target * SAFETY
+    mesh_share = 0.5 * target
+    if order is not None:
+        if order not in ALLOWED_ORDERS:
+            raise InputError(f"spline order must be one of {ALLOWED_ORDERS}, got {order!r}")
+        orders = (int(order),)
+    else:
+        orders = TUNED_ORDERS
+    if mesh is not None:
+        try:
+            mesh = tuple(int(k) for k in np.broadcast_to(np.asarray(mesh, dtype=np.int64), (3,)))
+        except (TypeError, ValueError):
+            raise InputError(f"mesh must be one or three whole numbers, got {mesh!r}") from None
+        if min(mesh) < max(orders):
+            raise InputError(f"mesh {mesh} must have at least as many points along each axis as the "
+                             f"spline order ({max(orders)})")
+    alphas = np.array([alpha]) if alpha is not None else (3.0 / d_min) * np.geomspace(0.2, 3.0, 41)
+    r_cuts, _ = cutoffs_for(alphas, real_share, 1.0, sums, volume, k_e)
+    candidates = []
+    for n in orders:
+        for a, r_cut in zip(alphas, r_cuts):
+            a, r_cut = float(a), float(r_cut)
+            shape = mesh if mesh is not None else mesh_shape_for(a, n, mesh_share, lengths, sums, k_e)
+            candidates.append(MeshChoice(
+                a, r_cut, shape, n, float(real_space_error(a, r_cut, sums, volume, k_e)) / SAFETY,
+                mesh_error(a, mesh_steps(lengths, shape), n, sums, k_e),
+                mesh_cost_ns(r_cut, shape, n, sums.n_atoms, volume)))
+    if mesh is not None:
+        good = [c for c in candidates if c.mesh_error <= mesh_share]
+        candidates = good or [min(candidates, key=lambda c: c.mesh_error)]
+    else:
+        small = [c for c in candidates if 16.0 * np.prod(c.shape) <= MESH_MEMORY_LIMIT_BYTES]
+        candidates = small or [min(candidates, key=lambda c: np.prod(c.shape))]
+    return min(candidates, key=lambda c: c.predicted_ns)
+
+
+def rounding_error(energy_scale, terms_per_ion):
+    """What double precision can resolve of an energy with this scale (eV) and terms per ion."""
+    return ROUNDING_FACTOR * EPSILON * energy_scale * math.sqrt(max(terms_per_ion, 1.0))

@@ -74,6 +74,23 @@ def check_outputs(paths, *, inputs=(), overwrite=False):
             raise InputError(f"{path}: exists; pass --overwrite to replace it")
 
 
+def make_folder(folder, parents=False):
+    """Create the output folder ``folder`` if it is missing: that folder only, and its missing
+    parents only with ``parents`` (a mistyped path must not grow a tree of folders)."""
+    folder = os.fspath(folder)
+    if os.path.isdir(folder):
+        return
+    if os.path.lexists(folder):
+        raise InputError(f"{folder}: exists and is not a folder")
+    parent = os.path.dirname(os.path.abspath(folder))
+    if not os.path.isdir(parent) and not parents:
+        raise InputError(f"{folder}: its parent folder {parent} does not exist (create it first)")
+    try:
+        os.makedirs(folder) if parents else os.mkdir(folder)
+    except OSError as exc:
+        raise InputError(f"{folder}: cannot create the folder ({exc.strerror or exc})") from None
+
+
 def _default_mode():
     mask = os.umask(0)
     os.umask(mask)

@@ -1,0 +1,1 @@
+"""Analysis built on the sums: Madelung constants, lattice energies, orderings, embedding, defects."""

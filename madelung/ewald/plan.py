@@ -1,0 +1,311 @@
+"""The sum plan: everything a periodic Coulomb sum needs, decided once.
+
+A :class:`SumPlan` is built from a cell, positions, charge statistics and a tolerance. It owns the
+reduced basis the sums run in and its relation to the user's cell, the shortest distance, the
+energy scale and target, the engine and its parameters (splitting parameter, cutoffs, mesh,
+spline order), the error estimate of each part, the rounding floor, the predicted cost of each
+engine, and — built on first use and then reused — the bins of the real-space sum and the
+reciprocal vectors with their weights. Every driver takes a plan: the direct and mesh engines,
+the Coulomb matrix, potentials at many charge sets and at arbitrary points, the dielectric-tensor
+correction. Nothing else tunes.
+
+Reduced basis. The lattice is rewritten in its Niggli-reduced basis (spglib; Křivý & Gruber,
+Acta Cryst. A32 (1976) 297), made right-handed. A unimodular change of basis leaves the lattice,
+the Cartesian positions, and so every energy, potential, force and stress unchanged; in the
+reduced basis the lattice vectors are short and nearly orthogonal, so bins, k-vector boxes and
+the mesh are well shaped whatever basis the user wrote. Per-ion results keep the user's atom
+order and Cartesian frame, so nothing needs mapping back; ``basis_change`` (integer, ``cell =
+basis_change @ user_cell``) records the relation.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+import spglib
+
+from ..errors import InputError
+from ..geometry import build_bins, nearest_neighbour_distances, wrapped_fractional
+from ..units import COULOMB_CONSTANT
+from . import tuning
+from .tuning import ChargeSums
+
+METHODS = ("auto", "direct", "mesh")
+
+#: Net charges below this (e, relative to sqrt(sum q^2)) are rounding in the charges, not a charged cell.
+NEUTRAL_TOLERANCE = 1e-8
+
+#: Below this predicted direct time (s of one thread) method="auto" takes the direct sum without
+#: tuning the mesh: the mesh's fixed costs exceed what it could save (the engines break even near
+#: 1000 rattled rock-salt ions, about 20 ms).
+AUTO_DIRECT_BELOW_SECONDS = 0.015
+
+#: Share of the target first set aside for rounding (see :func:`plan_sum`).
+ROUNDING_SHARE = 1e-3
+
+
+def reduced_basis(cell):
+    """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
+    Niggli-reduced, right-handed basis of the lattice (the cell itself if spglib cannot reduce it)."""
+    cell = np.asarray(cell, dtype=float)
+    try:
+        with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
+            warnings.simplefilter("ignore", DeprecationWarning)
+            reduced = spglib.niggli_reduce(cell, eps=1e-5)
+    except Exception:  # spglib reports failures as None or as an error depending on its version
+        reduced = None
+    if reduced is None:
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+    change = np.rint(np.asarray(reduced) @ np.linalg.inv(cell)).astype(np.int64)
+    if round(abs(np.linalg.det(change))) != 1:
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+    if np.linalg.det(change @ cell) < 0:
+        change = -change
+    return np.ascontiguousarray(change @ cell), change
+
+
+def reciprocal_vectors(cell, k_cut):
+    """Half-space reciprocal vectors with 0 < |k| <= k_cut.
+
+    Returns ``(hkl (M, 3) int64, k (M, 3) 1/Å, hmax (3,) int64)``; of each pair k, -k only the
+    one with the first non-zero Miller index positive is kept.
+    """
+    recip = 2.0 * math.pi * np.linalg.inv(cell).T  # rows b_i with a_i . b_j = 2 pi delta_ij
+    hmax = np.floor(k_cut * np.linalg.norm(cell, axis=1) / (2.0 * math.pi)).astype(np.int64)
+    h, k, l = np.meshgrid(np.arange(0, hmax[0] + 1), np.arange(-hmax[1], hmax[1] + 1),
+                          np.arange(-hmax[2], hmax[2] + 1), indexing="ij")
+    hkl = np.stack([h.ravel(), k.ravel(), l.ravel()], axis=1)
+    half = (hkl[:, 0] > 0) | ((hkl[:, 0] == 0) & ((hkl[:, 1] > 0) | ((hkl[:, 1] == 0) & (hkl[:, 2] > 0))))
+    hkl = hkl[half]
+    kv = hkl @ recip
+    hkl = np.ascontiguousarray(hkl[np.einsum("ij,ij->i", kv, kv) <= k_cut * k_cut].astype(np.int64))
+    return hkl, np.ascontiguousarray(hkl @ recip), hmax
+
+
+@dataclass(frozen=True)
+class KSpace:
+    """Half-space reciprocal vectors of a plan and their Ewald weights ``2 (4 pi / V) exp(-k^2/4a^2) / k^2``."""
+
+    hkl: np.ndarray
+    kvectors: np.ndarray
+    hmax: np.ndarray
+    k2: np.ndarray
+    weights: np.ndarray
+
+
+@dataclass(frozen=True)
+class SumPlan:
+    """How one periodic sum will run, and what it is predicted to achieve.
+
+    Attributes
+    ----------
+    method : "direct" or "mesh" (the engine that runs).
+    tol : requested error relative to ``energy_scale``.
+    energy_scale : k_e sum(q^2) / d_min, eV.
+    d_min : shortest interionic distance (images included), Å.
+    user_cell : the cell as given, Å. cell : the reduced basis the sums use, Å.
+    basis_change : (3, 3) integers with ``cell = basis_change @ user_cell``.
+    positions : (N, 3) Cartesian positions as given, Å. frac : wrapped fractional coordinates in ``cell``.
+    volume : Å^3. sums : ion count and charge sums the estimates used.
+    background : whether a neutralizing background is part of the sum (net charge not zero).
+    alpha : splitting parameter, 1/Å. real_cutoff : Å. reciprocal_cutoff : |k| cutoff of the direct
+        sum, 1/Å (for the mesh: the smallest Nyquist wavenumber pi K_a / |a_a|).
+    mesh : mesh points along each reduced lattice vector (mesh engine) or None. order : spline order or None.
+    real_error, reciprocal_error, rounding_error : parts of the error estimate, eV (the reciprocal
+        part is the mesh's for the mesh engine).
+    predicted_seconds : predicted time of each engine considered, s of one thread (None: not considered).
+    chosen_by : "auto" or "user".
+    """
+
+    method: str
+    tol: float
+    energy_scale: float
+    d_min: float
+    user_cell: np.ndarray
+    cell: np.ndarray
+    basis_change: np.ndarray
+    positions: np.ndarray
+    frac: np.ndarray
+    volume: float
+    sums: ChargeSums
+    background: bool
+    alpha: float
+    real_cutoff: float
+    reciprocal_cutoff: float
+    mesh: tuple | None
+    order: int | None
+    real_error: float
+    reciprocal_error: float
+    rounding_error: float
+    predicted_seconds: dict
+    chosen_by: str
+    extra: dict = field(default_factory=dict)
+
+    @property
+    def n_atoms(self) -> int:
+        return self.sums.n_atoms
+
+    @property
+    def error_estimate(self) -> float:
+        """Predicted error of the energy, eV: truncation of both parts plus the rounding floor."""
+        return self.real_error + self.reciprocal_error + self.rounding_error
+
+    @property
+    def target(self) -> float:
+        return self.tol * self.energy_scale
+
+    @cached_property
+    def bins(self):
+        """Atoms sorted into bins of the reduced cell for the real-space cutoff (built once)."""
+        return build_bins(self.cell, self.positions, self.real_cutoff)
+
+    @cached_property
+    def kspace(self) -> KSpace:
+        """Reciprocal vectors within the direct sum's cutoff and their weights (built once)."""
+        hkl, kvectors, hmax = reciprocal_vectors(self.cell, self.reciprocal_cutoff)
+        k2 = np.einsum("ij,ij->i", kvectors, kvectors)
+        weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / self.volume)
+                                       * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
+        return KSpace(hkl, kvectors, hmax, k2, weights)
+
+    @property
+    def predicted_ns(self) -> float:
+        return 1e9 * self.predicted_seconds[self.method]
+
+    def to_dict(self) -> dict:
+        return {"method": self.method, "chosen_by": self.chosen_by, "tol": self.tol,
+                "energy_scale_eV": self.energy_scale, "shortest_distance_angstrom": self.d_min,
+                "reduced_cell_angstrom": self.cell.tolist(), "basis_change": self.basis_change.tolist(),
+                "alpha_per_angstrom": self.alpha, "real_cutoff_angstrom": self.real_cutoff,
+                "reciprocal_cutoff_per_angstrom": self.reciprocal_cutoff,
+                "mesh": list(self.mesh) if self.mesh else None, "spline_order": self.order,
+                "real_error_eV": self.real_error, "reciprocal_error_eV": self.reciprocal_error,
+                "rounding_error_eV": self.rounding_error, "error_estimate_eV": self.error_estimate,
+                "predicted_seconds": dict(self.predicted_seconds), "background": self.background}
+
+
+def _terms_per_ion(choice, sums, volume, method):
+    density = sums.n_atoms / volume
+    real = (4.0 / 3.0) * math.pi * choice.real_cutoff ** 3 * density
+    if method == "mesh":
+        return real + choice.order ** 3
+    return real + (4.0 / 3.0) * math.pi * choice.reciprocal_cutoff ** 3 * volume / (8.0 * math.pi ** 3)
+
+
+def shortest_distance(cell, positions) -> float:
+    """Shortest interionic distance (periodic images count), Å."""
+    positions = np.asarray(positions, dtype=float)
+    to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(len(positions)))
+    return float(np.min(to_any))
+
+
+def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order, decided=None):
+    """``(engine, its choice, predicted seconds of each engine)`` for an energy error ``target``.
+
+    With ``method="auto"`` the direct sum is tuned first; the mesh only when the direct sum is
+    predicted to take at least AUTO_DIRECT_BELOW_SECONDS. ``decided``: predictions of an earlier
+    call whose engine choice is kept (the second, rounding-aware call must not flip engines).
+    """
+    k_e = COULOMB_CONSTANT
+    predicted = {"direct": None, "mesh": None}
+    direct = mesh_choice = None
+    if decided is not None:
+        method = "mesh" if decided["mesh"] is not None and decided["mesh"] < decided["direct"] else "direct"
+    if method in ("auto", "direct"):
+        direct = tuning.choose_direct(target, sums, volume, d_min, k_e, alpha=alpha)
+        predicted["direct"] = 1e-9 * direct.predicted_ns
+    wants_mesh = method == "mesh" or (method == "auto" and predicted["direct"] >= AUTO_DIRECT_BELOW_SECONDS)
+    if wants_mesh:
+        mesh_choice = tuning.choose_mesh(target, sums, volume, lengths, d_min, k_e, alpha=alpha, mesh=mesh,
+                                         order=order)
+        predicted["mesh"] = 1e-9 * mesh_choice.predicted_ns
+    if method == "auto":
+        method = "mesh" if predicted["mesh"] is not None and predicted["mesh"] < predicted["direct"] else "direct"
+    if decided is not None:
+        predicted = {name: decided[name] if predicted[name] is None else predicted[name] for name in predicted}
+    return method, (mesh_choice if method == "mesh" else direct), predicted
+
+
+def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, mesh=None, order=None,
+             sums=None, d_min=None) -> SumPlan:
+    """Build the plan of a periodic sum.
+
+    Parameters
+    ----------
+    cell : (3, 3) lattice vectors as rows, Å. positions : (N, 3) Cartesian, Å.
+    charges : (N,) e, or None when ``sums`` describes the charges (e.g. unit charges of a matrix).
+    tol : wanted energy error relative to ``k_e sum(q^2) / d_min``.
+    method : "auto" (the engine predicted to be faster), "direct" or "mesh".
+    alpha, mesh, order : optional fixed splitting parameter (1/Å), mesh (3 ints) and spline order.
+    sums : ChargeSums, optional; by default from ``charges``.
+    d_min : shortest interionic distance, Å (searched if not given).
+
+    Raises
+    ------
+    InputError
+        For a bad tol, alpha, method, mesh or order, charges that are all zero, or a tol below what
+        double precision can resolve for this sum (the message gives the smallest meaningful tol).
+
+    References
+    ----------
+    A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351; U. Essmann et al., J. Chem. Phys. 103
+    (1995) 8577; I. Křivý and B. Gruber, Acta Cryst. A32 (1976) 297 (reduced cells).
+    """
+    tol = tuning.check_tol(tol)
+    alpha = tuning.check_alpha(alpha)
+    if method not in METHODS:
+        raise InputError(f"method must be one of {', '.join(METHODS)}, got {method!r}")
+    if (mesh is not None or order is not None) and method == "direct":
+        raise InputError("a mesh or spline order applies to method='mesh' only")
+    user_cell = np.ascontiguousarray(cell, dtype=np.float64)
+    positions = np.ascontiguousarray(positions, dtype=np.float64)
+    if sums is None:
+        sums = ChargeSums.of(charges)
+    if sums.square_sum <= 0:
+        raise InputError("all charges are zero; there is no electrostatic energy to compute")
+    reduced, change = reduced_basis(user_cell)
+    volume = abs(float(np.linalg.det(reduced)))
+    if d_min is None:
+        d_min = shortest_distance(reduced, positions)
+    k_e = COULOMB_CONSTANT
+    scale = k_e * sums.square_sum / d_min
+    target = tol * scale
+    background = abs(sums.net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(sums.square_sum))
+    lengths = np.linalg.norm(reduced, axis=1)
+
+    chosen_by = "auto" if method == "auto" else "user"
+    # the rounding floor takes its share of the target: truncation aims at what is left (first
+    # guess: a thousandth; tuned again only where rounding takes more)
+    truncation = target * (1.0 - ROUNDING_SHARE)
+    method, choice, predicted = _choose(method, truncation, sums, volume, lengths, d_min, alpha, mesh, order)
+    rounding = tuning.rounding_error(scale, _terms_per_ion(choice, sums, volume, method))
+    if target <= rounding:
+        smallest = 2.0 * rounding / scale
+        raise InputError(f"tol {tol:g} is below what double precision can resolve for this sum; "
+                         f"the smallest meaningful tol here is about {smallest:.1g}")
+    if rounding > ROUNDING_SHARE * target:
+        method, choice, predicted = _choose(method, target - rounding, sums, volume, lengths, d_min, alpha, mesh,
+                                            order, predicted if chosen_by == "auto" else None)
+    if method == "direct":
+        reciprocal_cutoff, recip_error, shape, spline = choice.reciprocal_cutoff, choice.reciprocal_error, None, None
+    else:
+        shape, spline = tuple(int(k) for k in choice.shape), int(choice.order)
+        reciprocal_cutoff = float(min(math.pi * shape[i] / lengths[i] for i in range(3)))
+        recip_error = choice.mesh_error
+    return SumPlan(
+        method=method, tol=tol, energy_scale=scale, d_min=float(d_min), user_cell=user_cell, cell=reduced,
+        basis_change=change, positions=positions, frac=wrapped_fractional(reduced, positions), volume=volume,
+        sums=sums, background=bool(background), alpha=float(choice.alpha), real_cutoff=float(choice.real_cutoff),
+        reciprocal_cutoff=float(reciprocal_cutoff), mesh=shape, order=spline, real_error=float(choice.real_error),
+        reciprocal_error=float(recip_error), rounding_error=float(rounding), predicted_seconds=predicted,
+        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None})
+
+
+def plan_for(crystal, tol, method="auto", alpha=None, mesh=None, order=None, d_min=None) -> SumPlan:
+    """The plan of a crystal's Ewald sum (see :func:`plan_sum`)."""
+    return plan_sum(crystal.cell, crystal.positions, crystal.charges, tol=tol, method=method, alpha=alpha,
+                    mesh=mesh, order=order, d_min=d_min)
