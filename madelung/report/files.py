@@ -83,6 +83,8 @@ def make_folder(folder, parents=False):
     if os.path.lexists(folder):
         raise InputError(f"{folder}: exists and is not a folder")
     parent = os.path.dirname(os.path.abspath(folder))
+    if os.path.lexists(parent) and not os.path.isdir(parent):
+        raise InputError(f"{folder}: cannot be written ({parent} is a file, not a folder)")
     if not os.path.isdir(parent) and not parents:
         raise InputError(f"{folder}: its parent folder {parent} does not exist (create it first)")
     try:
