@@ -12,7 +12,7 @@ import tempfile
 import numpy as np
 
 from ..errors import InputError
-from ..report.files import atomic_output, make_folder, write_text
+from ..report.files import atomic_output, cif_text, make_folder, write_text
 
 #: The files written into the output folder, by role.
 FILES = {"cluster_xyz": "cluster.xyz", "cluster_cif": "cluster.cif", "point_charges": "point_charges.txt",
@@ -44,33 +44,15 @@ def check_output_folder(folder, overwrite=False):
         raise InputError(f"output folder {folder} cannot be written: {exc.strerror or exc}") from None
 
 
-def _charge_symbol(symbol, charge):
-    if abs(charge) < 1e-12:
-        return symbol
-    return f"{symbol}{abs(charge):g}{'+' if charge > 0 else '-'}"
-
-
 def _cif_text(result):
+    """The cluster in a cubic box with its charges as oxidation states (one CIF writer for the package)."""
     positions = result.cluster_positions - result.center
     side = 2.0 * (float(np.max(np.abs(positions))) if len(positions) else 0.0) + 2.0 * CIF_VACUUM
-    frac = positions / side + 0.5
-    types = {}
-    for symbol, q in zip(result.cluster_symbols, result.cluster_charges):
-        types.setdefault(_charge_symbol(symbol, q), float(q))
-    lines = ["data_embedded_cluster",
-             f"_cell_length_a {side:.6f}", f"_cell_length_b {side:.6f}", f"_cell_length_c {side:.6f}",
-             "_cell_angle_alpha 90", "_cell_angle_beta 90", "_cell_angle_gamma 90",
-             "_symmetry_space_group_name_H-M 'P 1'", "_symmetry_Int_Tables_number 1", "",
-             "loop_", "_symmetry_equiv_pos_as_xyz", "'x, y, z'", "",
-             "loop_", "_atom_type_symbol", "_atom_type_oxidation_number",
-             *[f"{name} {q:.10g}" for name, q in types.items()], "",
-             "loop_", "_atom_site_label", "_atom_site_type_symbol", "_atom_site_fract_x", "_atom_site_fract_y",
-             "_atom_site_fract_z", "_atom_site_occupancy"]
-    for k, (label, symbol, q, f) in enumerate(zip(result.cluster_labels, result.cluster_symbols,
-                                                  result.cluster_charges, frac)):
-        lines.append(f"{label}_{k + 1} {_charge_symbol(symbol, q)} {f[0]:.8f} {f[1]:.8f} {f[2]:.8f} 1")
-    return "\n".join(["# cluster cut from the crystal for an embedded-cluster calculation: one "
-                      f"cubic box of {side:.3f} Å with the centre in the middle; not a periodic crystal", *lines]) + "\n"
+    labels = [f"{label}_{k + 1}" for k, label in enumerate(result.cluster_labels)]
+    return cif_text(side * np.eye(3), positions + 0.5 * side, result.cluster_symbols, result.cluster_charges,
+                    labels=labels, title="embedded_cluster",
+                    comment="cluster cut from the crystal for an embedded-cluster calculation: one cubic box of "
+                            f"{side:.3f} Å with the centre in the middle; not a periodic crystal")
 
 
 def embedding_report(result) -> str:

@@ -176,12 +176,17 @@ def write_with(path, writer, binary=False):
         writer(temporary)
 
 
-def cif_text(cell, positions, symbols, charges, labels=None, title="madelung"):
+def cif_text(cell, positions, symbols, charges, labels=None, title="madelung", comment=None):
     """A P1 CIF of the sites with their charges as oxidation states.
 
-    Each site gets a type symbol ``<element>_<n>`` listed in ``_atom_type`` with its
-    ``_atom_type_oxidation_number`` written to 17 significant digits, so non-integer charges
-    (equilibrated, averaged) read back exactly.
+    Each kind of ion gets a typed symbol (``Na1+``, ``O2-``, ``Co3.5+``) listed in ``_atom_type``
+    with its ``_atom_type_oxidation_number`` written exactly (``repr``), so non-integer charges
+    (equilibrated, averaged) read back with the same numbers. ``comment`` lines go after the
+    data block name.
+
+    References
+    ----------
+    S. R. Hall, F. H. Allen and I. D. Brown, Acta Cryst. A47 (1991) 655 (the CIF format).
     """
     import numpy as np
     from ase.geometry import cell_to_cellpar
@@ -189,30 +194,27 @@ def cif_text(cell, positions, symbols, charges, labels=None, title="madelung"):
     cell = np.asarray(cell, dtype=float)
     a, b, c, alpha, beta, gamma = cell_to_cellpar(cell)
     fractional = np.linalg.solve(cell.T, np.asarray(positions, dtype=float).T).T
+    fractional -= np.floor(fractional + 1e-12)
     labels = list(labels) if labels is not None else [f"{s}{i + 1}" for i, s in enumerate(symbols)]
     types = {}
-    site_types = []
     for symbol, q in zip(symbols, charges):
         key = (str(symbol), float(q))
         if key not in types:
-            magnitude = abs(key[1])
-            tag = f"{magnitude:g}" if magnitude == round(magnitude) else f"{magnitude:.6g}".replace(".", "p")
-            sign = "+" if key[1] >= 0 else "-"
-            name = f"{symbol}{tag}{sign}"
-            while name in {v for v in types.values()}:
+            name = f"{symbol}{abs(key[1]):.6g}{'-' if key[1] < 0 else '+'}"
+            while name in types.values():   # two charges that print alike: still two kinds
                 name += "x"
             types[key] = name
-        site_types.append(types[key])
-    out = [f"data_{''.join(ch if ch.isalnum() else '_' for ch in title) or 'madelung'}",
-           "_symmetry_space_group_name_H-M 'P 1'", "_symmetry_Int_Tables_number 1",
-           "loop_", "_symmetry_equiv_pos_as_xyz", "'x, y, z'",
-           f"_cell_length_a {a:.10f}", f"_cell_length_b {b:.10f}", f"_cell_length_c {c:.10f}",
-           f"_cell_angle_alpha {alpha:.10f}", f"_cell_angle_beta {beta:.10f}", f"_cell_angle_gamma {gamma:.10f}",
-           "", "loop_", "_atom_type_symbol", "_atom_type_oxidation_number"]
+    out = [f"data_{''.join(ch if ch.isalnum() else '_' for ch in title) or 'madelung'}"]
+    out += [f"# {line}" for line in str(comment or "").splitlines()]
+    out += ["_symmetry_space_group_name_H-M 'P 1'", "_symmetry_Int_Tables_number 1",
+            "loop_", "_symmetry_equiv_pos_as_xyz", "'x, y, z'",
+            f"_cell_length_a {a:.10f}", f"_cell_length_b {b:.10f}", f"_cell_length_c {c:.10f}",
+            f"_cell_angle_alpha {alpha:.10f}", f"_cell_angle_beta {beta:.10f}", f"_cell_angle_gamma {gamma:.10f}",
+            "", "loop_", "_atom_type_symbol", "_atom_type_oxidation_number"]
     out += [f"{name} {q!r}" for (_, q), name in types.items()]
     out += ["", "loop_", "_atom_site_label", "_atom_site_type_symbol", "_atom_site_fract_x", "_atom_site_fract_y",
             "_atom_site_fract_z", "_atom_site_occupancy"]
-    for label, name, f in zip(labels, site_types, fractional):
+    for label, symbol, q, f in zip(labels, symbols, charges, fractional):
         safe = "".join(ch for ch in str(label) if not ch.isspace()) or "X"
-        out.append(f"{safe} {name} {f[0]:.12f} {f[1]:.12f} {f[2]:.12f} 1.0")
+        out.append(f"{safe} {types[(str(symbol), float(q))]} {f[0]:.12f} {f[1]:.12f} {f[2]:.12f} 1.0")
     return "\n".join(out) + "\n"
