@@ -31,6 +31,11 @@ MAX_CELL_ASPECT = 1.0e3
 #: the reduced cell / plane spacing of the basis given). The periodic images a neighbour search or a
 #: real-space sum visits grow with it (about 2 s of neighbour search at 1e4, minutes at 1e6).
 MAX_BASIS_SKEW = 1.0e4
+#: Peak memory of a particle-mesh sum per mesh point, bytes (measured: about 50 B per point for a
+#: 160^3 mesh, charge mesh, its transform, the potential and the spline work arrays together).
+MESH_BYTES_PER_POINT = 64
+#: Largest peak memory a mesh may take, bytes.
+MAX_MESH_BYTES = 2.0e9
 #: Largest charge magnitude on one site, e.
 MAX_CHARGE = 1.0e3
 #: Ions may lie this many cell lengths outside the cell, no further (precision of the wrapping).
@@ -230,6 +235,18 @@ def _plane_spacings(cell):
     cell = np.asarray(cell, dtype=float)
     volume = abs(float(np.linalg.det(cell)))
     return np.array([volume / np.linalg.norm(np.cross(cell[(i + 1) % 3], cell[(i + 2) % 3])) for i in range(3)])
+
+
+def check_mesh(shape):
+    """Refuse a particle mesh whose peak memory (:data:`MESH_BYTES_PER_POINT` per point) is above
+    :data:`MAX_MESH_BYTES`, before it is allocated (ions nearly on top of each other with the
+    distance check off ask for meshes of hundreds of millions of points)."""
+    points = float(np.prod([float(k) for k in shape]))
+    need = MESH_BYTES_PER_POINT * points
+    if need > MAX_MESH_BYTES:
+        raise InputError(f"the particle mesh this sum needs ({'x'.join(str(int(k)) for k in shape)} points, about "
+                         f"{need / 1e9:.3g} GB) is above the limit of {MAX_MESH_BYTES / 1e9:g} GB; use the direct "
+                         "sum (method 'direct' or 'auto') or check for ions nearly on top of each other")
 
 
 def check_charges(charges, labels=None, source=None):
