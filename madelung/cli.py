@@ -108,6 +108,12 @@ def _structure_options(parser, charges_from=True):
         parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
                             help="where charges come from: the file (default), assigned oxidation states (auto; "
                                  "states in the file and --charge rules are kept) or charge equilibration")
+    parser.add_argument("--block", metavar="NAME|NUMBER", default=None,
+                        help="the CIF data block (or frame) to read, by name or number counted from 1; needed "
+                             "for a file with several structures")
+    parser.add_argument("--allow-net-charge", action="store_true",
+                        help="sum a cell the file's states and occupancies leave charged, with a uniform "
+                             "neutralizing background (refused by default)")
     parser.add_argument("--occupancy", choices=("average", "error"), default="average",
                         help="mixed or partly occupied sites: occupancy-weighted mean charge with a warning "
                              "(average, default) or refuse the file (error)")
@@ -123,16 +129,19 @@ def _structure_defaults(args):
     from .symmetry import DEFAULT_SYMPREC
 
     for name, value in (("min_distance", 0.5), ("occupancy", "average"), ("max_atoms", DEFAULT_MAX_ATOMS),
-                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input")):
+                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input"),
+                        ("block", None), ("allow_net_charge", False), ("charge", [])):
         if not hasattr(args, name):
             setattr(args, name, value)
     return args
 
 
 def _crystal_options(args):
+    """The loader's options from the command line (:func:`madelung.io.read.load`)."""
     _structure_defaults(args)
-    return dict(source=args.file, min_distance=args.min_distance, occupancy=args.occupancy,
-                max_atoms=args.max_atoms)
+    return dict(block=args.block, min_distance=args.min_distance, occupancy=args.occupancy,
+                max_atoms=args.max_atoms, symprec=args.symprec, allow_net_charge=args.allow_net_charge,
+                mixing_denominator=getattr(args, "mixing_denominator", 2))
 
 
 def load_crystal(args):
@@ -149,21 +158,33 @@ def _load_charged(args):
 
 def _charged(args, ignore_file_states=False):
     """The crystal of the file on the command line and, for --charges-from auto, its assignment."""
-    from .charges import charged_crystal
-    from .crystal import parse_charge_rules, read_structure
+    from .crystal import parse_charge_rules
+    from .io.read import load
 
-    rules = parse_charge_rules(args.charge)
-    atoms = read_structure(args.file, max_atoms=args.max_atoms)
-    return charged_crystal(atoms, getattr(args, "charges_from", "file"), rules, symprec=args.symprec,
-                           mixing_denominator=getattr(args, "mixing_denominator", 2),
-                           ignore_file_states=ignore_file_states, **_crystal_options(args))
+    _structure_defaults(args)
+    loaded = load(args.file, getattr(args, "charges_from", "file"), rules=parse_charge_rules(args.charge),
+                  ignore_file_states=ignore_file_states, **_crystal_options(args))
+    return loaded.crystal, loaded.assignment
+
+
+#: Charge summaries list at most this many entries.
+SUMMARY_ENTRIES = 12
 
 
 def _charge_summary(crystal):
-    seen = {}
-    for symbol, label, q in zip(crystal.symbols, crystal.labels, crystal.charges):
-        seen.setdefault(label, (symbol, q))
-    return ", ".join(f"{label} {q:+g}" for label, (symbol, q) in seen.items())
+    """Charges per site label when the labels name orbits (a CIF), else per element and charge, with
+    counts: never one entry per site of a large cell."""
+    by_label = {}
+    for i, (label, q) in enumerate(zip(crystal.labels, crystal.charges)):
+        by_label.setdefault((label, round(float(q), 9)), []).append(i)
+    if len(by_label) > SUMMARY_ENTRIES:
+        by_label = {}
+        for i, q in enumerate(crystal.charges):
+            by_label.setdefault((crystal.species_label(i), round(float(q), 9)), []).append(i)
+    entries = [f"{name} {q:+g}" + (f" x{len(sites)}" if len(sites) > 1 else "")
+               for (name, q), sites in by_label.items()]
+    more = len(entries) - SUMMARY_ENTRIES
+    return ", ".join(entries[:SUMMARY_ENTRIES]) + (f" and {more} more kinds" if more > 0 else "")
 
 
 def _fmt(value, digits=6):
@@ -407,16 +428,15 @@ def _candidate_json(assignment, candidate, rank):
             "wrong_sign_sites": candidate.wrong_sign_sites,
             "bond_valence_misfit": candidate.bond_valence_misfit,
             "mixed_valence_orbits": candidate.mixed_groups,
+            "sites_in_rarely_seen_states": candidate.rare_sites,
             "energy_per_formula_unit_eV": candidate.energy_per_formula_unit,
             "energy_per_formula_unit_kJ_per_mol": candidate.energy_per_formula_unit * EV_TO_KJ_PER_MOL}
 
 
 def _run_charges(args):
     from .charges.oxidation import mixed_note
-    from .crystal import read_structure
-
     if args.method == "equilibrate":
-        return _run_equilibrate(args, read_structure(args.file, max_atoms=args.max_atoms))
+        return _run_equilibrate(args)
     if args.total_charge != 0:
         raise InputError(f"{args.file}: --total-charge applies to --method equilibrate; oxidation states are "
                          "assigned for a neutral cell")
@@ -426,6 +446,7 @@ def _run_charges(args):
         _print_json({"file": args.file, "formula": crystal.reduced_formula, "space_group": a.space_group,
                      "method": "oxidation-state assignment", "reason": a.reason,
                      "bond_valence_used_in_ranking": a.used_bond_valence, "truncated": a.truncated,
+                     "searched_rarely_seen_states": a.searched_rare_states,
                      "candidates": [_candidate_json(a, c, k + 1) for k, c in enumerate(a.candidates)],
                      "note": "formal oxidation states: bookkeeping of the ionic limit, not measured charges"})
         return 0
@@ -460,23 +481,24 @@ def _run_charges(args):
     print(f"  why         {a.reason}")
     if not a.used_bond_valence:
         print("  bond valence  not used in the ranking (parameters missing for some bonds or sites averaged)")
+    if a.searched_rare_states:
+        print("  searched    rarely seen oxidation states too (no common assignment was neutral, or its bond "
+              "valences misfit by more than 25 %)")
     print("  note        formal oxidation states are bookkeeping of the ionic limit, not measured charges; "
           "BVS: bond-valence sums (Brown & Altermatt 1985, Brese & O'Keeffe 1991)")
     return 0
 
 
-def _run_equilibrate(args, atoms):
-    from .charges import equilibrate
-    from .crystal import Crystal
+def _run_equilibrate(args):
+    from .io.read import load
     from .symmetry import crystal_symmetry
 
     if args.charge:
         raise InputError(f"{args.file}: --charge cannot be combined with --method equilibrate")
-    base = Crystal.from_ase(atoms, np.zeros(len(atoms)), **_crystal_options(args))
-    result = equilibrate(base, total_charge=args.total_charge, kernel=args.kernel, dielectric=args.dielectric,
-                         tol=args.tol)
-    crystal = base.with_charges(result.charges)
-    symmetry = crystal_symmetry(base, symprec=args.symprec, by_charge=False)
+    loaded = load(args.file, "equilibrate", total_charge=args.total_charge, kernel=args.kernel,
+                  dielectric=args.dielectric, tol=args.tol, **_crystal_options(args))
+    crystal, result = loaded.crystal, loaded.equilibration
+    symmetry = crystal_symmetry(crystal, symprec=args.symprec, by_charge=False)
     rows = []
     for orbit in symmetry.orbits:
         q = result.charges[list(orbit.sites)]
@@ -526,9 +548,10 @@ def _add_constant(sub):
 
 def _run_constant(args):
     from .constants import madelung_constants
+    from .io.read import structures_to_read
 
     files = [args.file, *args.more_files]
-    if len(files) > 1:
+    if len(files) > 1 or (args.block is None and len(structures_to_read(args.file)) > 1):
         return _constant_table(args, files)
     crystal, found = _ions_as_units(args, load_crystal(args))
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
@@ -741,19 +764,25 @@ def _run_interstitials(args):
 
 
 def _constant_table(args, files):
-    """One row per file; failures are rows too, and the run goes on."""
+    """One row per file, or per data block of a file with several (unless --block picks one); failures
+    are rows too, and the run goes on."""
     from .constants import madelung_constants
+    from .io.read import structures_to_read
 
+    chosen = args.block
+    entries = [(path, block) for path in files
+               for block in ([chosen] if chosen is not None else structures_to_read(path))]
+    files = [path if block is None else f"{path}#{block}" for path, block in entries]
     rows = []
-    for path in files:
-        args.file = path
+    for (path, block), name in zip(entries, files):
+        args.file, args.block = path, block
         try:
             crystal, found = _ions_as_units(args, load_crystal(args))
             c = madelung_constants(crystal, tol=args.tol, method=args.method)
-            rows.append({"file": path, "status": "ok", **c.as_dict(),
+            rows.append({"file": name, "status": "ok", **c.as_dict(),
                          **({"polyatomic_ions": found.summary()} if found is not None else {})})
         except InputError as exc:
-            rows.append({"file": path, "status": str(exc)})
+            rows.append({"file": name, "status": str(exc)})
     failed = sum(row["status"] != "ok" for row in rows)
     code = _batch_code(failed, len(rows), "files")
     if args.json:
@@ -841,12 +870,15 @@ def _run_screen(args):
         raise InputError("nothing to screen: give files, folders, globs or --db FILE")
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
+    if args.block is not None:
+        raise InputError("--block picks one structure of one file; screen reads every data block of every file")
     summary = screen(args.inputs, args.out, db=args.db, select=args.select, charges=args.charges_from,
                      charge_rules=parse_charge_rules(args.charge), tol=args.tol, workers=args.workers,
                      scheduler=args.scheduler, timeout=args.timeout, resume=args.resume, sites=args.sites,
                      write_db=args.write_db, chunk_size=args.chunk, progress=not args.no_progress,
                      spectrum_length=args.spectrum_length, symprec=args.symprec, min_distance=args.min_distance,
-                     max_atoms=args.max_atoms, occupancy=args.occupancy, overwrite=args.overwrite)
+                     max_atoms=args.max_atoms, occupancy=args.occupancy, allow_net_charge=args.allow_net_charge,
+                     overwrite=args.overwrite)
     code = _batch_code(summary.failed, summary.ok + summary.failed, f"structures ({summary.out})")
     if args.json:
         _print_json(summary.as_dict())
@@ -1101,7 +1133,7 @@ def parse_cell(text):
 
 
 def _run_correction(args):
-    from .crystal import read_structure
+    from .io.read import read_structure
     from .defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
 
     if (args.file is None) == (args.cell is None):
@@ -1780,46 +1812,32 @@ def _add_orderings(sub):
     return parser
 
 
-def _ion_charges_of(args, atoms, crystal, assignment, rules):
-    """Per site, the charge of each of its species: from the assignment, else the rules and the file
-    (None after charge equilibration: then only single-species sites can be resolved)."""
-    from .crystal import file_states
-
+def _ion_charges_of(args, crystal):
+    """Per site, the charge of each of its species, as the loader decided them (the file's states and
+    the rules, or the assignment); None after charge equilibration (partial charges: each ion's charge
+    only where a site holds one species)."""
     if args.charges_from == "equilibrate":
-        return None  # partial charges: each ion's charge only where a site holds one species
-    if assignment is not None:
-        per_site = [None] * len(crystal)
-        for group, states in zip(assignment.groups, assignment.best.states):
-            for site in group.sites:
-                per_site[site] = tuple(states)
-        return per_site
-    states = file_states(atoms)
-    per_site = []
-    for i in range(len(crystal)):
-        parts = crystal.species_of(i)
-        given = states[i] if len(states[i]) == len(parts) else (None,) * len(parts)
-        per_site.append(tuple(rules.get(crystal.labels[i] if len(parts) == 1 else None, rules.get(el, q))
-                              for (el, _), q in zip(parts, given)))
-    return per_site
+        return None
+    return [crystal.states_of(i) for i in range(len(crystal))]
 
 
 def _run_orderings(args):
     from .analysis.ordering_output import check_output_folder, write_ranking
     from .analysis.orderings import rank_orderings
-    from .charges import charged_crystal
-    from .crystal import parse_charge_rules, read_structure
+    from .crystal import parse_charge_rules
+    from .io.read import load
 
     check_output_folder(args.out, args.overwrite)
     if args.keep < 1:
         raise InputError(f"--keep must be a positive whole number, got {args.keep}")
     rules = parse_charge_rules(args.charge)
-    atoms = read_structure(args.file, max_atoms=args.max_atoms)
+    _structure_defaults(args)
+    options = {**_crystal_options(args), "allow_net_charge": args.background}
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=".*virtual-crystal average.*")  # the point of this command
-        crystal, assignment = charged_crystal(atoms, args.charges_from, rules, symprec=args.symprec,
-                                              **_crystal_options(args))
+        crystal = load(args.file, args.charges_from, rules=rules, **options).crystal
     ranking = rank_orderings(crystal, args.supercell, keep=args.keep,
-                             ion_charges=_ion_charges_of(args, atoms, crystal, assignment, rules), method=args.strategy,
+                             ion_charges=_ion_charges_of(args, crystal), method=args.strategy,
                              max_distinct=args.max_distinct, restarts=args.restarts, sweeps=args.sweeps,
                              seed=args.seed, workers=args.workers, scheduler=args.scheduler,
                              background=args.background, tol=args.tol, symprec=args.symprec)

@@ -20,7 +20,8 @@ distance; rutile 2.401 against 2.388 (CRC 2.408, from memory). For rock salt, Cs
 zinc blende the two r0 coincide.
 ``common_factor``
     E_fu = -M Z^2 k_e / r0, with Z the highest common factor of the ion charges (fluorite:
-    5.0388, CaO: 1.7476). Undefined when the charges are not whole multiples of one value.
+    5.0388, CaO: 1.7476). Undefined when any charge is not a whole number (averaged sites,
+    partial charges) or the charges have no common factor.
 ``site`` (per site)
     M_i = -phi_i r0 / (k_e q_i): the site potential in units of k_e q_i / r0, positive for an ion
     held by its surroundings. Then E = -(k_e / 2 r0) sum_i q_i^2 M_i.
@@ -205,7 +206,13 @@ def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> 
     common = _common_factor(charges)
     common_value = None
     common_note = ""
-    if common is None:
+    fractional = [float(q) for q in charges if abs(q - round(q)) > 1e-9]
+    if fractional:
+        # a common factor of fractional charges (Z = 0.5, 0.1) gives constants of no meaning (117.5, 3137)
+        common = None
+        common_note = (f"undefined: the charges are not whole numbers (e.g. {fractional[0]:+g} e, from mixed or "
+                       "partly occupied sites or partial charges)")
+    elif common is None:
         common_note = "undefined: the charges are not whole multiples of one common value"
     else:
         common_value = m_in / common ** 2

@@ -12,15 +12,12 @@ ASE initial charges).
 
 from __future__ import annotations
 
-import os
-import re
-import warnings
 from typing import Mapping, Sequence
 
 import numpy as np
 
-from .bounds import COINCIDENT_DISTANCE, check_cell, check_charges, precheck_file
-from .errors import InputError, MadelungWarning
+from .bounds import COINCIDENT_DISTANCE, check_cell, check_charges
+from .errors import InputError
 
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
 DEFAULT_MIN_DISTANCE = 0.5
@@ -31,33 +28,20 @@ DEFAULT_MIN_DISTANCE = 0.5
 #: limit unless one is given.
 DEFAULT_MAX_ATOMS = 2_000_000
 
+#: Largest site charge (e) a crystal accepts: far above any ion, small enough that sums of
+#: squares over millions of sites stay finite.
+MAX_CHARGE = 1e6
+
 #: Ways of getting charges named by a string: from the structure file, assigned oxidation
 #: states (:mod:`madelung.charges.oxidation`), or charge equilibration (:mod:`madelung.charges.equilibrate`).
 CHARGE_SOURCES = ("file", "auto", "equilibrate")
-
-_TYPED_SYMBOL = re.compile(r"^([A-Z][a-z]?)(\d*(?:\.\d+)?)([+-])$")
-
 
 def _where(source):
     return f"{source}: " if source else ""
 
 
-def parse_typed_symbol(text):
-    """Split a CIF type symbol such as ``Fe3+``, ``O2-`` or ``Cl-`` into (element, charge).
-
-    Returns ``(element, None)`` when the symbol carries no charge (``Fe``, ``Fe1``).
-    """
-    text = str(text).strip()
-    match = _TYPED_SYMBOL.match(text)
-    if match:
-        element, magnitude, sign = match.groups()
-        value = float(magnitude) if magnitude else 1.0
-        return element, (value if sign == "+" else -value)
-    element = re.match(r"^([A-Z][a-z]?)", text)
-    return (element.group(1) if element else text), None
-
-
-def _default_labels(symbols):
+def default_labels(symbols):
+    """Labels made of the symbol and a running number per element: Na1, Na2, Cl1, ..."""
     counts: dict[str, int] = {}
     labels = []
     for symbol in symbols:
@@ -88,6 +72,9 @@ class Crystal:
         pairs (e.g. ``(("Fe", 0.5), ("Ti", 0.5))``). A site is then one point charge carrying
         the occupancy-weighted mean charge of its species (the virtual-crystal average).
         Default: every site holds its symbol with its occupancy.
+    species_states : sequence, optional
+        Per site, the oxidation state of each species (``None`` where unknown), as the file gives
+        them or the assignment chose them; shown in labels such as ``Mn3+0.7Mn4+0.3``.
     source : str, optional
         Where the structure came from; named in error messages.
     min_distance : float, optional
@@ -97,7 +84,8 @@ class Crystal:
     """
 
     def __init__(self, cell, positions, charges, symbols=None, labels=None, occupancies=None,
-                 *, source=None, min_distance=DEFAULT_MIN_DISTANCE, info=None, species=None):
+                 *, source=None, min_distance=DEFAULT_MIN_DISTANCE, info=None, species=None,
+                 species_states=None):
         self.source = None if source is None else str(source)
         where = _where(self.source)
 
@@ -133,7 +121,7 @@ class Crystal:
         if len(symbols) != n:
             raise InputError(f"{where}{len(symbols)} symbols given for {n} sites")
         if labels is None:
-            labels = _default_labels(symbols)
+            labels = default_labels(symbols)
         labels = [str(s) for s in labels]
         if len(labels) != n:
             raise InputError(f"{where}{len(labels)} labels given for {n} sites")
@@ -152,6 +140,7 @@ class Crystal:
         species = _resolve_species(species, symbols, occupancies, labels, where)
         charges = _resolve_charges(charges, symbols, labels, where, species)
         check_charges(charges, labels, self.source)
+        species_states = _resolve_states(species_states, symbols, species, labels, where)
 
         self.cell = cell
         self.positions = positions
@@ -160,6 +149,7 @@ class Crystal:
         self.labels = tuple(labels)
         self.occupancies = occupancies
         self.species = species
+        self.species_states = species_states
         self.info = dict(info or {})
         for array in (self.cell, self.positions, self.charges, self.occupancies):
             array.setflags(write=False)
@@ -218,11 +208,21 @@ class Crystal:
             return ((self.symbols[i], float(self.occupancies[i])),)
         return self.species[i]
 
+    def states_of(self, i) -> tuple:
+        """The oxidation state of each species of site ``i`` (None where not known)."""
+        if self.species_states is None:
+            return (None,) * len(self.species_of(i))
+        return self.species_states[i]
+
     def species_label(self, i) -> str:
-        """The element of a fully occupied site, else its mixture, e.g. ``"Fe0.5Ti0.5"`` or ``"O0.8"``."""
+        """The element of a fully occupied site, else all its rows (with their states where one element
+        comes in several), e.g. ``"Fe0.5Ti0.5"``, ``"O0.8"``, ``"Mn3+0.7Mn4+0.3"``, ``"Fe2+0.85Fe3+0.1"``."""
         parts = self.species_of(i)
         if len(parts) == 1 and parts[0][1] >= 1 - 1e-6:
             return parts[0][0]
+        states = self.states_of(i)
+        if len({el for el, _ in parts}) < len(parts):     # one element in several states: name them
+            return "".join(f"{ion_text(el, st)}{occ:g}" for (el, occ), st in zip(parts, states))
         return "".join(f"{el}{occ:g}" for el, occ in parts)
 
     def is_averaged(self, i) -> bool:
@@ -239,11 +239,13 @@ class Crystal:
         """A copy with some fields changed (cell, positions, charges, symbols, labels, occupancies, species)."""
         fields = dict(cell=self.cell, positions=self.positions, charges=self.charges,
                       symbols=self.symbols, labels=self.labels, occupancies=self.occupancies,
-                      species=self.species)
+                      species=self.species, species_states=self.species_states)
         if "symbols" in changes and "species" not in changes and self.species is not None:
             # a plain site follows its new symbol; a mixed site keeps its mixture
             fields["species"] = [((str(new), parts[0][1]),) if len(parts) == 1 else parts
                                  for new, parts in zip(changes["symbols"], self.species)]
+        if "species_states" not in changes and ("species" in changes or "symbols" in changes):
+            fields["species_states"] = None     # new species: the old states do not apply
         fields.update(changes)
         return Crystal(**fields, source=self.source, min_distance=self.min_distance, info=self.info)
 
@@ -264,7 +266,8 @@ class Crystal:
         return Crystal(self.cell * reps[:, None], positions, np.tile(self.charges, n_copies),
                        tile(self.symbols), tile(self.labels), np.tile(self.occupancies, n_copies),
                        source=self.source, min_distance=self.min_distance, info=self.info,
-                       species=None if self.species is None else tile(self.species))
+                       species=None if self.species is None else tile(self.species),
+                       species_states=None if self.species_states is None else tile(self.species_states))
 
     def in_basis(self, change) -> "Crystal":
         """The same crystal written with other lattice vectors: rows ``change @ cell``.
@@ -314,85 +317,40 @@ class Crystal:
 
     # --------------------------------------------------------- constructors
     @classmethod
-    def from_ase(cls, atoms, charges=None, *, labels=None, source=None, min_distance=DEFAULT_MIN_DISTANCE,
-                 occupancy="average", max_atoms=None, **charge_options):
-        """Build from an ``ase.Atoms``.
+    def from_ase(cls, atoms, charges=None, *, source=None, max_atoms=None, **options) -> "Crystal":
+        """Build from an ``ase.Atoms`` through the one loader (:func:`madelung.io.read.load`).
 
-        Parameters
-        ----------
-        atoms : ase.Atoms
-        charges : None, "file", "auto", "equilibrate", array or mapping
-            ``None`` or ``"file"`` takes the charges the structure carries: CIF oxidation states
-            read by :meth:`from_file`, else ASE initial charges if any is non-zero.
-            ``"auto"`` assigns oxidation states (:func:`madelung.charges.assign_oxidation_states`;
-            states given in the file are kept). ``"equilibrate"`` computes partial charges by
-            charge equilibration (:func:`madelung.charges.equilibrate`). Otherwise give an array
-            or a map by element or site label.
-        occupancy : "average" or "error"
-            What to do with mixed or partly occupied sites: give them the occupancy-weighted mean
-            charge with a warning (the virtual-crystal average), or refuse the structure.
-        max_atoms : int, optional
-            Refuse structures with more sites than this (default: no limit; files read with
-            :meth:`from_file` default to :data:`DEFAULT_MAX_ATOMS`).
-        **charge_options
-            Passed on to the charge assignment or equilibration (e.g. ``symprec``).
+        ``charges``: None or ``"file"`` (ASE initial charges), ``"auto"`` (assigned oxidation
+        states), ``"equilibrate"``, an array, or a map by element or site label. ``source`` names
+        the structure in messages; ``labels`` replaces the site labels; ``max_atoms`` sets a size
+        limit (default none); the other
+        options (``min_distance``, ``occupancy``, ``symprec``, ``allow_net_charge``, ...) are those
+        of :func:`madelung.io.read.load`.
         """
-        where = _where(source)
-        if not all(atoms.pbc):
-            raise InputError(f"{where}the structure is not periodic in all three directions "
-                             f"(pbc={list(map(bool, atoms.pbc))}); a crystal needs a 3D cell")
-        check_size(len(atoms), max_atoms, source)
-        if occupancy not in ("average", "error"):
-            raise InputError(f"occupancy must be 'average' or 'error', got {occupancy!r}")
-        symbols = atoms.get_chemical_symbols()
-        if labels is None and "labels" in atoms.arrays:
-            labels = [str(x) for x in atoms.arrays["labels"]]
-        occupancies = atoms.arrays.get("occupancies")
-        entries = atoms.arrays.get("site_species")
-        species = None if entries is None else [tuple((el, occ) for el, occ, _ in e) for e in entries]
-        info = {k: v for k, v in atoms.info.items() if isinstance(v, (str, int, float))}
-        method = charges if isinstance(charges, str) else None
-        if method is not None and method not in CHARGE_SOURCES:
-            raise InputError(f"{where}charges {charges!r} not understood; use one of {', '.join(CHARGE_SOURCES)}, "
-                             "numbers, or a map by element or label")
-        if method in ("auto", "equilibrate"):
-            base = cls(np.array(atoms.cell), atoms.get_positions(), np.zeros(len(atoms)), symbols, labels,
-                       occupancies, source=source, min_distance=min_distance, info=info, species=species)
-            _check_averaged(base, occupancy)
-            from .charges import charges_for
-
-            return base.with_charges(charges_for(base, method, known_states=file_states(atoms), **charge_options))
-        if charges is None or method == "file":
-            charges = charges_in_structure(atoms)
-            if charges is None:
-                elements = list(dict.fromkeys(symbols))
-                raise InputError(f"{where}no charges found in the structure; give them, e.g. "
-                                 + " ".join(f"--charge {el}=Q" for el in elements)
-                                 + ", or let madelung assign them (--charges-from auto)")
-            missing = [i for i in range(len(charges)) if not np.isfinite(charges[i])]
-            if missing:
-                names = list(dict.fromkeys(labels[i] if labels is not None else symbols[i] for i in missing))
-                raise InputError(f"{where}the file gives no oxidation state for site "
-                                 f"{', '.join(names)}; give it, e.g. --charge {names[0]}=Q, "
-                                 "or let madelung assign it (--charges-from auto)")
-        crystal = cls(np.array(atoms.cell), atoms.get_positions(), charges, symbols, labels, occupancies,
-                      source=source, min_distance=min_distance, info=info, species=species)
-        _check_averaged(crystal, occupancy)
-        return crystal
+        return _LOADER["ase"](cls, atoms, charges, source=source, max_atoms=max_atoms, **options)
 
     @classmethod
-    def from_file(cls, path, charges=None, *, index=-1, format=None, min_distance=DEFAULT_MIN_DISTANCE,
-                  occupancy="average", max_atoms=DEFAULT_MAX_ATOMS, **charge_options):
-        """Read any structure file ASE reads (CIF, POSCAR, extended XYZ, ...).
+    def from_file(cls, path, charges=None, **options) -> "Crystal":
+        """Read any structure file ASE reads (CIF, POSCAR, extended XYZ, ...) through the one loader
+        (:func:`madelung.io.read.load`; options ``block``, ``format``, ``min_distance``, ``occupancy``,
+        ``max_atoms``, ``symprec``, ``allow_net_charge``, ... as there).
 
-        CIF files keep their site labels (``_atom_site_label``), occupancies and oxidation states
-        (``_atom_type_oxidation_number`` or typed symbols such as ``O2-``). Mixed sites (several
-        species on one position) become one site with their mixture; see :meth:`from_ase` for
-        ``charges``, ``occupancy`` and ``max_atoms``.
+        CIF rows that share a position form one site, whatever their elements or oxidation states;
+        its charge is the occupancy-weighted sum of the rows' charges.
         """
-        atoms = read_structure(path, index=index, format=format, max_atoms=max_atoms)
-        return cls.from_ase(atoms, charges, source=str(path), min_distance=min_distance, occupancy=occupancy,
-                            max_atoms=max_atoms, **charge_options)
+        return _LOADER["file"](cls, path, charges, **options)
+
+
+#: The loader behind :meth:`Crystal.from_file` and :meth:`Crystal.from_ase`. It lives in the io
+#: layer (:mod:`madelung.io.read`), which imports this module and registers itself on import
+#: (``madelung/__init__`` imports it), so the import arrow points one way only.
+_LOADER = {}
+
+
+def use_loader(from_file, from_ase):
+    """Register the functions behind :meth:`Crystal.from_file` and :meth:`Crystal.from_ase`."""
+    _LOADER["file"] = from_file
+    _LOADER["ase"] = from_ase
 
 
 def check_size(n_atoms, max_atoms, source=None):
@@ -409,225 +367,6 @@ def check_size(n_atoms, max_atoms, source=None):
     if n_atoms > limit:
         raise InputError(f"{_where(source)}the structure has {n_atoms} sites, more than the limit of {limit} "
                          "(raise it with --max-atoms / max_atoms= if you mean it)")
-
-
-def _check_averaged(crystal, policy):
-    """Refuse, or warn about, sites whose charge is an occupancy average."""
-    averaged = crystal.averaged_sites
-    if not averaged:
-        return
-    seen = []
-    for i in averaged:
-        entry = f"{crystal.labels[i]} ({crystal.species_label(i)})"
-        if entry not in seen:
-            seen.append(entry)
-    shown = ", ".join(seen[:4]) + (f" and {len(seen) - 4} more" if len(seen) > 4 else "")
-    if policy == "error":
-        raise InputError(f"{_where(crystal.source)}mixed or partly occupied sites: {shown}; refused "
-                         "(occupancy policy 'error'; use 'average' for occupancy-weighted mean charges)")
-    warn(f"{_where(crystal.source)}mixed or partly occupied sites {shown} carry occupancy-weighted mean charges "
-         "(virtual-crystal average): one averaged point charge per site, not the real ions")
-
-
-def file_states(atoms):
-    """Per site, the oxidation state the file gives to each species (None where it gives none)."""
-    entries = atoms.arrays.get("site_species")
-    if entries is not None:
-        return [tuple(state for _, _, state in e) for e in entries]
-    if "oxidation_states" in atoms.arrays:
-        return [(float(q),) for q in atoms.arrays["oxidation_states"]]
-    return [(None,) for _ in range(len(atoms))]
-
-
-def charges_in_structure(atoms):
-    """Charges an ``ase.Atoms`` carries: CIF oxidation states (NaN where a site has none), else ASE
-    initial charges if any is non-zero, else None."""
-    if "oxidation_states" in atoms.arrays:
-        return np.array(atoms.arrays["oxidation_states"], dtype=float)
-    initial = atoms.get_initial_charges()
-    return np.array(initial, dtype=float) if np.any(initial != 0) else None
-
-
-def read_structure(path, index=-1, format=None, max_atoms=DEFAULT_MAX_ATOMS):
-    """Read one structure with ASE and attach CIF labels, occupancies, mixtures and oxidation states.
-
-    Every failure becomes an :class:`InputError` naming the file.
-    """
-    import ase.io
-
-    path = os.fspath(path)
-    if not os.path.exists(path):
-        raise InputError(f"{path}: no such file")
-    if os.path.isdir(path):
-        raise InputError(f"{path}: is a folder, not a structure file")
-    precheck_file(path, format, max_atoms)
-    is_cif = (format or "").lower() == "cif" or path.lower().endswith((".cif", ".mcif"))
-    if is_cif:
-        _precheck_cif(path, max_atoms)
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            if is_cif:
-                atoms = ase.io.read(path, index=index, format="cif", store_tags=True)
-            else:
-                atoms = ase.io.read(path, index=index, format=format)
-    except InputError:
-        raise
-    except StopIteration:
-        raise InputError(f"{path}: cannot read structure (no complete data block with atoms found)") from None
-    except KeyError as exc:  # ASE's symbol lookup
-        name = str(exc.args[0]) if exc.args else "?"
-        raise InputError(f"{path}: unknown element symbol {name!r}") from None
-    except Exception as exc:  # ASE raises many kinds; all mean the file could not be read
-        message = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(f"{path}: cannot read structure ({message[:200]})") from None
-    if isinstance(atoms, list):
-        if not atoms:
-            raise InputError(f"{path}: contains no structure")
-        atoms = atoms[-1]
-    if len(atoms) == 0:
-        raise InputError(f"{path}: contains no atoms")
-    if atoms.cell.rank < 3:
-        raise InputError(f"{path}: has no complete unit cell (cell rank {atoms.cell.rank})")
-    positions = atoms.get_positions()
-    if not np.all(np.isfinite(positions)) or not np.all(np.isfinite(np.array(atoms.cell))):
-        raise InputError(f"{path}: the structure contains a non-finite coordinate or cell length")
-    check_size(len(atoms), max_atoms, path)
-    if is_cif:
-        try:
-            _attach_cif_sites(atoms, path)
-        except InputError:
-            raise
-        except (ValueError, TypeError, KeyError, IndexError, AttributeError) as exc:
-            message = " ".join(str(exc).split()) or type(exc).__name__
-            raise InputError(f"{path}: malformed atom-site table ({message[:160]})") from None
-    return atoms
-
-
-_NUMBER = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?(\(\d+\))?$")
-
-
-def _precheck_cif(path, max_atoms):
-    """Cheap checks ASE does not make before it expands a CIF: a cell, finite numbers, and a
-    bound on the expanded size (sites x symmetry operations) so a huge cell fails fast."""
-    try:
-        with open(path, "r", encoding="utf-8", errors="replace") as handle:
-            text = handle.read()
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read ({exc.strerror or exc})") from None
-    if "data_" not in text:
-        raise InputError(f"{path}: not a CIF (no data_ block)")
-    for tag in ("_cell_length_a", "_cell_length_b", "_cell_length_c"):
-        match = re.search(rf"^\s*{tag}\s+(\S+)", text, flags=re.MULTILINE | re.IGNORECASE)
-        if match is None:
-            raise InputError(f"{path}: no unit cell ({tag} missing)")
-        value = match.group(1)
-        if not _NUMBER.match(value) or not np.isfinite(float(value.split("(")[0])) or float(value.split("(")[0]) <= 0:
-            raise InputError(f"{path}: {tag} is {value!r}, not a positive number")
-    if re.search(r"(?<![A-Za-z])(nan|inf)(?![A-Za-z])", text, flags=re.IGNORECASE):
-        raise InputError(f"{path}: contains a NaN or infinite number")
-
-
-def _attach_cif_sites(atoms, path):
-    """Labels, occupancies, mixtures and oxidation states of the expanded CIF atoms.
-
-    ASE keeps one atom per position: several asymmetric-unit sites on one position (a mixed
-    site, or a line written twice) become one atom whose ``occupancy`` entry lists every
-    species. We keep that as one site with its mixture; a species named twice on one position
-    is a duplicate and is merged with a warning.
-    """
-    info = atoms.info
-    kinds = atoms.arrays.get("spacegroup_kinds")
-    site_labels = _as_list(info.get("_atom_site_label"))
-    if kinds is None or site_labels is None:
-        return
-    kinds = np.asarray(kinds, dtype=int)
-    if kinds.max(initial=0) >= len(site_labels):
-        return
-    type_symbols = _as_list(info.get("_atom_site_type_symbol"))
-    if type_symbols is None or len(type_symbols) != len(site_labels):
-        type_symbols = None
-    occupancy = info.get("occupancy") if isinstance(info.get("occupancy"), dict) else {}
-    raw_occ = _as_list(info.get("_atom_site_occupancy"))
-    if raw_occ is not None:
-        for label, value in zip(site_labels, raw_occ):
-            try:
-                number = float(value)
-            except (TypeError, ValueError):
-                continue  # "?" or "." mean unknown: ASE takes 1
-            if not np.isfinite(number) or number <= 0 or number > 1 + 1e-6:
-                raise InputError(f"{path}: site {label} has occupancy {value}; occupancies must lie in (0, 1]")
-
-    table = {}
-    type_names = _as_list(info.get("_atom_type_symbol"))
-    numbers = _as_list(info.get("_atom_type_oxidation_number"))
-    if type_names is not None and numbers is not None:
-        for name, number in zip(type_names, numbers):
-            try:
-                table[str(name)] = float(number)
-            except (TypeError, ValueError):
-                raise InputError(f"{path}: oxidation number {number!r} of type {name} is not a number") from None
-
-    def element_of(k):
-        return parse_typed_symbol(type_symbols[k])[0] if type_symbols is not None else None
-
-    def state_of(k):
-        if type_symbols is None:
-            return None
-        name = str(type_symbols[k])
-        value = table.get(name)
-        return value if value is not None else parse_typed_symbol(name)[1]
-
-    present = set(int(k) for k in kinds)
-    mixtures = {}
-    for kind in sorted(present):
-        entry = occupancy.get(str(kind), {})
-        if not isinstance(entry, dict) or not entry:
-            entry = {element_of(kind) or atoms.get_chemical_symbols()[int(np.flatnonzero(kinds == kind)[0])]: 1.0}
-        # which asymmetric-unit sites went into this position: this kind, and absent kinds with
-        # the same mixture (ASE drops the later lines of a mixed position)
-        members = [kind] + [k for k in range(len(site_labels)) if k not in present
-                            and occupancy.get(str(k)) == entry and k != kind]
-        parts = []
-        used = set()
-        for element, occ in entry.items():
-            source = next((k for k in members if k not in used and element_of(k) == element), None)
-            if source is None:
-                source = next((k for k in members if element_of(k) == element), kind)
-            used.add(source)
-            parts.append((str(element), float(occ), state_of(source), str(site_labels[source])))
-        total = sum(p[1] for p in parts)
-        if total > 1 + 1e-6:
-            names = "+".join(f"{p[0]}{p[1]:g}" for p in parts)
-            raise InputError(f"{path}: site {'/'.join(p[3] for p in parts)} holds {names}, total occupancy "
-                             f"{total:g} above 1")
-        duplicates = [k for k in range(len(site_labels)) if k not in present and k not in used
-                      and occupancy.get(str(k)) == entry and element_of(k) in entry]
-        for k in duplicates:
-            warn(f"{path}: site {site_labels[k]} lies on site {site_labels[kind]} with the same species; "
-                 "merged as a duplicate")
-            used.add(k)
-        mixtures[kind] = tuple(parts)
-    entries = np.empty(len(atoms), dtype=object)
-    labels = []
-    for i, kind in enumerate(kinds):
-        parts = mixtures[int(kind)]
-        entries[i] = tuple((el, occ, state) for el, occ, state, _ in parts)
-        labels.append("/".join(dict.fromkeys(label for *_, label in parts)))
-    atoms.arrays["labels"] = np.array(labels, dtype=object).astype(str)
-    atoms.arrays["occupancies"] = np.array([sum(p[1] for p in e) for e in entries], dtype=float)
-    atoms.arrays["site_species"] = entries
-    if any(state is not None for e in entries for _, _, state in e):
-        # NaN marks a site the file gives no oxidation state for (for a mixed site: any of its species)
-        atoms.arrays["oxidation_states"] = np.array(
-            [np.nan if any(state is None for _, _, state in e) else sum(occ * state for _, occ, state in e)
-             for e in entries], dtype=float)
-
-
-def _as_list(value):
-    if value is None:
-        return None
-    return value if isinstance(value, list) else [value]
 
 
 def _resolve_species(species, symbols, occupancies, labels, where):
@@ -661,6 +400,33 @@ def _resolve_species(species, symbols, occupancies, labels, where):
     return tuple(result)
 
 
+def ion_text(element, state):
+    """``Mn3+``, ``O2-``, ``Cl-``, ``Fe2.5+``; the bare element when the state is unknown."""
+    if state is None:
+        return element
+    magnitude = abs(float(state))
+    return f"{element}{'' if magnitude == 1 else f'{magnitude:g}'}{'+' if state > 0 else '-'}"
+
+
+def _resolve_states(states, symbols, species, labels, where):
+    """Validate per-site species states; None when no state is known anywhere."""
+    if states is None:
+        return None
+    states = list(states)
+    if len(states) != len(symbols):
+        raise InputError(f"{where}{len(states)} state entries given for {len(symbols)} sites")
+    result = []
+    for i, entry in enumerate(states):
+        count = 1 if species is None else len(species[i])
+        entry = (None,) * count if entry is None else tuple(entry)
+        if len(entry) != count:
+            raise InputError(f"{where}site {labels[i]}: {len(entry)} states given for {count} species")
+        result.append(tuple(None if v is None or not np.isfinite(v) else float(v) for v in entry))
+    if all(v is None for entry in result for v in entry):
+        return None
+    return tuple(result)
+
+
 def _resolve_charges(charges, symbols, labels, where, species=None):
     """Turn an array or a map by element / site label into one charge per site.
 
@@ -683,6 +449,8 @@ def _resolve_charges(charges, symbols, labels, where, species=None):
                 raise InputError(f"{where}charge {value!r} for {key} is not a number") from None
             if not np.isfinite(by_key[str(key)]):
                 raise InputError(f"{where}charge for {key} is not finite")
+            if abs(by_key[str(key)]) > MAX_CHARGE:
+                raise InputError(f"{where}charge {by_key[str(key)]:g} for {key} is above {MAX_CHARGE:g} e in size")
         elements = set(symbols) | {el for parts in (species or ()) for el, _ in parts}
         known = elements | set(labels)
         unknown = sorted(set(by_key) - known)
@@ -712,6 +480,9 @@ def _resolve_charges(charges, symbols, labels, where, species=None):
     bad = np.flatnonzero(~np.isfinite(result))
     if len(bad):
         raise InputError(f"{where}site {labels[bad[0]]} has a non-finite charge")
+    bad = np.flatnonzero(np.abs(result) > MAX_CHARGE)
+    if len(bad):
+        raise InputError(f"{where}site {labels[bad[0]]} has charge {result[bad[0]]:g}, above {MAX_CHARGE:g} e in size")
     return result
 
 
@@ -737,7 +508,3 @@ def parse_key_values(rules: Sequence[str] | None, what="option", shape="KEY=VALU
 def parse_charge_rules(rules: Sequence[str] | None) -> dict:
     """Parse command-line rules such as ``Na=+1`` or ``O1=-2`` into a map."""
     return parse_key_values(rules, "charge rule", "ELEMENT=CHARGE or LABEL=CHARGE, e.g. Na=+1")
-
-
-def warn(message):
-    warnings.warn(message, MadelungWarning, stacklevel=3)

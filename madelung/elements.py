@@ -69,9 +69,11 @@ def common_oxidation_states(symbol) -> tuple:
 
 @lru_cache(maxsize=None)
 def all_oxidation_states(symbol) -> tuple:
-    """Every oxidation state the library knows for the element."""
-    states = _element(symbol).oxidation_states()
-    return tuple(sorted(int(x) for x in states)) if states else ()
+    """Every oxidation state the library knows for the element (its "main" and "extended" lists)."""
+    number = int(_row(symbol)["atomic_number"])
+    table = _tables()[1]
+    rows = table[table["atomic_number"] == number]
+    return tuple(sorted({int(x) for x in rows["oxidation_state"]}))
 
 
 @lru_cache(maxsize=None)

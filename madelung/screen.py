@@ -49,6 +49,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
+from .crystal import check_size
+from .io.read import charge_table, read_sites, sites_from_atoms, structures_to_read
 from .report.files import atomic_output, check_outputs, remove_stale_temporaries
 
 #: Columns that come before the descriptors, with their types.
@@ -110,6 +112,7 @@ class ScreenOptions:
     max_atoms: int = 20000
     occupancy: str = "average"
     sites: bool = False
+    allow_net_charge: bool = False
 
 
 @dataclass(frozen=True)
@@ -120,6 +123,7 @@ class Task:
     source: str
     path: str
     db_id: int = -1
+    block: str | None = None
 
 
 def _is_glob(text):
@@ -195,8 +199,11 @@ def iter_tasks(inputs=(), db=None, select=None):
             if path in seen:
                 continue
             seen.add(path)
-            yield Task(index, path, path)
-            index += 1
+            blocks = structures_to_read(path)
+            for block in blocks:   # a file with several data blocks (or frames) gives one task per block
+                source = path if len(blocks) == 1 else f"{path}#{block}"
+                yield Task(index, source, path, block=None if len(blocks) == 1 else block)
+                index += 1
     for database in databases:
         database = os.path.normpath(os.fspath(database))
         for row_id in _database_ids(database, select):
@@ -238,10 +245,9 @@ def prepare_process():
 
 
 def _read_atoms(task, options):
-    from .crystal import read_structure
-
+    """The sites of a task, read by the loader (a file, or an ``ase.Atoms`` of a database row)."""
     if task.db_id < 0:
-        return read_structure(task.path, max_atoms=options.max_atoms)
+        return read_sites(task.path, block=task.block, max_atoms=options.max_atoms)
     import ase.db
 
     connection = _DATABASES.get(task.path)
@@ -253,16 +259,15 @@ def _read_atoms(task, options):
         raise InputError(f"{task.source}: no such row") from None
     if len(atoms) == 0:
         raise InputError(f"{task.source}: contains no atoms")
-    return atoms
+    check_size(len(atoms), options.max_atoms, task.source)
+    return sites_from_atoms(atoms, task.source)
 
 
-def _charged_crystal(atoms, task, options):
-    """The crystal of ``atoms`` with charges as the options say."""
-    from .charges import charged_crystal
-
-    return charged_crystal(atoms, options.charges, options.rules, symprec=options.symprec, source=task.source,
-                           min_distance=options.min_distance, occupancy=options.occupancy,
-                           max_atoms=options.max_atoms)[0]
+def _charged_crystal(table, task, options):
+    """The crystal of a task with charges as the options say, by the loader's own charge step."""
+    return charge_table(table, options.charges, rules=dict(options.rules), source=task.source,
+                        symprec=options.symprec, min_distance=options.min_distance, occupancy=options.occupancy,
+                        max_atoms=options.max_atoms, allow_net_charge=options.allow_net_charge).crystal
 
 
 def _space_group(crystal, symprec):
@@ -878,7 +883,8 @@ class ScreenSummary:
 def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="file", charge_rules=None,
            tol=1e-8, workers=None, scheduler=None, timeout=None, resume=False, sites=None, write_db=False,
            chunk_size=256, progress=True, spectrum_length=None, symprec=None, min_distance=0.5,
-           max_atoms=None, occupancy="average", progress_every=10.0, overwrite=False) -> ScreenSummary:
+           max_atoms=None, occupancy="average", progress_every=10.0, allow_net_charge=False,
+           overwrite=False) -> ScreenSummary:
     """Screen many structures and write one row each (see the module docstring).
 
     Parameters
@@ -915,6 +921,8 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
         Smallest number of rows written at once (chunks grow to a quarter of the table).
     progress : bool
         Show progress on stderr (a bar on a terminal, a line every ``progress_every`` s otherwise).
+    allow_net_charge : bool
+        Sum structures the file leaves charged with a neutralizing background instead of failing them.
 
     Returns
     -------
@@ -938,7 +946,7 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
         spectrum_length=SPECTRUM_LENGTH if spectrum_length is None else int(spectrum_length),
         symprec=DEFAULT_SYMPREC if symprec is None else float(symprec), min_distance=float(min_distance),
         max_atoms=DEFAULT_MAX_ATOMS if max_atoms is None else int(max_atoms), occupancy=occupancy,
-        sites=bool(sites))
+        sites=bool(sites), allow_net_charge=bool(allow_net_charge))
     columns = table_columns(options.spectrum_length)
     table = TableWriter(out, columns)
     site_writer = TableWriter(sites, site_table_columns()) if sites else None

@@ -299,6 +299,7 @@ def standard_cell(crystal, kind="conventional", symprec=DEFAULT_SYMPREC):
     frac = frac - np.floor(frac + 1e-9)
     positions = frac @ lattice
     species = None if crystal.species is None else [crystal.species[i] for i in picked]
+    states = None if crystal.species_states is None else [crystal.species_states[i] for i in picked]
     return crystal.replace(cell=lattice, positions=positions, charges=crystal.charges[picked],
                            symbols=[crystal.symbols[i] for i in picked], labels=[crystal.labels[i] for i in picked],
-                           occupancies=crystal.occupancies[picked], species=species)
+                           occupancies=crystal.occupancies[picked], species=species, species_states=states)

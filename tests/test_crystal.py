@@ -6,7 +6,7 @@ from ase.build import bulk
 
 import madelung
 from madelung import Crystal, InputError
-from madelung.crystal import parse_typed_symbol
+from madelung.io.cif import parse_typed_symbol
 
 from conftest import load
 

@@ -1,13 +1,22 @@
 """Oxidation-state assignment: enumerate charge-neutral assignments and rank them.
 
-Every crystallographic orbit (set of symmetry-equivalent sites) gets one state per species,
-chosen from the element's common oxidation states (:func:`madelung.elements.common_oxidation_states`).
+Every crystallographic orbit (set of symmetry-equivalent sites) gets one state per species.
 States the structure file gives are kept. Symmetry-distinct sites of one element may differ
 (Fe2+ on one orbit, Fe3+ on another).
 
+Candidate states and their prior
+--------------------------------
+The candidates come from every state known for the element (:mod:`.common_states`), with a
+two-level prior on how often states occur: the common states (Greenwood & Earnshaw) are
+searched first; the rare ones are searched as well only when no charge-neutral assignment of
+common states exists or the best one misfits its bond-valence sums by more than
+:data:`WIDEN_MISFIT`. A rare-state candidate is kept only when its bond-valence sums can be
+computed (an unverifiable exotic state is not offered), and it ranks below a common-state one
+unless the bond valences favour it.
+
 Mixed valence on one orbit
 --------------------------
-An orbit may also carry the average of two adjacent common states of its element in steps of
+An orbit may also carry the average of two adjacent integer states of its element in steps of
 1/``mixing_denominator`` (default 1/2): half its ions in one state and half in the other, as in
 magnetite's octahedral 16d site (Fe2+/Fe3+, average +2.5). Such an average is a mean-field
 charge, not an oxidation state; candidates that need it are ranked below equally good integer
@@ -23,8 +32,9 @@ Ranking (first difference decides)
 3. Bond-valence sums (:mod:`.bond_valence`), when parameters exist for every bond of every
    candidate: the root-mean-square relative misfit between sum and state, compared in bins of
    :data:`BOND_VALENCE_BIN` so that small differences fall through to the next keys.
-4. Fewer orbits with a mixed-valence average.
-5. Lower electrostatic (Madelung) energy per formula unit, from the Ewald sum.
+4. Fewer sites in rarely seen states (the prior).
+5. Fewer orbits with a mixed-valence average.
+6. Lower electrostatic (Madelung) energy per formula unit, from the Ewald sum.
 
 The energy alone always favours the highest charges; the first keys are what make it usable.
 All of this is a model: formal states are bookkeeping of the ionic limit, not measured charges.
@@ -34,6 +44,7 @@ References
 L. Pauling, J. Am. Chem. Soc. 54 (1932) 3570 (electronegativity).
 I. D. Brown and D. Altermatt, Acta Cryst. B41 (1985) 244 (bond valence).
 P. P. Ewald, Ann. Phys. 369 (1921) 253 (the lattice sum).
+N. N. Greenwood and A. Earnshaw, Chemistry of the Elements, 2nd ed. (1997) (common states).
 """
 
 from __future__ import annotations
@@ -45,9 +56,13 @@ from fractions import Fraction
 import numpy as np
 
 from .. import elements
+from ..crystal import ion_text
 from ..errors import InputError
+from ..ewald.matrix import potentials_for_charge_sets
 from ..symmetry import DEFAULT_SYMPREC, analyse
 from . import bond_valence
+from .common_states import adjacent_pair, common_states, is_common
+from .common_states import known_states as all_known_states
 
 #: Bins of the bond-valence misfit used for ranking (relative units).
 BOND_VALENCE_BIN = 0.05
@@ -57,6 +72,12 @@ DEFAULT_MAX_CANDIDATES = 400
 
 #: Accuracy of the Ewald sums used for ranking (relative, as in :func:`madelung.ewald`).
 RANKING_TOL = 1e-6
+
+#: When the best assignment of common states misfits its bond-valence sums by more than this
+#: (root-mean-square relative deviation), rarely seen states are searched too; and a chosen
+#: assignment above it is reported as doubtful. Agreement within 10-15 % is usual for ionic
+#: solids (see :mod:`.bond_valence`); 25 % is well outside it.
+WIDEN_MISFIT = 0.25
 
 
 @dataclass(frozen=True)
@@ -82,8 +103,12 @@ class SiteGroup:
 
     @property
     def species_label(self) -> str:
+        """As :meth:`madelung.Crystal.species_label`: ``Fe0.5Ti0.5``, ``Mn3+0.7Mn4+0.3`` (states shown
+        where one element comes in several)."""
         if len(self.species) == 1 and self.species[0][1] >= 1 - 1e-6:
             return self.species[0][0]
+        if len({el for el, _ in self.species}) < len(self.species):
+            return "".join(f"{ion_text(el, st)}{occ:g}" for (el, occ), st in zip(self.species, self.fixed))
         return "".join(f"{el}{occ:g}" for el, occ in self.species)
 
 
@@ -102,6 +127,7 @@ class Candidate:
     bond_valence_misfit : root-mean-square relative misfit of the sums, or None.
     mixed_groups : groups carrying a mixed-valence average.
     energy_per_formula_unit : electrostatic energy per formula unit, eV (signed).
+    rare_sites : sites holding a state outside the element's common ones (the prior's penalty).
     """
 
     states: tuple
@@ -113,12 +139,13 @@ class Candidate:
     bond_valence_misfit: float | None
     mixed_groups: int
     energy_per_formula_unit: float
+    rare_sites: int = 0
 
     def key(self, use_bond_valence):
         bvs = 0
         if use_bond_valence and self.bond_valence_misfit is not None:
             bvs = int(self.bond_valence_misfit / BOND_VALENCE_BIN)
-        return (self.electronegativity_violations, self.wrong_sign_sites, bvs, self.mixed_groups,
+        return (self.electronegativity_violations, self.wrong_sign_sites, bvs, self.rare_sites, self.mixed_groups,
                 round(self.energy_per_formula_unit, 6))
 
 
@@ -134,8 +161,9 @@ class OxidationAssignment:
     space_group : space-group symbol and number, e.g. ``"Fd-3m (227)"``.
     used_bond_valence : whether bond-valence sums took part in the ranking.
     truncated : True if the enumeration stopped at ``max_candidates``.
-    reason : why the best candidate beat the runner-up, in words.
+    reason : why the best candidate beat the runner-up, in words (with the bond-valence misfits).
     formula_units : formula units per cell used for the energies.
+    searched_rare_states : True if rarely seen states were searched too (see the module docstring).
     """
 
     source: str | None
@@ -146,6 +174,13 @@ class OxidationAssignment:
     truncated: bool
     reason: str
     formula_units: int
+    searched_rare_states: bool = False
+
+    @property
+    def doubtful(self) -> bool:
+        """True when the chosen assignment misfits its bond-valence sums by more than WIDEN_MISFIT."""
+        misfit = self.best.bond_valence_misfit
+        return misfit is not None and misfit > WIDEN_MISFIT
 
     @property
     def best(self) -> Candidate:
@@ -175,14 +210,10 @@ def _state_text(q):
 
 
 def mixed_pair(element, q):
-    """The two adjacent common states of ``element`` whose average ``q`` is, or None for a common state."""
-    states = sorted(int(s) for s in elements.common_oxidation_states(element))
-    if any(abs(q - s) < 1e-9 for s in states):
+    """The two adjacent integer states whose average ``q`` is (Mn 3.5 -> (3, 4)), or None for an integer."""
+    if abs(q - round(q)) < 1e-9:
         return None
-    for low, high in zip(states, states[1:]):
-        if low < q < high:
-            return low, high
-    return math.floor(q), math.ceil(q)
+    return adjacent_pair(element, q)
 
 
 def mixed_note(element, q):
@@ -201,25 +232,26 @@ def _as_fraction(value, limit=1000):
     return Fraction(value).limit_denominator(limit)
 
 
-def allowed_states(element, mixing_denominator=2, source=None):
-    """States an orbit of ``element`` may take: the common oxidation states, plus averages of two
-    adjacent states of the same sign in steps of 1/``mixing_denominator``. Fractions, sorted."""
+def allowed_states(element, mixing_denominator=2, source=None, rare=False):
+    """States an orbit of ``element`` may take: its common oxidation states (or, with ``rare``, every
+    known state), plus averages of two adjacent positive integer states, both allowed, in steps of
+    1/``mixing_denominator``. Fractions, sorted."""
     where = f"{source}: " if source else ""
     try:
-        states = elements.common_oxidation_states(element)
+        states = all_known_states(element) if rare else common_states(element)
     except InputError:
         raise InputError(f"{where}unknown element symbol {element!r}; give its charge with --charge") from None
-    states = sorted({int(s) for s in states if int(s) != 0})
     if not states:
-        raise InputError(f"{where}element {element} has no common oxidation state in the periodic-table data; "
+        raise InputError(f"{where}element {element} has no known oxidation state in the periodic-table data; "
                          f"give its charge, e.g. --charge {element}=+1")
     values = {Fraction(s) for s in states}
-    for a, b in zip(states, states[1:]):
-        if a * b <= 0:
+    for a in states:
+        b = a + 1
+        if b not in states or a <= 0:      # averages of cation states only (mixed-valence metals)
             continue
         for d in range(2, int(mixing_denominator) + 1):
             for k in range(1, d):
-                values.add(Fraction(a) + Fraction(b - a) * Fraction(k, d))
+                values.add(Fraction(a) + Fraction(k, d))
     return sorted(values)
 
 
@@ -297,8 +329,8 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
     crystal : Crystal
         The structure (its charges are ignored).
     known_states : sequence, optional
-        Per site, a tuple with the state of each species or None where unknown (as
-        :func:`madelung.crystal.file_states` returns); these are kept.
+        Per site, a tuple with the state of each species or None where unknown (the loader,
+        :mod:`madelung.io.read`, passes the file's states and the charge rules); these are kept.
     symprec : float
         Symmetry tolerance for the orbits, Å.
     mixing_denominator : int
@@ -321,8 +353,6 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
     ----------
     See the module docstring.
     """
-    from ..ewald.matrix import potentials_for_charge_sets
-
     source = crystal.source
     where = f"{source}: " if source else ""
     try:
@@ -332,52 +362,101 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
     if mixing_denominator < 1:
         raise InputError(f"mixing denominator must be at least 1, got {mixing_denominator}")
     groups, info = site_groups(crystal, known_states, symprec)
+    target = _as_fraction(total_charge)
+    scorer = _Scorer(crystal, groups, tol)
 
+    options = _options(groups, mixing_denominator, source, False)
+    found, truncated = _enumerate(options, target, int(max_candidates))
+    candidates = [scorer.score(_states(options, choice)) for choice in found]
+    use_bvs = _bond_valence_usable(candidates, scorer)
+    candidates.sort(key=lambda c: c.key(use_bvs))
+    widened = not candidates or (candidates[0].bond_valence_misfit or 0) > WIDEN_MISFIT
+    if widened:
+        options = _options(groups, mixing_denominator, source, True)
+        try:
+            rare, cut = _enumerate(options, target, int(max_candidates))
+        except InputError:
+            if not candidates:
+                raise
+            rare, cut = [], True          # too many rare combinations: keep the common-state candidates
+        seen = {c.states for c in candidates}
+        extra = [scorer.score(_states(options, choice)) for choice in rare]
+        extra = [c for c in extra if c.states not in seen]
+        # a rarely seen state is offered only where its bond valences can be checked, unless nothing else is left
+        checked = [c for c in extra if c.rare_sites == 0 or c.bond_valence_misfit is not None]
+        extra = checked if (checked or candidates) else extra
+        candidates += extra
+        truncated = truncated or cut
+        use_bvs = _bond_valence_usable(candidates, scorer)
+        candidates.sort(key=lambda c: c.key(use_bvs))
+    if not candidates:
+        listing = "; ".join(f"{el}: {', '.join(_state_text(float(v)) for v in allowed_states(el, 1, source, True))}"
+                            for el in dict.fromkeys(el for g in groups for el, _ in g.species))
+        raise InputError(f"{where}no charge-neutral assignment of the known oxidation states exists ({listing}); "
+                         "give the charges with --charge, e.g. --charge " + f"{groups[0].species[0][0]}=VALUE")
+    reason = _reason(candidates, use_bvs)
+    return OxidationAssignment(source=source, groups=groups, candidates=tuple(candidates),
+                               space_group=f"{info.symbol} ({info.number})", used_bond_valence=use_bvs,
+                               truncated=truncated, reason=reason, formula_units=crystal.formula_units,
+                               searched_rare_states=widened)
+
+
+def _states(options, choice):
+    return [options[g][k][1] for g, k in enumerate(choice)]
+
+
+def _options(groups, mixing_denominator, source, rare):
+    """Per group, the (total charge of the group, states) choices."""
     options = []
     for group in groups:
         per_species = []
         for (element, occ), fixed in zip(group.species, group.fixed):
-            values = [_as_fraction(fixed)] if fixed is not None else allowed_states(element, mixing_denominator, source)
+            values = [_as_fraction(fixed)] if fixed is not None else allowed_states(element, mixing_denominator,
+                                                                                   source, rare)
             per_species.append([(v, _as_fraction(occ)) for v in values])
         combos = [((), Fraction(0))]
         for choices in per_species:
             combos = [(states + (v,), total + occ * v) for states, total in combos for v, occ in choices]
         m = len(group.sites)
         options.append([(m * total, states) for states, total in combos])
+    return options
 
-    found, truncated = _enumerate(options, _as_fraction(total_charge), int(max_candidates))
-    if not found:
-        listing = "; ".join(f"{el}: {', '.join(_state_text(float(v)) for v in allowed_states(el, 1, source))}"
-                            for el in dict.fromkeys(el for g in groups for el, _ in g.species))
-        raise InputError(f"{where}no charge-neutral assignment of the common oxidation states exists ({listing}); "
-                         "give the charges with --charge, e.g. --charge " + f"{groups[0].species[0][0]}=VALUE")
 
-    # one Ewald sum per group gives the potentials of every candidate (the sum is linear)
-    n = len(crystal)
-    indicator = np.zeros((len(groups), n))
-    for group in groups:
-        indicator[group.index, list(group.sites)] = 1.0
-    by_group = potentials_for_charge_sets(crystal.cell, crystal.positions, indicator, tol=tol)
-    reps = [group.sites[0] for group in groups]
-    phi_matrix = by_group[:, reps].T          # phi at rep of g from unit charges on group h
-    multiplicity = np.array([len(group.sites) for group in groups], dtype=float)
-    z = crystal.formula_units
+def _bond_valence_usable(candidates, scorer):
+    """Bond valences rank only when every candidate has a sum for every non-averaged group."""
+    averaged = scorer.averaged
+    return bool(candidates) and not all(averaged) and all(
+        all(s is not None for s, a in zip(c.bond_valence_sums, averaged) if not a) for c in candidates)
 
-    # bond-valence neighbours of each representative, once
-    element_set = {el for g in groups for el, _ in g.species}
-    neighbours = bond_valence.neighbour_lists(crystal, reps, bond_valence.search_radius(element_set))
-    group_of_site = np.empty(n, dtype=np.int64)
-    for group in groups:
-        group_of_site[list(group.sites)] = group.index
-    averaged = [crystal.is_averaged(group.sites[0]) for group in groups]
 
-    candidates = []
-    for choice in found:
-        states = [options[g][k][1] for g, k in enumerate(choice)]
+class _Scorer:
+    """Scores candidates of one crystal: one Ewald sum per group serves them all (the sum is linear)."""
+
+    def __init__(self, crystal, groups, tol):
+        n = len(crystal)
+        self.groups = groups
+        indicator = np.zeros((len(groups), n))
+        for group in groups:
+            indicator[group.index, list(group.sites)] = 1.0
+        by_group = potentials_for_charge_sets(crystal.cell, crystal.positions, indicator, tol=tol)
+        reps = [group.sites[0] for group in groups]
+        self.phi_matrix = by_group[:, reps].T          # phi at rep of g from unit charges on group h
+        self.multiplicity = np.array([len(group.sites) for group in groups], dtype=float)
+        self.z = crystal.formula_units
+        element_set = {el for g in groups for el, _ in g.species}
+        self.neighbours = bond_valence.neighbour_lists(crystal, reps, bond_valence.search_radius(element_set))
+        self.group_of_site = np.empty(n, dtype=np.int64)
+        for group in groups:
+            self.group_of_site[list(group.sites)] = group.index
+        self.averaged = [crystal.is_averaged(group.sites[0]) for group in groups]
+        self.n = n
+
+    def score(self, states) -> "Candidate":
+        groups, averaged = self.groups, self.averaged
         q_group = np.array([float(sum(_as_fraction(occ) * v for (_, occ), v in zip(group.species, st)))
                             for group, st in zip(groups, states)])
-        phi = phi_matrix @ q_group
-        energy = 0.5 * float(np.sum(multiplicity * q_group * phi))
+        phi = self.phi_matrix @ q_group
+        energy = 0.5 * float(np.sum(self.multiplicity * q_group * phi))
         positive, negative = set(), set()
         for group, st in zip(groups, states):
             for (el, _), v in zip(group.species, st):
@@ -390,57 +469,64 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
                     violations += 1
         wrong = int(sum(len(g.sites) for g, qg, ph in zip(groups, q_group, phi) if qg * ph > 0))
         sums = []
-        for g, (partners, distances) in enumerate(neighbours):
-            if averaged[g] or any(averaged[group_of_site[j]] for j in partners):
+        for g, (partners, distances) in enumerate(self.neighbours):
+            if averaged[g] or any(averaged[self.group_of_site[j]] for j in partners):
                 sums.append(None)
                 continue
             el = groups[g].species[0][0]
-            partner_groups = group_of_site[partners]
-            value = bond_valence.site_sum(el, q_group[g], [groups[h].species[0][0] for h in partner_groups],
-                                          q_group[partner_groups], distances)
-            sums.append(value)
-        covered = [(s, abs(q), m) for s, q, m in zip(sums, q_group, multiplicity) if s is not None and q != 0]
+            partner_groups = self.group_of_site[partners]
+            sums.append(bond_valence.site_sum(el, q_group[g], [groups[h].species[0][0] for h in partner_groups],
+                                              q_group[partner_groups], distances))
+        covered = [(s, abs(q), m) for s, q, m in zip(sums, q_group, self.multiplicity) if s is not None and q != 0]
         misfit = None
         if covered:
             misfit = math.sqrt(sum(m * ((s - q) / q) ** 2 for s, q, m in covered) / sum(m for *_, m in covered))
         mixed = sum(1 for group, st in zip(groups, states)
                     if any(mixed_pair(el, float(v)) is not None for (el, _), v in zip(group.species, st)))
-        charges = np.empty(n)
+        rare = sum(len(group.sites) for group, st in zip(groups, states)
+                   if any(fixed is None and not is_common(el, v)
+                          for (el, _), v, fixed in zip(group.species, st, group.fixed)))
+        charges = np.empty(self.n)
         for group, qg in zip(groups, q_group):
             charges[list(group.sites)] = qg
         charges.setflags(write=False)
-        candidates.append(Candidate(states=tuple(tuple(float(v) for v in st) for st in states), charges=charges,
-                                    electronegativity_violations=violations, wrong_sign_sites=wrong,
-                                    potentials=tuple(float(x) for x in phi), bond_valence_sums=tuple(sums),
-                                    bond_valence_misfit=misfit, mixed_groups=mixed,
-                                    energy_per_formula_unit=energy / z))
-    use_bvs = all(all(s is not None for s, g in zip(c.bond_valence_sums, groups) if not averaged[g.index])
-                  for c in candidates) and not all(averaged)
-    candidates.sort(key=lambda c: c.key(use_bvs))
-    reason = _reason(candidates, use_bvs)
-    return OxidationAssignment(source=source, groups=groups, candidates=tuple(candidates),
-                               space_group=f"{info.symbol} ({info.number})", used_bond_valence=use_bvs,
-                               truncated=truncated, reason=reason, formula_units=z)
+        return Candidate(states=tuple(tuple(float(v) for v in st) for st in states), charges=charges,
+                         electronegativity_violations=violations, wrong_sign_sites=wrong,
+                         potentials=tuple(float(x) for x in phi), bond_valence_sums=tuple(sums),
+                         bond_valence_misfit=misfit, mixed_groups=mixed, energy_per_formula_unit=energy / self.z,
+                         rare_sites=rare)
+
+
+def _misfit_text(candidate):
+    m = candidate.bond_valence_misfit
+    rare = f"; {candidate.rare_sites} sites in rarely seen states" if candidate.rare_sites else ""
+    if m is None:
+        return "bond valence not checked" + rare
+    return f"bond-valence misfit {m:.1%}" + (" — doubtful" if m > WIDEN_MISFIT else "") + rare
 
 
 def _reason(candidates, use_bvs):
     if len(candidates) == 1:
-        return "the only charge-neutral assignment of the common oxidation states"
+        return f"the only charge-neutral assignment found ({_misfit_text(candidates[0])})"
     best, second = candidates[0], candidates[1]
+    versus = f" [{_misfit_text(best)}; runner-up {_misfit_text(second)}]"
     if best.electronegativity_violations != second.electronegativity_violations:
         return (f"electronegativity order: {best.electronegativity_violations} vs "
                 f"{second.electronegativity_violations} cation–anion pairs where the anion is the less "
-                "electronegative element")
+                "electronegative element" + versus)
     if best.wrong_sign_sites != second.wrong_sign_sites:
         return (f"site potentials: {best.wrong_sign_sites} vs {second.wrong_sign_sites} sites whose potential "
-                "has the same sign as their charge")
+                "has the same sign as their charge" + versus)
     b, s = best.key(use_bvs), second.key(use_bvs)
     if b[2] != s[2]:
         return (f"bond-valence sums: misfit {best.bond_valence_misfit:.1%} vs {second.bond_valence_misfit:.1%} "
                 "(root-mean-square relative deviation from the states)")
     if b[3] != s[3]:
-        return "integer states preferred over a mixed-valence average (otherwise equally plausible)"
+        return (f"common oxidation states preferred over rarely seen ones ({best.rare_sites} vs {second.rare_sites} "
+                "sites in rare states)" + versus)
     if b[4] != s[4]:
+        return "integer states preferred over a mixed-valence average (otherwise equally plausible)" + versus
+    if b[5] != s[5]:
         return (f"lower electrostatic energy per formula unit: {best.energy_per_formula_unit:.4f} vs "
-                f"{second.energy_per_formula_unit:.4f} eV")
-    return "tied with the runner-up on every criterion; the first one found is shown"
+                f"{second.energy_per_formula_unit:.4f} eV" + versus)
+    return "tied with the runner-up on every criterion; the first one found is shown" + versus
