@@ -29,8 +29,8 @@ sys.path.insert(0, ".")
 import madelung  # noqa: E402
 from madelung.ewald import kernels  # noqa: E402
 from madelung.ewald import mesh as mesh_mod  # noqa: E402
-from madelung.ewald.plan import reciprocal_vectors, reduced_basis, shortest_distance  # noqa: E402
-from madelung.geometry import wrapped_fractional  # noqa: E402
+from madelung.ewald.plan import reciprocal_vectors  # noqa: E402
+from madelung.geometry import reduced_basis, shortest_distance, wrapped_fractional  # noqa: E402
 from madelung.units import COULOMB_CONSTANT  # noqa: E402
 
 

@@ -1873,6 +1873,32 @@ def _run_orderings(args):
 
 
 # ---------------------------------------------------------------- main
+# ---------------------------------------------------------------- compile
+def _add_compile(sub):
+    parser = sub.add_parser("compile", help="compile every numerical kernel now, into the on-disk cache",
+                            description="Run each engine once on a two-ion cell so that every numerical kernel "
+                                        "is compiled and cached before the first real job (about a minute on a "
+                                        "new machine; a second or two once cached). For cluster images, "
+                                        "containers and CI.")
+    parser.add_argument("--json", action="store_true", help="print the steps and their times as JSON")
+    return parser
+
+
+def _run_compile(args):
+    from .precompile import compile_kernels
+
+    def progress(index, count, name):
+        if not args.json:
+            print(f"  [{index + 1}/{count}] compiling {name} ...", flush=True)
+
+    result = compile_kernels(progress)
+    if args.json:
+        _print_json(result.to_dict())
+        return 0
+    print(f"compiled and cached in {result.total_seconds:.1f} s")
+    return 0
+
+
 COMMANDS = {
     "energy": (_add_energy, _run_energy),
     "sites": (_add_sites, _run_sites),
@@ -1890,6 +1916,7 @@ COMMANDS = {
     "eos": (_add_eos, _run_eos),
     "embed": (_add_embed, _run_embed),
     "orderings": (_add_orderings, _run_orderings),
+    "compile": (_add_compile, _run_compile),
 }
 
 

@@ -56,8 +56,8 @@ from .crystal import Crystal
 from .errors import InputError, MadelungWarning
 from .ewald import kernels, point_kernels
 from .ewald.direct import EwaldParameters
-from .ewald.plan import NEUTRAL_TOLERANCE, plan_for, plan_sum, reciprocal_vectors, reduced_basis
-from .geometry import (EXAMINED_PAIR_NS, build_bins, nearest_neighbour_distances, plane_spacings,
+from .ewald.plan import NEUTRAL_TOLERANCE, plan_for, plan_sum, reciprocal_vectors
+from .geometry import (EXAMINED_PAIR_NS, build_bins, nearest_neighbour_distances, plane_spacings, reduced_basis,
                        thread_budget, wrapped_fractional)
 from .units import COULOMB_CONSTANT
 

@@ -6,13 +6,38 @@ walk pairs through the same :class:`CellBins`; only their kernels differ.
 
 from __future__ import annotations
 
+import os
+import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numba
 import numpy as np
+import spglib
 
 from . import geometry_kernels as gk
+
+def _choose_threading():
+    """Threading layer and OpenMP waiting, unless the user has chosen them.
+
+    Numba's "threadsafe" layers (TBB when its library is installed, else OpenMP): kernels may be
+    launched from several Python threads at once (ASE calculators, Dask workers), which Numba's
+    own workqueue layer answers by aborting the process. Idle OpenMP threads sleep at once
+    (``OMP_WAIT_POLICY=PASSIVE``) instead of spinning for some hundred microseconds (GNU OpenMP's
+    default), which on a machine shared with other work takes cores from it and from our own
+    threads that still have work; waking a sleeping thread costs some microseconds, and parallel
+    kernels run only for work of milliseconds (``thread_budget``). Measured in
+    benchmarks/threads.py. Both must be set before the first parallel kernel runs: the layer is
+    fixed then, and OpenMP reads its environment once, when it is loaded.
+    """
+    if "NUMBA_THREADING_LAYER" not in os.environ and numba.config.THREADING_LAYER == "default":
+        os.environ["NUMBA_THREADING_LAYER"] = "threadsafe"
+        numba.config.THREADING_LAYER = "threadsafe"
+    if not any(name in os.environ for name in ("OMP_WAIT_POLICY", "GOMP_SPINCOUNT", "KMP_BLOCKTIME")):
+        os.environ["OMP_WAIT_POLICY"] = "PASSIVE"
+
+
+_choose_threading()
 
 
 #: Work predicted to take less than this (ns of one thread) runs on one thread: waking a thread
@@ -33,6 +58,26 @@ def thread_budget(predicted_ns):
         yield
     finally:
         numba.set_num_threads(previous)
+
+
+def reduced_basis(cell):
+    """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
+    Niggli-reduced, right-handed basis (Křivý & Gruber, Acta Cryst. A32 (1976) 297) of the lattice (the cell itself if spglib cannot reduce it)."""
+    cell = np.asarray(cell, dtype=float)
+    try:
+        with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
+            warnings.simplefilter("ignore", DeprecationWarning)
+            reduced = spglib.niggli_reduce(cell, eps=1e-5)
+    except Exception:  # spglib reports failures as None or as an error depending on its version
+        reduced = None
+    if reduced is None:
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+    change = np.rint(np.asarray(reduced) @ np.linalg.inv(cell)).astype(np.int64)
+    if round(abs(np.linalg.det(change))) != 1:
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+    if np.linalg.det(change @ cell) < 0:
+        change = -change
+    return np.ascontiguousarray(change @ cell), change
 
 
 def plane_spacings(cell) -> np.ndarray:
@@ -118,8 +163,12 @@ def stencil_offsets(cell, counts, reach, cutoff):
 
 
 def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0) -> CellBins:
-    """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction."""
-    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction.
+
+    The bins are laid on the reduced basis of the lattice (``CellBins.cell``), so the walk visits a
+    compact stencil whatever basis the cell is written in; positions and results are Cartesian.
+    """
+    cell, _ = reduced_basis(cell)
     n = len(positions)
     spacing = plane_spacings(cell)
     counts = np.maximum(1, np.floor(bins_per_cutoff * spacing / cutoff)).astype(np.int64)
@@ -168,6 +217,27 @@ def nearest_neighbour_distances(cell, positions, charges):
         missing = np.isinf(to_any) | (has_opposite & np.isinf(to_opposite))
         if not missing.any() or cutoff > 2 * longest:
             return to_any, to_opposite, partner
+        cutoff *= 2.0
+
+
+def shortest_distance(cell, positions) -> float:
+    """Shortest interionic distance, periodic images included, Å (one pass over each pair once).
+
+    The same value as the minimum of :func:`nearest_neighbour_distances`, without the per-atom
+    bookkeeping: the search starts at twice the mean spacing and doubles until a pair is found.
+    """
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    positions = np.asarray(positions, dtype=np.float64)
+    n = len(positions)
+    cutoff = 2.0 * (abs(np.linalg.det(cell)) / n) ** (1.0 / 3.0)
+    while True:
+        bins = build_bins(cell, positions, cutoff)
+        examined = n * n * bins.examined_volume / abs(np.linalg.det(cell)) / 2
+        with thread_budget(examined * EXAMINED_PAIR_NS):
+            found = gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                        bins.bin_start)
+        if found <= cutoff:
+            return float(found)
         cutoff *= 2.0
 
 

@@ -11,9 +11,16 @@ Kernels here do arithmetic only; the Python side (``geometry.py``) builds the bi
 """
 
 import math
-
 import numpy as np
 from numba import njit, prange
+
+
+#: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
+#: set-up (zeros, sums of a few rows) stays serial instead of becoming parallel regions of its
+#: own, each of which wakes the thread team (costly when the threads sleep between regions, see
+#: ``geometry._choose_threading``, and for small cells).
+PRANGE_ONLY = {"prange": True, "reduction": True, "numpy": False, "setitem": False, "inplace_binop": False,
+               "comprehension": False, "stencil": False, "fusion": False}
 
 
 @njit(cache=True, inline="always")
@@ -149,3 +156,127 @@ def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut
                     p += 1
         total = p
     return owner, partner, distance
+
+
+@njit(cache=True)
+def half_stencil_rows(offsets):
+    """The half of a symmetric stencil that finds each pair once, as rows along the last axis.
+
+    Returns (R, 4) int64 rows ``(d0, d1, lo, hi)``: the offsets (d0, d1, d2) with lo <= d2 <= hi.
+    Kept are the offsets after (0, 0, 0) in lexicographic order and (0, 0, 0) itself, whose
+    pairs (same bin, same image) are taken only with a later atom. An offset and its negative
+    reach the same pairs from the two ends, so the other half adds nothing. The stencil's offsets
+    with a given (d0, d1) must be a contiguous range of d2 (true of ``geometry.stencil_offsets``).
+    """
+    k = offsets.shape[0]
+    low = offsets.min()
+    width = offsets.max() - low + 1
+    key = np.empty(k, dtype=np.int64)
+    for o in range(k):
+        key[o] = ((offsets[o, 0] - low) * width + offsets[o, 1] - low) * width + offsets[o, 2] - low
+    order = np.argsort(key)
+    rows = np.empty((k, 4), dtype=np.int64)
+    n_rows = 0
+    for p in range(k):
+        o = order[p]
+        d0 = offsets[o, 0]
+        d1 = offsets[o, 1]
+        d2 = offsets[o, 2]
+        if d0 < 0 or (d0 == 0 and (d1 < 0 or (d1 == 0 and d2 < 0))):
+            continue
+        if n_rows > 0 and rows[n_rows - 1, 0] == d0 and rows[n_rows - 1, 1] == d1:
+            rows[n_rows - 1, 3] = d2
+        else:
+            rows[n_rows, 0] = d0
+            rows[n_rows, 1] = d1
+            rows[n_rows, 2] = d2
+            rows[n_rows, 3] = d2
+            n_rows += 1
+    return rows[:n_rows].copy()
+
+
+@njit(cache=True)
+def range_capacity(rows, counts):
+    """Most index ranges ``half_stencil_ranges`` can return for one atom."""
+    total = 0
+    for r in range(rows.shape[0]):
+        total += (rows[r, 3] - rows[r, 2]) // counts[2] + 2
+    return total
+
+
+@njit(cache=True, inline="always")
+def half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift):
+    """The partners of atom i over the half stencil ``rows``, as index ranges of the sorted atoms:
+    range g is ``first[g]`` to ``end[g] - 1``, its atoms seen shifted by the lattice vector
+    ``shift[g]``. Returns the number of ranges (at most ``range_capacity(rows, counts)``).
+
+    Each row (d0, d1, lo, hi) of bins is contiguous in bin order along the last axis, so its atoms
+    are one index range, or a few when the row crosses the cell edge (one per periodic image).
+    The row (0, 0) starts after atom i in its own bin, so with ``half_stencil_rows`` each pair
+    (i, j, image) is found exactly once. This is the neighbour walk every pair kernel shares.
+    """
+    k0 = counts[0]
+    k1 = counts[1]
+    k2 = counts[2]
+    b2 = bin_of[i, 2]
+    g = 0
+    for r in range(rows.shape[0]):
+        c0 = bin_of[i, 0] + rows[r, 0]
+        c1 = bin_of[i, 1] + rows[r, 1]
+        s0 = c0 // k0
+        s1 = c1 // k1
+        base = ((c0 - s0 * k0) * k1 + (c1 - s1 * k1)) * k2
+        own_row = rows[r, 0] == 0 and rows[r, 1] == 0
+        c2 = b2 + rows[r, 2]
+        last = b2 + rows[r, 3]
+        s2 = c2 // k2
+        while c2 <= last:
+            stop = min(last, (s2 + 1) * k2 - 1)
+            first[g] = i + 1 if (own_row and c2 == b2) else bin_start[base + c2 - s2 * k2]
+            end[g] = bin_start[base + stop - s2 * k2 + 1]
+            for a in range(3):
+                shift[g, a] = s0 * cell[0, a] + s1 * cell[1, a] + s2 * cell[2, a]
+            g += 1
+            c2 = stop + 1
+            s2 += 1
+    return g
+
+
+@njit(cache=True, inline="always")
+def range_origin(i, g, xs, ys, zs, shift):
+    """Position of atom i less the lattice shift of range g: r_i - r_j - shift = origin - r_j."""
+    return xs[i] - shift[g, 0], ys[i] - shift[g, 1], zs[i] - shift[g, 2]
+
+
+@njit(parallel=True, cache=True, fastmath={"contract"})
+def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
+    """Shortest distance between two atoms, or an atom and another's or its own image, among the
+    pairs the stencil reaches (``inf`` if none), walking each pair once (``half_stencil_ranges``).
+
+    Atoms must be sorted by bin; the inner loop is a plain minimum over an index range.
+    """
+    n = positions.shape[0]
+    rows = half_stencil_rows(offsets)
+    capacity = range_capacity(rows, counts)
+    xs = positions[:, 0].copy()
+    ys = positions[:, 1].copy()
+    zs = positions[:, 2].copy()
+    n_chunks = min(n, 64)
+    chunk = (n + n_chunks - 1) // n_chunks
+    best = np.full(n_chunks, np.inf)
+    for c in prange(n_chunks):
+        first = np.empty(capacity, dtype=np.int64)
+        end = np.empty(capacity, dtype=np.int64)
+        shift = np.empty((capacity, 3))
+        lowest = np.inf
+        for i in range(c * chunk, min(n, (c + 1) * chunk)):
+            n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
+            for g in range(n_ranges):
+                ox, oy, oz = range_origin(i, g, xs, ys, zs, shift)
+                for j in range(first[g], end[g]):
+                    dx = ox - xs[j]
+                    dy = oy - ys[j]
+                    dz = oz - zs[j]
+                    lowest = min(lowest, dx * dx + dy * dy + dz * dz)
+        best[c] = lowest
+    return math.sqrt(best.min())

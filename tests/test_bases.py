@@ -170,3 +170,16 @@ def test_a_change_of_basis_must_keep_the_lattice():
         crystal.in_basis([[2, 0, 0], [0, 1, 0], [0, 0, 1]])  # a supercell, not the same lattice
     with pytest.raises(madelung.InputError, match="whole numbers"):
         crystal.in_basis([[1, 0.5, 0], [0, 1, 0], [0, 0, 1]])
+
+
+def test_a_strongly_skewed_basis_gives_the_same_neighbours_and_sums():
+    # entries up to 40: lattice vectors over 200 times longer than the reduced ones; the neighbour
+    # walks lay their bins on the reduced basis, so distances and sums are those of the cubic cell
+    crystal = load("fluorite-CaF2")
+    skewed = crystal.in_basis([[1, 0, 0], [40, 1, 0], [37, 40, 1]])
+    assert np.allclose(np.sort(skewed.nearest_distances()[0]), np.sort(crystal.nearest_distances()[0]), atol=1e-9)
+    tol = 1e-8
+    reference = madelung.ewald(crystal, tol=tol, forces=True)
+    result = madelung.ewald(skewed, tol=tol, forces=True)
+    assert abs(result.energy - reference.energy) <= 2 * tol * reference.energy_scale
+    assert np.allclose(result.forces, reference.forces, atol=1e-6)

@@ -160,3 +160,10 @@ def test_console_script_exit_codes(tmp_path):
     bad = subprocess.run([sys.executable, "-m", "madelung.cli", "energy", str(tmp_path / "missing.cif")],
                          capture_output=True, text=True, env=env)
     assert bad.returncode == 2 and bad.stderr.count("\n") == 1 and "missing.cif" in bad.stderr
+
+
+def test_compile_runs_every_engine(capsys):
+    assert main(["compile", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert len(data["steps"]) == len(data["seconds"]) == 6
+    assert all(s >= 0 for s in data["seconds"])

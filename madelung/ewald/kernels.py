@@ -12,9 +12,12 @@ Reciprocal space, over half of k-space (k and -k give equal terms)::
     S(k)  = sum_j q_j exp(i k.r_j)
     phi_i = sum_k 2 w(k) Re[S(k) exp(-i k.r_i)],   w(k) = (4 pi / V) exp(-k^2 / 4 alpha^2) / k^2
 
-Phases exp(i k.r) come from per-atom tables along each reciprocal axis, built by recurrence
-(exp(2 pi i h f) = exp(2 pi i f)^h), so a k-vector costs two complex products per atom.
-Each atom's terms are accumulated by the thread that owns it: no two threads write one place.
+Phases exp(i k.r) come from tables along each reciprocal axis for a block of atoms, built by
+recurrence (exp(2 pi i h f) = exp(2 pi i f)^h), so a k-vector costs one complex product per atom
+along a run of consecutive l; the loops run over the block's atoms (vector instructions).
+Real space walks half of the bin stencil in rows of bins contiguous in memory, compacts the
+partners inside the cutoff without branches and evaluates erfc with a branch-free polynomial
+(``erfc.py``). Every result is accumulated in a fixed order whatever the number of threads.
 """
 
 import math
@@ -22,27 +25,11 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from ..geometry_kernels import image_shift, neighbour_bin
-from .erfc_coefficients import ERFCX_TABLE
-from .erfc_table import DEGREE, N_INTERVALS, X_MAX
+from ..geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
+                                range_origin)
+from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
-_PIECE = X_MAX / N_INTERVALS
-
-
-@njit(cache=True, inline="always")
-def erfc_and_gaussian(x):
-    """(erfc(x), exp(-x^2)) for x >= 0 from one exponential and the erfcx table (see erfc_table.py)."""
-    gaussian = math.exp(-x * x)
-    if x >= X_MAX:
-        return math.erfc(x), gaussian
-    k = int(x * (1.0 / _PIECE))
-    u = (x - (k + 0.5) * _PIECE) * (2.0 / _PIECE)
-    value = ERFCX_TABLE[k, DEGREE]
-    for d in range(DEGREE - 1, -1, -1):
-        value = value * u + ERFCX_TABLE[k, d]
-    return value * gaussian, gaussian
-
 
 #: Work is split into this many chunks whatever the number of threads, so that the order of
 #: floating-point additions, and with it every digit of the result, does not depend on the machine.
@@ -50,33 +37,63 @@ CHUNKS = 8
 
 
 @njit(cache=True, inline="always")
-def _take_pair(i, j, s0, s1, s2):
-    """Whether atom i's walk takes the pair (i, j, image s): each pair is taken exactly once.
+def gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_start, cut2,
+                    first, end, shift, partner, qs, dxs, dys, dzs, r2s):
+    """Partners of atom i over the half stencil ``rows`` (``geometry_kernels.half_stencil_ranges``),
+    compacted: returns how many lie within the cutoff; their sorted index, charge, separation
+    r_i - r_j - shift and squared distance are in the first entries of ``partner``, ``qs``,
+    ``dxs``, ``dys``, ``dzs``, ``r2s``. ``first``, ``end``, ``shift`` are work space for the ranges.
 
-    Pairs of distinct atoms go to the lower or the higher index by the parity of i + j, which
-    splits every atom's partners about evenly; an atom and its own image go to the positive image.
+    Every candidate is written and the count advances only inside the cutoff: no branch per pair.
     """
-    if i == j:
-        return s0 > 0 or (s0 == 0 and (s1 > 0 or (s1 == 0 and s2 > 0)))
-    if (i + j) % 2 == 0:
-        return i < j
-    return i > j
+    n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
+    m = 0
+    for g in range(n_ranges):
+        ox, oy, oz = range_origin(i, g, xs, ys, zs, shift)
+        for j in range(first[g], end[g]):
+            dx = ox - xs[j]
+            dy = oy - ys[j]
+            dz = oz - zs[j]
+            r2 = dx * dx + dy * dy + dz * dz
+            partner[m] = j
+            qs[m] = charges[j]
+            dxs[m] = dx
+            dys[m] = dy
+            dzs[m] = dz
+            r2s[m] = r2
+            m += r2 < cut2
+    return m
 
 
-@njit(parallel=True, cache=True)
+@njit(cache=True)
+def partner_capacity(rows, bin_start):
+    """Room for the candidates of any atom over the half stencil, plus one spare slot."""
+    largest = 0
+    for b in range(len(bin_start) - 1):
+        largest = max(largest, bin_start[b + 1] - bin_start[b])
+    width = 0
+    for r in range(rows.shape[0]):
+        width += rows[r, 3] - rows[r, 2] + 1
+    return width * largest + 1
+
+
+@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"}, error_model="numpy")
 def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
                      alpha, r_cut, want_forces, want_virial):
     """Real-space potentials, forces and per-atom virial of the screened Coulomb sum.
 
     Atoms must be sorted by bin and ``offsets`` is the bin stencil (see ``geometry.build_bins``).
-    Distances to a bin's atoms are computed first in a unit-stride loop over coordinate columns
-    (which the compiler vectorises), then the pairs inside the cutoff are evaluated. Each pair is once and
-    added to both atoms; atoms are split into ``CHUNKS`` chunks, each accumulating into its own
-    rows, which are summed at the end (no two threads write one place).
+    Each pair (i, j, image) is found once, from the half of the stencil ``half_stencil_rows``
+    keeps, by ``gather_partners``; the pair function over the compacted partners is one
+    branch-free loop (vector instructions, ``erfc.erfc_and_gaussian``); a second loop adds each
+    pair to atom j. Atoms are split into ``CHUNKS`` chunks, each accumulating into its own rows,
+    which are summed at the end in a fixed order (no two threads write one place, and the result
+    does not depend on the number of threads).
 
     Returns ``(potential, forces, virial, pairs)``: potential (N,) in e/Å; forces (N, 3) in
-    e^2/Å^2 (zeros unless asked); virial (N, 6) as xx, yy, zz, yz, xz, xy of dE/d(strain) in e^2/Å
-    (zeros unless asked); pairs, the number of (i, j, image) terms inside the cutoff counting
+    e^2/Å^2 (zeros unless asked); virial (N, 6) as xx, yy, zz, yz, xz, xy of dE/d(strain) in e^2/Å,
+    each pair's whole share in the row of one of its atoms (zeros unless asked; the sum over
+    atoms is the virial); pairs, the number of (i, j, image) terms inside the cutoff counting
     both orders, as in the double sum.
     """
     n = positions.shape[0]
@@ -92,70 +109,87 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
     xs = positions[:, 0].copy()
     ys = positions[:, 1].copy()
     zs = positions[:, 2].copy()
-    largest_bin = 0
-    for b in range(len(bin_start) - 1):
-        largest_bin = max(largest_bin, bin_start[b + 1] - bin_start[b])
+    rows = half_stencil_rows(offsets)
+    capacity = partner_capacity(rows, bin_start)
+    n_range = range_capacity(rows, counts)
+    derivatives = want_forces or want_virial
     for c in prange(n_chunks):
         phi = potential_part[c]
         force = force_part[c]
         virial = virial_part[c]
-        r2_of = np.empty(largest_bin)
+        first = np.empty(n_range, dtype=np.int64)
+        end = np.empty(n_range, dtype=np.int64)
+        shift = np.empty((n_range, 3))
+        partner = np.empty(capacity, dtype=np.int64)
+        qs = np.empty(capacity)
+        dxs = np.empty(capacity)
+        dys = np.empty(capacity)
+        dzs = np.empty(capacity)
+        r2s = np.empty(capacity)
+        screened = np.empty(capacity)
+        slope = np.empty(capacity)
         count = 0
         for i in range(c * chunk, min(n, (c + 1) * chunk)):
-            xi = xs[i]
-            yi = ys[i]
-            zi = zs[i]
+            m = gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_start, cut2,
+                                first, end, shift, partner, qs, dxs, dys, dzs, r2s)
+            count += 2 * m
             qi = charges[i]
-            for o in range(offsets.shape[0]):
-                b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2],
-                                              offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
-                sx, sy, sz = image_shift(cell, s0, s1, s2)
-                first = bin_start[b]
-                size = bin_start[b + 1] - first
-                ox = xi - sx
-                oy = yi - sy
-                oz = zi - sz
-                for t in range(size):
-                    dx = ox - xs[first + t]
-                    dy = oy - ys[first + t]
-                    dz = oz - zs[first + t]
-                    r2_of[t] = dx * dx + dy * dy + dz * dz
-                for t in range(size):
-                    r2 = r2_of[t]
-                    j = first + t
-                    if r2 >= cut2 or not _take_pair(i, j, s0, s1, s2):
-                        continue
-                    dx = ox - xs[j]
-                    dy = oy - ys[j]
-                    dz = oz - zs[j]
-                    inv_r = 1.0 / math.sqrt(r2)
-                    erfc_ar, gaussian = erfc_and_gaussian(alpha * r2 * inv_r)
-                    screened = erfc_ar * inv_r
-                    phi[i] += charges[j] * screened
-                    phi[j] += qi * screened
-                    count += 2
-                    if want_forces or want_virial:
-                        # g = -(1/r) d/dr [erfc(alpha r)/r]
-                        g = (screened + _TWO_OVER_SQRT_PI * alpha * gaussian) * inv_r * inv_r
-                        qq = qi * charges[j]
-                        if want_forces:
-                            fx = qq * g * dx
-                            fy = qq * g * dy
-                            fz = qq * g * dz
-                            force[i, 0] += fx
-                            force[i, 1] += fy
-                            force[i, 2] += fz
-                            force[j, 0] -= fx
-                            force[j, 1] -= fy
-                            force[j, 2] -= fz
-                        if want_virial:
-                            h = -qq * g
-                            virial[i, 0] += h * dx * dx
-                            virial[i, 1] += h * dy * dy
-                            virial[i, 2] += h * dz * dz
-                            virial[i, 3] += h * dy * dz
-                            virial[i, 4] += h * dx * dz
-                            virial[i, 5] += h * dx * dy
+            # the pair function, one vectorised loop: erfc(a r)/r and g = -(1/r) d/dr [erfc(a r)/r]
+            if derivatives:
+                for t in range(m):
+                    inv_r = 1.0 / math.sqrt(r2s[t])
+                    erfc_ar, gaussian = erfc_and_gaussian(alpha * r2s[t] * inv_r)
+                    value = erfc_ar * inv_r
+                    screened[t] = value
+                    slope[t] = (value + _TWO_OVER_SQRT_PI * alpha * gaussian) * inv_r * inv_r * qs[t]
+            else:
+                for t in range(m):
+                    inv_r = 1.0 / math.sqrt(r2s[t])
+                    erfc_ar, _ = erfc_and_gaussian(alpha * r2s[t] * inv_r)
+                    screened[t] = erfc_ar * inv_r
+            phi_i = 0.0
+            for t in range(m):
+                phi_i += qs[t] * screened[t]
+                phi[partner[t]] += qi * screened[t]
+            phi[i] += phi_i
+            if want_forces:
+                fx = 0.0
+                fy = 0.0
+                fz = 0.0
+                for t in range(m):
+                    gx = slope[t] * dxs[t]
+                    gy = slope[t] * dys[t]
+                    gz = slope[t] * dzs[t]
+                    fx += gx
+                    fy += gy
+                    fz += gz
+                    j = partner[t]
+                    force[j, 0] -= qi * gx
+                    force[j, 1] -= qi * gy
+                    force[j, 2] -= qi * gz
+                force[i, 0] += qi * fx
+                force[i, 1] += qi * fy
+                force[i, 2] += qi * fz
+            if want_virial:
+                wxx = 0.0
+                wyy = 0.0
+                wzz = 0.0
+                wyz = 0.0
+                wxz = 0.0
+                wxy = 0.0
+                for t in range(m):
+                    wxx += slope[t] * dxs[t] * dxs[t]
+                    wyy += slope[t] * dys[t] * dys[t]
+                    wzz += slope[t] * dzs[t] * dzs[t]
+                    wyz += slope[t] * dys[t] * dzs[t]
+                    wxz += slope[t] * dxs[t] * dzs[t]
+                    wxy += slope[t] * dxs[t] * dys[t]
+                virial[i, 0] -= qi * wxx
+                virial[i, 1] -= qi * wyy
+                virial[i, 2] -= qi * wzz
+                virial[i, 3] -= qi * wyz
+                virial[i, 4] -= qi * wxz
+                virial[i, 5] -= qi * wxy
         pair_part[c] = count
     potential = np.zeros(n)
     forces = np.zeros((n, 3))
@@ -169,21 +203,59 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
     return potential, forces, virial_total, pair_part.sum()
 
 
+#: Atoms per block of the reciprocal kernels: their phase tables stay in the fast caches and
+#: the loops over a block's atoms are long enough for vector instructions.
+BLOCK = 64
+
+
 @njit(cache=True, inline="always")
-def _phase_tables(f0, f1, f2, hmax, t0, t1, t2):
-    """Fill t_a[h + hmax_a] = exp(2 pi i h f_a) for |h| <= hmax_a by recurrence."""
-    ts = (t0, t1, t2)
-    fs = (f0, f1, f2)
-    for a in range(3):
-        t = ts[a]
-        m = hmax[a]
-        step = complex(math.cos(2.0 * math.pi * fs[a]), math.sin(2.0 * math.pi * fs[a]))
-        t[m] = 1.0 + 0.0j
-        value = 1.0 + 0.0j
-        for h in range(1, m + 1):
-            value = value * step
-            t[m + h] = value
-            t[m - h] = value.conjugate()
+def _phase_rows(f, first, count, m, cos_rows, sin_rows):
+    """cos_rows[m + h, a] + i sin_rows[m + h, a] = exp(2 pi i h f[first + a]) for |h| <= m, by
+    recurrence in h, each step one complex product for every atom of the block at once."""
+    for a in range(count):
+        cos_rows[m, a] = 1.0
+        sin_rows[m, a] = 0.0
+    if m == 0:
+        return
+    for a in range(count):
+        angle = 2.0 * math.pi * f[first + a]
+        cos_rows[m + 1, a] = math.cos(angle)
+        sin_rows[m + 1, a] = math.sin(angle)
+    for h in range(2, m + 1):
+        for a in range(count):
+            c = cos_rows[m + h - 1, a]
+            s = sin_rows[m + h - 1, a]
+            cos_rows[m + h, a] = c * cos_rows[m + 1, a] - s * sin_rows[m + 1, a]
+            sin_rows[m + h, a] = s * cos_rows[m + 1, a] + c * sin_rows[m + 1, a]
+    for h in range(1, m + 1):
+        for a in range(count):
+            cos_rows[m - h, a] = cos_rows[m + h, a]
+            sin_rows[m - h, a] = -sin_rows[m + h, a]
+
+
+@njit(cache=True, inline="always")
+def _block_tables(hmax):
+    """Work space of one block: cos and sin tables along the three axes, and a run's factor."""
+    return (np.empty((2 * hmax[0] + 1, BLOCK)), np.empty((2 * hmax[0] + 1, BLOCK)),
+            np.empty((2 * hmax[1] + 1, BLOCK)), np.empty((2 * hmax[1] + 1, BLOCK)),
+            np.empty((2 * hmax[2] + 1, BLOCK)), np.empty((2 * hmax[2] + 1, BLOCK)),
+            np.empty(BLOCK), np.empty(BLOCK))
+
+
+@njit(cache=True, inline="always")
+def _block_phases(frac, first, count, hmax, cos0, sin0, cos1, sin1, cos2, sin2):
+    """Phase tables of atoms ``first`` .. ``first + count - 1`` along the three axes."""
+    _phase_rows(frac[:, 0], first, count, hmax[0], cos0, sin0)
+    _phase_rows(frac[:, 1], first, count, hmax[1], cos1, sin1)
+    _phase_rows(frac[:, 2], first, count, hmax[2], cos2, sin2)
+
+
+@njit(cache=True, inline="always")
+def _run_factor(cos0, sin0, cos1, sin1, ia, ib, count, pre_re, pre_im):
+    """exp(2 pi i (h f1 + k f2)) of each atom of the block, for the run with table rows ia, ib."""
+    for a in range(count):
+        pre_re[a] = cos0[ia, a] * cos1[ib, a] - sin0[ia, a] * sin1[ib, a]
+        pre_im[a] = cos0[ia, a] * sin1[ib, a] + sin0[ia, a] * cos1[ib, a]
 
 
 @njit(cache=True)
@@ -207,13 +279,15 @@ def miller_rows(hkl):
     return start[:runs + 1].copy(), l_first[:runs].copy()
 
 
-@njit(parallel=True, cache=True, fastmath={"reassoc", "contract"})
+@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
 def structure_factors(frac, charges, hkl, hmax, n_chunks):
     """S(k) = sum_j q_j exp(2 pi i (h f1 + k f2 + l f3)) for each Miller triple in ``hkl`` (M, 3).
 
     Atoms are split into ``n_chunks`` chunks; each chunk sums into its own row, rows are added
-    at the end (pass a fixed number for results independent of the thread count). Along a run of
-    consecutive l the product q exp(2 pi i (h f1 + k f2)) is fixed and the loop has unit stride.
+    at the end (pass a fixed number for results independent of the thread count). A chunk's
+    atoms go in blocks of ``BLOCK``: for each run of consecutive l (``miller_rows``) the factor
+    q exp(2 pi i (h f1 + k f2)) of every atom of the block is formed once, and each k-vector of
+    the run is one loop over the block's atoms (vector instructions).
     Returns ``(real, imaginary)`` arrays of length M.
     """
     n = frac.shape[0]
@@ -224,30 +298,33 @@ def structure_factors(frac, charges, hkl, hmax, n_chunks):
     part_re = np.zeros((n_chunks, m_count))
     part_im = np.zeros((n_chunks, m_count))
     chunk = (n + n_chunks - 1) // n_chunks
+    h0 = hmax[0]
+    h1 = hmax[1]
+    h2 = hmax[2]
     for c in prange(n_chunks):
-        t0 = np.empty(2 * hmax[0] + 1, dtype=np.complex128)
-        t1 = np.empty(2 * hmax[1] + 1, dtype=np.complex128)
-        t2 = np.empty(2 * hmax[2] + 1, dtype=np.complex128)
-        t2_re = np.empty(2 * hmax[2] + 1)
-        t2_im = np.empty(2 * hmax[2] + 1)
+        cos0, sin0, cos1, sin1, cos2, sin2, pre_re, pre_im = _block_tables(hmax)
         out_re = part_re[c]
         out_im = part_im[c]
-        for j in range(c * chunk, min(n, (c + 1) * chunk)):
-            _phase_tables(frac[j, 0], frac[j, 1], frac[j, 2], hmax, t0, t1, t2)
-            for l in range(2 * hmax[2] + 1):
-                t2_re[l] = t2[l].real
-                t2_im[l] = t2[l].imag
-            q = charges[j]
+        stop = min(n, (c + 1) * chunk)
+        for first in range(c * chunk, stop, BLOCK):
+            count = min(BLOCK, stop - first)
+            _block_phases(frac, first, count, hmax, cos0, sin0, cos1, sin1, cos2, sin2)
             for r in range(n_runs):
                 m0 = start[r]
                 length = start[r + 1] - m0
-                qhk = q * t0[hkl[m0, 0] + hmax[0]] * t1[hkl[m0, 1] + hmax[1]]
-                a = qhk.real
-                b = qhk.imag
-                l0 = l_first[r] + hmax[2]
+                _run_factor(cos0, sin0, cos1, sin1, hkl[m0, 0] + h0, hkl[m0, 1] + h1, count, pre_re, pre_im)
+                for a in range(count):
+                    pre_re[a] *= charges[first + a]
+                    pre_im[a] *= charges[first + a]
+                l0 = l_first[r] + h2
                 for x in range(length):
-                    out_re[m0 + x] += a * t2_re[l0 + x] - b * t2_im[l0 + x]
-                    out_im[m0 + x] += a * t2_im[l0 + x] + b * t2_re[l0 + x]
+                    sr = 0.0
+                    si = 0.0
+                    for a in range(count):
+                        sr += pre_re[a] * cos2[l0 + x, a] - pre_im[a] * sin2[l0 + x, a]
+                        si += pre_re[a] * sin2[l0 + x, a] + pre_im[a] * cos2[l0 + x, a]
+                    out_re[m0 + x] += sr
+                    out_im[m0 + x] += si
     total_re = np.zeros(m_count)
     total_im = np.zeros(m_count)
     for c in range(n_chunks):
@@ -256,7 +333,7 @@ def structure_factors(frac, charges, hkl, hmax, n_chunks):
     return total_re, total_im
 
 
-@njit(parallel=True, cache=True, fastmath={"reassoc", "contract"})
+@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
 def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
     """Reciprocal-space potential (N,) in e/Å and forces (N, 3) in e^2/Å^2 from S(k).
 
@@ -264,50 +341,73 @@ def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s
     With p = exp(i k.r_i): potential sum_k weight Re[S conj(p)], force q_i sum_k weight k Im[conj(S) p].
     ``frac`` may be any points, not only the ions: with unit ``charges`` the "forces" are the
     reciprocal-space field in e/Å^2 (``madelung.defects`` uses it so).
+
+    Atoms go in blocks of ``BLOCK`` (one thread each); each k-vector is one loop over the block's
+    atoms. Along a run of consecutive l the k-vector is k_0 + x b_3, so the force needs only
+    sum_x Im and sum_x x Im per atom, folded into the three components once per run.
     """
     n = frac.shape[0]
     start, l_first = miller_rows(hkl)
     n_runs = len(l_first)
-    # per k-vector products with the weights, shared by every atom
     ws_re = weights * s_real
     ws_im = weights * s_imag
     potential = np.zeros(n)
     forces = np.zeros((n, 3))
-    for i in prange(n):
-        t0 = np.empty(2 * hmax[0] + 1, dtype=np.complex128)
-        t1 = np.empty(2 * hmax[1] + 1, dtype=np.complex128)
-        t2 = np.empty(2 * hmax[2] + 1, dtype=np.complex128)
-        t2_re = np.empty(2 * hmax[2] + 1)
-        t2_im = np.empty(2 * hmax[2] + 1)
-        _phase_tables(frac[i, 0], frac[i, 1], frac[i, 2], hmax, t0, t1, t2)
-        for l in range(2 * hmax[2] + 1):
-            t2_re[l] = t2[l].real
-            t2_im[l] = t2[l].imag
-        phi = 0.0
-        fx = 0.0
-        fy = 0.0
-        fz = 0.0
+    h0 = hmax[0]
+    h1 = hmax[1]
+    h2 = hmax[2]
+    n_blocks = (n + BLOCK - 1) // BLOCK
+    for blk in prange(n_blocks):
+        first = blk * BLOCK
+        count = min(BLOCK, n - first)
+        cos0, sin0, cos1, sin1, cos2, sin2, pre_re, pre_im = _block_tables(hmax)
+        phi = np.zeros(BLOCK)
+        run_sum = np.empty(BLOCK)
+        run_moment = np.empty(BLOCK)
+        fx = np.zeros(BLOCK)
+        fy = np.zeros(BLOCK)
+        fz = np.zeros(BLOCK)
+        _block_phases(frac, first, count, hmax, cos0, sin0, cos1, sin1, cos2, sin2)
         for r in range(n_runs):
             m0 = start[r]
             length = start[r + 1] - m0
-            phk = t0[hkl[m0, 0] + hmax[0]] * t1[hkl[m0, 1] + hmax[1]]
-            a = phk.real
-            b = phk.imag
-            l0 = l_first[r] + hmax[2]
+            _run_factor(cos0, sin0, cos1, sin1, hkl[m0, 0] + h0, hkl[m0, 1] + h1, count, pre_re, pre_im)
+            l0 = l_first[r] + h2
+            for a in range(count):
+                run_sum[a] = 0.0
+                run_moment[a] = 0.0
             for x in range(length):
-                m = m0 + x
-                p_re = a * t2_re[l0 + x] - b * t2_im[l0 + x]
-                p_im = a * t2_im[l0 + x] + b * t2_re[l0 + x]
-                phi += ws_re[m] * p_re + ws_im[m] * p_im
-                if want_forces:
-                    im = ws_re[m] * p_im - ws_im[m] * p_re
-                    fx += im * kvectors[m, 0]
-                    fy += im * kvectors[m, 1]
-                    fz += im * kvectors[m, 2]
-        potential[i] = phi
-        if want_forces:
-            q = charges[i]
-            forces[i, 0] = q * fx
-            forces[i, 1] = q * fy
-            forces[i, 2] = q * fz
+                wr = ws_re[m0 + x]
+                wi = ws_im[m0 + x]
+                for a in range(count):
+                    p_re = pre_re[a] * cos2[l0 + x, a] - pre_im[a] * sin2[l0 + x, a]
+                    p_im = pre_re[a] * sin2[l0 + x, a] + pre_im[a] * cos2[l0 + x, a]
+                    phi[a] += wr * p_re + wi * p_im
+                    im = wr * p_im - wi * p_re
+                    run_sum[a] += im
+                    run_moment[a] += x * im
+            if want_forces:
+                kx = kvectors[m0, 0]
+                ky = kvectors[m0, 1]
+                kz = kvectors[m0, 2]
+                bx = 0.0
+                by = 0.0
+                bz = 0.0
+                if length > 1:
+                    m_last = m0 + length - 1
+                    bx = (kvectors[m_last, 0] - kx) / (length - 1)
+                    by = (kvectors[m_last, 1] - ky) / (length - 1)
+                    bz = (kvectors[m_last, 2] - kz) / (length - 1)
+                for a in range(count):
+                    fx[a] += kx * run_sum[a] + bx * run_moment[a]
+                    fy[a] += ky * run_sum[a] + by * run_moment[a]
+                    fz[a] += kz * run_sum[a] + bz * run_moment[a]
+        for a in range(count):
+            potential[first + a] = phi[a]
+            if want_forces:
+                q = charges[first + a]
+                forces[first + a, 0] = q * fx[a]
+                forces[first + a, 1] = q * fy[a]
+                forces[first + a, 2] = q * fz[a]
     return potential, forces
+

@@ -24,6 +24,8 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from ..geometry_kernels import PRANGE_ONLY
+
 
 @njit(cache=True, inline="always")
 def _spline_row(w, order, values, slopes):
@@ -82,7 +84,7 @@ def _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2):
     return b0, b1, b2
 
 
-@njit(parallel=True, cache=True)
+@njit(parallel=PRANGE_ONLY, cache=True)
 def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
     """Charge mesh Q(g) = sum_i q_i prod_a M_n(u_ia - g_a) (periodic), shape (K0, K1, K2).
 
@@ -126,7 +128,7 @@ def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, or
     return mesh
 
 
-@njit(parallel=True, cache=True)
+@njit(parallel=PRANGE_ONLY, cache=True)
 def apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, volume, want_virial):
     """Mesh energy and virial from the charge spectrum, and the spectrum times C(m) in place.
 
@@ -193,7 +195,7 @@ def apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, vo
     return total[0], total[1:].copy()
 
 
-@njit(parallel=True, cache=True)
+@njit(parallel=PRANGE_ONLY, cache=True)
 def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
     """Potential at each ion, sum_g W_i(g) psi(g) (N,), and forces -q_i grad_i of it (N, 3).
 
@@ -247,3 +249,4 @@ def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
             for c in range(3):
                 forces[i, c] = -q * (g0 * recip[0, c] + g1 * recip[1, c] + g2 * recip[2, c])
     return potential, forces
+

@@ -21,16 +21,14 @@ basis_change @ user_cell``) records the relation.
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-import spglib
 
 from ..bounds import check_mesh
 from ..errors import InputError
-from ..geometry import build_bins, nearest_neighbour_distances, wrapped_fractional
+from ..geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
 from .tuning import ChargeSums
@@ -47,26 +45,6 @@ AUTO_DIRECT_BELOW_SECONDS = 0.015
 
 #: Share of the target first set aside for rounding (see :func:`plan_sum`).
 ROUNDING_SHARE = 1e-3
-
-
-def reduced_basis(cell):
-    """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
-    Niggli-reduced, right-handed basis of the lattice (the cell itself if spglib cannot reduce it)."""
-    cell = np.asarray(cell, dtype=float)
-    try:
-        with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
-            warnings.simplefilter("ignore", DeprecationWarning)
-            reduced = spglib.niggli_reduce(cell, eps=1e-5)
-    except Exception:  # spglib reports failures as None or as an error depending on its version
-        reduced = None
-    if reduced is None:
-        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
-    change = np.rint(np.asarray(reduced) @ np.linalg.inv(cell)).astype(np.int64)
-    if round(abs(np.linalg.det(change))) != 1:
-        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
-    if np.linalg.det(change @ cell) < 0:
-        change = -change
-    return np.ascontiguousarray(change @ cell), change
 
 
 def reciprocal_vectors(cell, k_cut):
@@ -195,13 +173,6 @@ def _terms_per_ion(choice, sums, volume, method):
     if method == "mesh":
         return real + choice.order ** 3
     return real + (4.0 / 3.0) * math.pi * choice.reciprocal_cutoff ** 3 * volume / (8.0 * math.pi ** 3)
-
-
-def shortest_distance(cell, positions) -> float:
-    """Shortest interionic distance (periodic images count), Å."""
-    positions = np.asarray(positions, dtype=float)
-    to_any, _, _ = nearest_neighbour_distances(cell, positions, np.zeros(len(positions)))
-    return float(np.min(to_any))
 
 
 def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order, decided=None):

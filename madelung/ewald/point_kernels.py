@@ -19,6 +19,7 @@ import numpy as np
 from numba import njit, prange
 
 from ..geometry_kernels import image_shift, neighbour_bin
+from .erfc import erfc_and_gaussian
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
@@ -53,8 +54,6 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
     pair_count = np.zeros(m, dtype=np.int64)
     cut2 = r_cut * r_cut
     co2 = coincide * coincide
-    a2 = alpha * alpha
-    b2 = beta * beta
     smeared = beta > 0.0
     for p in prange(m):
         xp = points[p, 0]
@@ -91,13 +90,15 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
                         phi += q * _TWO_OVER_SQRT_PI * (beta - alpha)
                     continue
                 r = math.sqrt(r2)
-                screened = math.erfc(alpha * r) / r
+                erfc_ar, gaussian = erfc_and_gaussian(alpha * r)
+                screened = erfc_ar / r
                 # g = -(1/r) d/dr of the pair function
-                g = (screened + _TWO_OVER_SQRT_PI * alpha * math.exp(-a2 * r2)) / r2
+                g = (screened + _TWO_OVER_SQRT_PI * alpha * gaussian) / r2
                 if smeared:
-                    wide = math.erfc(beta * r) / r
+                    erfc_br, gaussian_b = erfc_and_gaussian(beta * r)
+                    wide = erfc_br / r
                     screened -= wide
-                    g -= (wide + _TWO_OVER_SQRT_PI * beta * math.exp(-b2 * r2)) / r2
+                    g -= (wide + _TWO_OVER_SQRT_PI * beta * gaussian_b) / r2
                 phi += q * screened
                 if want_field:
                     ex += q * g * dx

@@ -58,10 +58,11 @@ SAFETY = 0.05
 
 #: Nanoseconds per real-space term, per (atom, stencil bin) and per (atom, k-vector) term, forces
 #: included, one thread. Measured by benchmarks/calibrate_cost.py (rattled rock-salt supercells,
-#: N = 512 and 4096): 20-35 ns per real term overall at r_cut 18-12 Å, 3.8-4.3 ns per (atom, k).
+#: N = 512 and 4096, medians of the half-stencil kernels with the polynomial erfc and the blocked
+#: reciprocal loops): 12.4-14.6 ns per real term (both orders counted), 0.73-0.94 ns per (atom, k).
 REAL_PAIR_COST = 13.6
 STENCIL_COST = 22.6
-RECIPROCAL_TERM_COST = 4.0
+RECIPROCAL_TERM_COST = 0.8
 #: Bins in a typical stencil (three bins per cutoff, reach 3, corners pruned).
 STENCIL_BINS = 330
 
