@@ -20,6 +20,7 @@ import re
 import numpy as np
 
 from .errors import InputError
+from .geometry import plane_spacings, reduced_basis
 
 #: Longest lattice vector accepted, Å (a micrometre; real periodic models stay far below).
 MAX_CELL_LENGTH = 1.0e4
@@ -27,9 +28,10 @@ MAX_CELL_LENGTH = 1.0e4
 MIN_CELL_LENGTH = 1.0e-2
 #: Largest ratio of the longest to the shortest vector of the reduced cell (needle or sheet cells).
 MAX_CELL_ASPECT = 1.0e3
-#: Largest skew of the basis: the product over the three lattice directions of (plane spacing of
-#: the reduced cell / plane spacing of the basis given). The periodic images a neighbour search or a
-#: real-space sum visits grow with it (about 2 s of neighbour search at 1e4, minutes at 1e6).
+#: Largest skew of the basis the neighbour walks use (the Niggli-reduced basis, or the basis given
+#: where the reduction fails): the product over the three lattice directions of (plane spacing of
+#: the Minkowski-reduced cell / plane spacing of that basis). The periodic images a walk visits grow
+#: with it (about 2 s at 1e4, minutes at 1e6).
 MAX_BASIS_SKEW = 1.0e4
 #: Peak memory of a particle-mesh sum per mesh point, bytes (measured: about 50 B per point for a
 #: 160^3 mesh, charge mesh, its transform, the potential and the spline work arrays together).
@@ -38,7 +40,8 @@ MESH_BYTES_PER_POINT = 64
 MAX_MESH_BYTES = 2.0e9
 #: Largest charge magnitude on one site, e.
 MAX_CHARGE = 1.0e3
-#: Ions may lie this many cell lengths outside the cell, no further (precision of the wrapping).
+#: Ions may lie this many times the longest lattice vector from the origin, no further (precision
+#: of the wrapping into the cell).
 MAX_CELLS_AWAY = 1.0e3
 #: Integers longer than this many digits are refused (no structure file needs them; 18 digits
 #: still fit a 64-bit integer).
@@ -184,8 +187,8 @@ def check_cell(cell, positions, source=None, min_distance=0.0):
     (a change of basis that keeps the crystal) must have its shortest vector above
     :data:`MIN_CELL_LENGTH` and ``min_distance`` (an ion nearer than that to its own image
     overlaps it) and an aspect ratio below :data:`MAX_CELL_ASPECT`; ions may lie at most
-    :data:`MAX_CELLS_AWAY` cell lengths outside the cell; the basis may be skewed against the
-    reduced cell by at most :data:`MAX_BASIS_SKEW`. Returns nothing.
+    :data:`MAX_CELLS_AWAY` longest lattice vectors from the origin; the basis the neighbour walks
+    use may be skewed against the reduced cell by at most :data:`MAX_BASIS_SKEW`. Returns nothing.
 
     References
     ----------
@@ -216,25 +219,18 @@ def check_cell(cell, positions, source=None, min_distance=0.0):
     if aspect > MAX_CELL_ASPECT:
         raise InputError(f"{where}the cell is {aspect:.3g} times longer than wide (reduced lattice vectors "
                          f"{shortest:.4g} to {reduced_lengths.max():.4g} Å), above the limit of {MAX_CELL_ASPECT:g}")
-    skew = float(np.prod(_plane_spacings(reduced) / _plane_spacings(cell)))
+    walked, _ = reduced_basis(cell)   # the basis the neighbour walks use (the input if it cannot be reduced)
+    skew = float(np.prod(plane_spacings(reduced) / plane_spacings(walked)))
     if skew > MAX_BASIS_SKEW:
         raise InputError(f"{where}the cell is given in a basis {skew:.3g} times more skewed than its reduced cell "
                          f"(lattice vectors up to {longest:.4g} Å for a reduced cell of {shortest:.4g} to "
                          f"{reduced_lengths.max():.4g} Å), above the limit of {MAX_BASIS_SKEW:g}; write the same "
                          "crystal in a reduced basis (Minkowski or Niggli reduction)")
     if len(positions):
-        fractional = np.linalg.solve(np.asarray(cell, dtype=float).T, np.asarray(positions, dtype=float).T)
-        far = float(np.max(np.abs(fractional)))
+        far = float(np.max(np.linalg.norm(np.asarray(positions, dtype=float), axis=1))) / longest
         if not math.isfinite(far) or far > MAX_CELLS_AWAY:
-            raise InputError(f"{where}an ion lies {far:.3g} cell lengths outside the cell, above the limit of "
+            raise InputError(f"{where}an ion lies {far:.3g} cell lengths from the origin, above the limit of "
                              f"{MAX_CELLS_AWAY:g}")
-
-
-def _plane_spacings(cell):
-    """Distance between neighbouring lattice planes along each reciprocal direction, Å."""
-    cell = np.asarray(cell, dtype=float)
-    volume = abs(float(np.linalg.det(cell)))
-    return np.array([volume / np.linalg.norm(np.cross(cell[(i + 1) % 3], cell[(i + 2) % 3])) for i in range(3)])
 
 
 def check_mesh(shape):
