@@ -18,7 +18,9 @@ import time
 import numpy as np
 
 sys.path.insert(0, ".")
+sys.path.insert(0, "benchmarks")
 import madelung  # noqa: E402
+from common import rattled_rock_salt  # noqa: E402
 
 NAMED = {"a, 3a+b, 3a+3b+c": [[1, 0, 0], [3, 1, 0], [3, 3, 1]],
          "a+b, b, a+b+c": [[1, 1, 0], [0, 1, 0], [1, 1, 1]],
@@ -30,18 +32,6 @@ def unimodular(rng, reach=3):
         m = rng.integers(-reach, reach + 1, (3, 3))
         if round(abs(np.linalg.det(m))) == 1:
             return m
-
-
-def rattled_rock_salt(repeat=6, seed=3):
-    a = 5.64
-    frac = np.array([[0, 0, 0], [.5, .5, 0], [.5, 0, .5], [0, .5, .5],
-                     [.5, 0, 0], [0, .5, 0], [0, 0, .5], [.5, .5, .5]])
-    q = np.array([1, 1, 1, 1, -1, -1, -1, -1.0])
-    grid = np.array([[i, j, k] for i in range(repeat) for j in range(repeat) for k in range(repeat)])
-    pos = ((frac[None, :, :] + grid[:, None, :]).reshape(-1, 3)) * a
-    rng = np.random.default_rng(seed)
-    pos += rng.normal(scale=0.05, size=pos.shape)
-    return madelung.Crystal(np.eye(3) * a * repeat, pos, np.tile(q, len(grid)), min_distance=0.1)
 
 
 def random_triclinic(rng, n=24):
@@ -66,7 +56,7 @@ def main():
     args = parser.parse_args()
     rng = np.random.default_rng(11)
     tols = (1e-6,) if args.quick else (1e-4, 1e-6, 1e-8)
-    crystals = {"rattled rock salt 1728": rattled_rock_salt()}
+    crystals = {"rattled rock salt 1728": rattled_rock_salt(6, seed=3)}
     if not args.quick:
         crystals["random triclinic 24"] = random_triclinic(rng)
         crystals["random triclinic 24 x 4x4x4"] = random_triclinic(np.random.default_rng(5)).repeat((4, 4, 4))

@@ -18,7 +18,7 @@ import madelung  # noqa: E402
 from madelung.ewald.mesh import ewald_mesh  # noqa: E402
 
 sys.path.insert(0, "benchmarks")
-from accuracy_bases import rattled_rock_salt  # noqa: E402
+from common import rattled_rock_salt  # noqa: E402
 
 
 def best_cpu(call, repeats=3):

@@ -60,10 +60,28 @@ def thread_budget(predicted_ns):
         numba.set_num_threads(previous)
 
 
+#: Recently reduced cells (bytes of the cell -> result): a sum reduces the same cell for its plan,
+#: its shortest distance and its bins.
+_REDUCED = {}
+_REDUCED_KEEP = 64
+
+
 def reduced_basis(cell):
     """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
-    Niggli-reduced, right-handed basis (Křivý & Gruber, Acta Cryst. A32 (1976) 297) of the lattice (the cell itself if spglib cannot reduce it)."""
-    cell = np.asarray(cell, dtype=float)
+    Niggli-reduced, right-handed basis of the lattice (Křivý & Gruber, Acta Cryst. A32 (1976)
+    297), or the cell itself if spglib cannot reduce it."""
+    cell = np.ascontiguousarray(cell, dtype=float)
+    key = cell.tobytes()
+    found = _REDUCED.get(key)
+    if found is None:
+        found = _reduce(cell)
+        if len(_REDUCED) >= _REDUCED_KEEP:
+            _REDUCED.pop(next(iter(_REDUCED)))
+        _REDUCED[key] = found
+    return found[0].copy(), found[1].copy()
+
+
+def _reduce(cell):
     try:
         with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
             warnings.simplefilter("ignore", DeprecationWarning)
@@ -86,10 +104,8 @@ def plane_spacings(cell) -> np.ndarray:
     A point displaced by r from another differs in fractional coordinate a by at most
     ``|r| / spacing[a]``.
     """
-    cell = np.asarray(cell, dtype=float)
-    volume = abs(np.linalg.det(cell))
-    return np.array([volume / np.linalg.norm(np.cross(cell[(a + 1) % 3], cell[(a + 2) % 3]))
-                     for a in range(3)])
+    # the spacing of planes (a) is 1 / |b_a| with b_a the reciprocal vector: column a of inv(cell)
+    return 1.0 / np.linalg.norm(np.linalg.inv(np.asarray(cell, dtype=float)), axis=0)
 
 
 def wrapped_fractional(cell, positions) -> np.ndarray:

@@ -214,6 +214,10 @@ def direct_cost_ns(r_cut, k_cut, n_atoms, volume):
             + RECIPROCAL_TERM_COST * n_atoms * k_vectors)
 
 
+_COARSE_ALPHAS = np.geomspace(0.1, 10.0, 21)
+_FINE_ALPHAS = np.geomspace(0.8, 1.25, 11)
+
+
 def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
     """Splitting parameter and cutoffs of the direct sum for an energy error ``target`` (eV).
 
@@ -235,9 +239,9 @@ def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
         alphas = np.array([alpha])
     else:
         centre = math.sqrt(math.pi) * (sums.n_atoms / volume ** 2) ** (1.0 / 6.0)
-        alphas = centre * np.geomspace(0.1, 10.0, 21)
+        alphas = centre * _COARSE_ALPHAS
         r_cut, k_cut, cost = evaluate(alphas)
-        alphas = alphas[int(np.argmin(cost))] * np.geomspace(0.8, 1.25, 11)
+        alphas = alphas[int(np.argmin(cost))] * _FINE_ALPHAS
     r_cut, k_cut, cost = evaluate(alphas)
     best = int(np.argmin(cost))
     a, r, k = float(alphas[best]), float(r_cut[best]), float(k_cut[best])
