@@ -27,7 +27,7 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from common import print_table, rattled_rock_salt, verdict  # noqa: E402
 
 from madelung.sums._kernels import kernels, mesh_kernels  # noqa: E402
-from madelung.sums import reciprocal_vectors  # noqa: E402
+from madelung.sums.plan import reciprocal_vectors  # noqa: E402
 from madelung.sums.geometry import build_bins, wrapped_fractional  # noqa: E402
 
 import madelung  # noqa: E402

@@ -2,7 +2,9 @@
 
 Every command takes a structure file (anything ASE reads: CIF, POSCAR, extended XYZ, ...),
 prints a readable report by default and JSON with ``--json``.
-Exit codes: 0 done, 2 a problem with the input (one line on stderr), 1 an internal error.
+Exit codes: 0 every input done; 2 a problem with an input (one line on stderr; with several inputs
+after all the others were done, with a summary line); 1 an internal error; 141 the reader of the
+output closed the pipe. No command writes over an existing file without ``--overwrite``.
 """
 
 from __future__ import annotations
@@ -20,8 +22,9 @@ import numpy as np
 from . import __version__
 from .analysis.embedding import OFFSETS as EMBEDDING_OFFSETS, embedding
 from .analysis.embedding_files import FILES as EMBEDDING_FILES, check_output_folder, embedding_report, write_embedding
-from .errors import InputError, MadelungWarning
+from .errors import InputError, MadelungError, MadelungWarning
 from .analysis.madelung_constants import CONVENTION_TEXT
+from .report.files import check_outputs, cif_text, write_text, write_with
 from .units import EV_TO_KJ_PER_MOL
 
 MODEL_NOTE = ("Point-charge model: with formal charges the electrostatic terms overstate what a real, "
@@ -42,7 +45,41 @@ class _Parser(argparse.ArgumentParser):
     """argparse that reports usage mistakes as one line and exit code 2."""
 
     def error(self, message):
-        self.exit(2, f"madelung: {message} (see madelung {self.prog.split()[-1]} --help)\n")
+        command = self.prog.split()[-1]
+        self.exit(2, f"madelung: {message} (see {'madelung' if command == 'madelung' else 'madelung ' + command} "
+                     "--help)\n")
+
+
+def _tolerance(text):
+    """``--tol``: a finite number between the double-precision epsilon and 1."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not 0 < value < 1:
+        raise argparse.ArgumentTypeError(f"{text} must lie between 0 and 1")
+    if value < np.finfo(float).eps:
+        raise argparse.ArgumentTypeError(f"{text} is below what double precision resolves "
+                                         f"({np.finfo(float).eps:.1e} relative)")
+    return value
+
+
+#: Options naming files a command reads; no output may be one of them.
+INPUT_OPTIONS = ("file", "files", "more_files", "repulsion", "structure", "input", "dielectric_tensor", "db")
+
+
+def _overwrite_option(parser):
+    parser.add_argument("--overwrite", action="store_true", help="replace output files that exist already")
+
+
+def _check_outputs(args, *paths):
+    """Refuse unwritable, existing (without --overwrite) or input-replacing outputs before any work."""
+    inputs = []
+    for name in INPUT_OPTIONS:
+        value = getattr(args, name, None)
+        inputs.extend(value if isinstance(value, list) else [value])
+    check_outputs(paths, inputs=[p for p in inputs if isinstance(p, str)],
+                  overwrite=getattr(args, "overwrite", False))
 
 
 def _common(parser):
@@ -50,7 +87,7 @@ def _common(parser):
     parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
                         help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed); "
                              "overrides charges read from the file")
-    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
+    parser.add_argument("--tol", type=_tolerance, default=1e-10, metavar="TOL",
                         help="wanted error of the energy relative to k_e*sum(q^2)/d_min (default 1e-10)")
     parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
                         help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
@@ -162,7 +199,11 @@ def _print_json(data):
             return obj.item()
         raise TypeError(type(obj).__name__)
 
-    print(json.dumps(data, indent=2, default=default, allow_nan=True))
+    try:
+        text = json.dumps(data, indent=2, default=default, allow_nan=False)
+    except ValueError:
+        raise NonFiniteResult("a result is not a finite number (NaN or infinity); nothing printed") from None
+    print(text)
 
 
 def _structure_lines(crystal):
@@ -367,7 +408,7 @@ def _add_charges(sub):
                         help="equilibration: relative permittivity dividing the inter-site interaction (default 2)")
     parser.add_argument("--total-charge", type=float, default=0.0, metavar="Q",
                         help="net charge of the cell, e (default 0)")
-    parser.add_argument("--tol", type=float, default=1e-8, metavar="TOL", help="accuracy of the Ewald sums (1e-8)")
+    parser.add_argument("--tol", type=_tolerance, default=1e-8, metavar="TOL", help="accuracy of the Ewald sums (1e-8)")
     parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
                         help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
     parser.add_argument("--json", action="store_true", help="print JSON: every ranked candidate")
@@ -606,23 +647,24 @@ def _add_map(sub):
                         help="Gaussian width of the ions (default 0.3 Å; 0 = point ions, grid points on ions "
                              "then hold the site potential)")
     parser.add_argument("--output", metavar="PREFIX", help="output prefix (default: FILE name + '-potential')")
+    _overwrite_option(parser)
     return parser
 
 
 def _run_map(args):
-    import os
-
     from .analysis.defects import plane_section, potential_grid, write_cube
     from .report.plots import write_plane_png
 
+    prefix = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-potential"
+    cube, png = prefix + ".cube", prefix + ".png"
+    _check_outputs(args, cube, png)
     crystal = load_crystal(args)
     grid = potential_grid(crystal, args.grid, smearing=args.smearing, tol=args.tol)
     section = plane_section(crystal, args.plane, args.offset, spacing=min(args.grid, 0.1),
                             smearing=args.smearing, tol=args.tol)
-    prefix = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-potential"
-    cube, png = prefix + ".cube", prefix + ".png"
-    write_cube(cube, grid)
-    write_plane_png(png, section, title=f"{crystal.formula}: potential on ({args.plane}) at offset {args.offset:g}")
+    write_with(cube, lambda temporary: write_cube(temporary, grid))
+    title = f"{crystal.formula}: potential on ({args.plane}) at offset {args.offset:g}"
+    write_with(png, lambda temporary: write_plane_png(temporary, section, title=title), binary=True)
     values = np.asarray(grid.values)
     if args.json:
         _print_json({"file": args.file, "cube_file": cube, "png_file": png, "grid_shape": list(grid.shape),
@@ -743,9 +785,10 @@ def _constant_table(args, files):
         except InputError as exc:
             rows.append({"file": name, "status": str(exc)})
     failed = sum(row["status"] != "ok" for row in rows)
+    code = _batch_code(failed, len(rows), "files")
     if args.json:
         _print_json({"structures": rows, "failed": failed})
-        return 0
+        return code()
     print(f"madelung constant  {len(files)} structures, tol {args.tol:.0e}")
     print(f"  {'file':<34} {'formula':<9} {'r0 / Å':>8} {'charges in':>13} {'handbook':>13} {'common factor':>14}")
     for row in rows:
@@ -762,7 +805,18 @@ def _constant_table(args, files):
         print("  polyatomic ions count as one charge at their centre (--polyatomic-ions atoms: every atom)")
     print(f"  {len(rows) - failed} done, {failed} failed")
     print(f"  note        {MODEL_NOTE}")
-    return 0
+    return code()
+
+
+def _batch_code(failed, total, what):
+    """The exit code of a command over several inputs, as a function to call after printing:
+    0 when all succeeded, else 2 with a summary line on stderr."""
+    def code():
+        if not failed:
+            return 0
+        print(f"madelung: {failed} of {total} {what} failed (messages above)", file=sys.stderr)
+        return 2
+    return code
 
 
 # ---------------------------------------------------------------- screen
@@ -774,7 +828,8 @@ def _add_screen(sub):
                                         "timings, electrostatic descriptors) in a Parquet, CSV or JSON-lines table "
                                         "chosen by the ending of --out. Inputs are files, folders, globs or ASE "
                                         "databases. A structure that fails gets its message in the status column and "
-                                        "the job goes on; the exit code is 0 when the job finishes.")
+                                        "the job goes on; the exit code is 0 when every structure succeeded, 2 when "
+                                        "any failed (the table is written either way).")
     parser.add_argument("inputs", nargs="*", metavar="INPUT", help="structure files, folders, globs ('**' allowed) "
                                                                    "or ASE databases (*.db)")
     parser.add_argument("--out", required=True, metavar="TABLE", help="results table: .parquet, .csv or .jsonl")
@@ -785,14 +840,17 @@ def _add_screen(sub):
     parser.add_argument("--sites", metavar="TABLE", help="also write one row per site to this table")
     parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
                         help="charge of an element or a site label for every structure, e.g. O=-2 (repeat)")
-    parser.add_argument("--tol", type=float, default=1e-8, metavar="TOL",
+    parser.add_argument("--tol", type=_tolerance, default=1e-8, metavar="TOL",
                         help="relative accuracy of every sum (default 1e-8)")
     parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run on this Dask distributed scheduler (e.g. tcp://10.0.0.5:8786) instead of the "
-                             "local pool; needs pip install 'madelung[dask]'")
+                             "local pool; needs pip install 'madelung[dask]'. The cluster must be trusted: "
+                             "results come back by its serialisation, so a hostile worker can run code here")
     parser.add_argument("--timeout", type=float, metavar="S", help="seconds allowed per structure")
     parser.add_argument("--resume", action="store_true", help="keep rows already ok in --out, screen the rest")
+    parser.add_argument("--overwrite", action="store_true",
+                        help="replace an existing --out (and --sites) table instead of refusing it")
     parser.add_argument("--chunk", type=int, default=256, metavar="N", help="rows written at once, at least "
                                                                              "(default 256)")
     parser.add_argument("--spectrum-length", type=int, default=SPECTRUM_LENGTH, metavar="L",
@@ -811,6 +869,8 @@ def _run_screen(args):
 
     if not args.inputs and not args.db:
         raise InputError("nothing to screen: give files, folders, globs or --db FILE")
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers must be at least 1, got {args.workers}")
     if args.block is not None:
         raise InputError("--block picks one structure of one file; screen reads every data block of every file")
     summary = screen(args.inputs, args.out, db=args.db, select=args.select, charges=args.charges_from,
@@ -818,16 +878,18 @@ def _run_screen(args):
                      scheduler=args.scheduler, timeout=args.timeout, resume=args.resume, sites=args.sites,
                      write_db=args.write_db, chunk_size=args.chunk, progress=not args.no_progress,
                      spectrum_length=args.spectrum_length, symprec=args.symprec, min_distance=args.min_distance,
-                     max_atoms=args.max_atoms, occupancy=args.occupancy, allow_net_charge=args.allow_net_charge)
+                     max_atoms=args.max_atoms, occupancy=args.occupancy, allow_net_charge=args.allow_net_charge,
+                     overwrite=args.overwrite)
+    code = _batch_code(summary.failed, summary.ok + summary.failed, f"structures ({summary.out})")
     if args.json:
         _print_json(summary.as_dict())
-        return 0
+        return code()
     for source, status in summary.failures[:10]:
         print(f"  failed  {status if source in status else f'{source}: {status}'}")
     if len(summary.failures) > 10:
         print(f"  ... and {summary.failed - 10} more failed rows (status column of {summary.out})")
     print(summary.line())
-    return 0
+    return code()
 
 
 # ---------------------------------------------------------------- demo
@@ -838,7 +900,10 @@ def _add_demo(sub):
                                         "local pool, write the table, print the ranked top rows and save a PNG "
                                         "scatter plot.")
     parser.add_argument("--out-dir", default="madelung-demo", metavar="DIR",
-                        help="where the table and the plot go (default ./madelung-demo)")
+                        help="where the table and the plot go (default ./madelung-demo; created, its parent "
+                             "folder must exist)")
+    parser.add_argument("--parents", action="store_true", help="also create missing parent folders of --out-dir")
+    _overwrite_option(parser)
     parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
     parser.add_argument("--top", type=int, default=10, metavar="N", help="rows shown (default 10)")
     parser.add_argument("--json", action="store_true", help="print the ranked rows as JSON")
@@ -848,11 +913,16 @@ def _add_demo(sub):
 def _run_demo(args):
     from .demo import run_demo
 
-    result = run_demo(args.out_dir, workers=args.workers, top=args.top, progress=not args.json)
+    result = run_demo(args.out_dir, workers=args.workers, top=args.top, progress=not args.json,
+                      parents=args.parents, overwrite=args.overwrite)
+    code = _batch_code(result.summary.failed, result.summary.ok + result.summary.failed, "demo structures")
     if args.json:
         _print_json(result.as_dict())
-        return 0
+        return code()
     print(result.report())
+    return code()
+
+
 def _add_defect(sub):
     parser = sub.add_parser("defect", help="vacancy, substitution and interstitial electrostatics in a supercell",
                             description="Unrelaxed electrostatic energy change of point defects in a supercell, the "
@@ -1026,7 +1096,7 @@ def _add_correction(sub):
     _supercell_options(parser)
     parser.add_argument("--series", default="1,2,3,4", metavar="N,N,...",
                         help="repeats of the supercell for the 1/L check (default 1,2,3,4)")
-    parser.add_argument("--tol", type=float, default=1e-10, help="relative accuracy of the lattice sum")
+    parser.add_argument("--tol", type=_tolerance, default=1e-10, help="relative accuracy of the lattice sum")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
     return parser
 
@@ -1226,17 +1296,16 @@ def _add_fit(sub):
                         help="budget of the least-squares fit (default 200); running out is an error")
     parser.add_argument("-o", "--output", default="repulsion.json", metavar="PARAMS.json",
                         help="parameter file to write (default repulsion.json)")
+    _overwrite_option(parser)
     parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
                         help="charge of an element or site label for every file, e.g. Na=+1")
-    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL", help="Ewald accuracy (default 1e-10)")
+    parser.add_argument("--tol", type=_tolerance, default=1e-10, metavar="TOL", help="Ewald accuracy (default 1e-10)")
     parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å", help=argparse.SUPPRESS)
     parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
     return parser
 
 
 def _run_fit(args):
-    import os
-
     from .analysis.fitting import FitTarget, fit_repulsion
 
     fixed = _parse_pairs(args.fix, "--fix", number=False)
@@ -1247,6 +1316,7 @@ def _run_fit(args):
             except ValueError:
                 raise InputError(f"--fix {name}={value}: not a number") from None
     moduli = _parse_pairs(args.bulk_modulus, "--bulk-modulus")
+    _check_outputs(args, args.output)
     crystals = [_crystal_from(path, args) for path in args.files]
     used = set()
     targets = []
@@ -1264,7 +1334,7 @@ def _run_fit(args):
     result = fit_repulsion(targets, form=args.form, fixed=fixed, shared=args.shared, free=args.free,
                            start=_parse_pairs(args.start, "--start"), cutoff=args.cutoff,
                            switch_width=args.switch_width, tol=args.tol, max_evaluations=args.max_evaluations)
-    result.model.save(args.output)
+    write_with(args.output, result.model.save)
     if args.json:
         _print_json({"output": args.output, "form": args.form,
                      "parameters": [{"pairs": ["-".join(p) for p in x.pairs], "name": x.name, "value": x.value,
@@ -1315,7 +1385,7 @@ def _add_cycle(sub):
     parser.add_argument("--covalent-threshold", type=float, default=0.08, metavar="FRACTION",
                         help="flag covalent character when the model is this far below the cycle (default 0.08)")
     parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[], help=argparse.SUPPRESS)
-    parser.add_argument("--tol", type=float, default=1e-10, help=argparse.SUPPRESS)
+    parser.add_argument("--tol", type=_tolerance, default=1e-10, help=argparse.SUPPRESS)
     parser.add_argument("--min-distance", type=float, default=0.5, help=argparse.SUPPRESS)
     parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
     return parser
@@ -1425,28 +1495,47 @@ def _add_relax(sub):
     parser.add_argument("--fmax", type=float, default=1e-4, metavar="eV/Å", help="force criterion (default 1e-4)")
     parser.add_argument("--steps", type=int, default=500, help="most optimiser steps (default 500)")
     parser.add_argument("-o", "--output", metavar="OUT", help="relaxed structure (format from the extension; "
-                        "default FILE stem + '-relaxed.cif')")
+                        "default FILE stem + '-relaxed.cif'; a CIF carries the charges)")
+    parser.add_argument("--write-unconverged", action="store_true",
+                        help="write the last structure even if the relaxation did not converge")
+    _overwrite_option(parser)
     return parser
 
 
-def _run_relax(args):
-    import os
-
+def _write_structure(path, atoms, crystal):
+    """A structure file that reads back with the charges of ``crystal`` (CIF: oxidation states;
+    other formats: ASE initial charges where the format keeps them)."""
+    if path.lower().endswith(".cif"):
+        write_text(path, cif_text(atoms.cell, atoms.get_positions(), atoms.get_chemical_symbols(),
+                                  crystal.charges, crystal.labels, title=crystal.reduced_formula))
+        return
     import ase.io
 
+    atoms = atoms.copy()
+    atoms.set_initial_charges(crystal.charges)
+    try:
+        write_with(path, lambda temporary: ase.io.write(temporary, atoms))
+    except InputError:
+        raise
+    except Exception as exc:
+        raise InputError(f"{path}: cannot write the structure ({' '.join(str(exc).split())[:160]})") from None
+
+
+def _run_relax(args):
     from .analysis.calculator import relax
 
+    output = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-relaxed.cif"
+    _check_outputs(args, output)
     crystal = load_crystal(args)
     result = relax(crystal, args.repulsion, cell=not args.positions_only, fmax=args.fmax, steps=args.steps,
                    tol=args.tol)
-    output = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-relaxed.cif"
-    try:
-        ase.io.write(output, result.atoms)
-    except Exception as exc:
-        raise InputError(f"{output}: cannot write the relaxed structure ({exc})") from None
+    if not result.converged and not args.write_unconverged:
+        raise InputError(f"{args.file}: the relaxation did not converge in {result.steps} steps (fmax {args.fmax:g} "
+                         f"eV/Å); nothing written (raise --steps, loosen --fmax, or pass --write-unconverged)")
+    _write_structure(output, result.atoms, crystal)
     if not result.converged:
         raise InputError(f"{args.file}: the relaxation did not converge in {result.steps} steps (fmax {args.fmax:g} "
-                         f"eV/Å); raise --steps or loosen --fmax (last structure written to {output})")
+                         f"eV/Å); last structure written to {output}")
     z = result.formula_units
     if args.json:
         _print_json({"file": args.file, "output": output, "converged": result.converged, "steps": result.steps,
@@ -1478,16 +1567,18 @@ def _add_eos(sub):
     parser.add_argument("--span", type=float, default=0.06, help="relative volume range ± (default 0.06)")
     parser.add_argument("--points", type=int, default=11, help="number of volumes (default 11)")
     parser.add_argument("--plot", metavar="PNG", help="write a PNG of the scan and the fit")
+    _overwrite_option(parser)
     return parser
 
 
 def _run_eos(args):
     from .analysis.equation_of_state import equation_of_state
 
+    _check_outputs(args, args.plot)
     crystal = load_crystal(args)
     eos = equation_of_state(crystal, args.repulsion, span=args.span, points=args.points, tol=args.tol)
     if args.plot:
-        eos.plot(args.plot)
+        write_with(args.plot, eos.plot, binary=True)
     z = eos.formula_units
     if args.json:
         _print_json({"file": args.file, "volumes_angstrom3": eos.volumes, "energies_eV": eos.energies,
@@ -1832,14 +1923,45 @@ COMMANDS = {
 
 def build_parser():
     parser = _Parser(prog="madelung", description=DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter,
-                     epilog="Units: Å, e, eV, V; kJ/mol per formula unit. Exit codes: 0 done, 2 bad input, "
-                            "1 internal error.")
+                     epilog="Units: Å, e, eV, V; kJ/mol per formula unit. Exit codes: 0 every input done, "
+                            "2 an input failed (the others still done), 1 internal error. Existing files are "
+                            "replaced only with --overwrite.")
     parser.add_argument("--version", action="version", version=f"madelung {__version__}")
     parser.add_argument("--debug", action="store_true", help="show a full traceback on internal errors")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for add, _ in COMMANDS.values():
         add(sub)
     return parser
+
+
+class NonFiniteResult(MadelungError):
+    """A result came out NaN or infinite: our fault, reported as an internal error, never printed."""
+
+
+class _FiniteOutput:
+    """Standard output of a command: text holding a NaN or an infinity is refused, not printed."""
+
+    NON_FINITE = re.compile(r"(?<![\w./])[-+]?(?:nan|inf)(?![\w./-])")
+
+    def __init__(self, stream):
+        self.stream = stream
+
+    def write(self, text):
+        if self.NON_FINITE.search(text):
+            raise NonFiniteResult("a result is not a finite number (NaN or infinity); not printed")
+        return self.stream.write(text)
+
+    def __getattr__(self, name):
+        return getattr(self.stream, name)
+
+
+def _quiet_stdout():
+    """The reader closed the pipe: point stdout at /dev/null so the final flush stays silent."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
 
 
 def main(argv=None):
@@ -1849,23 +1971,33 @@ def main(argv=None):
         parser.print_help()
         return 2
     _, run = COMMANDS[args.command]
+    stdout = sys.stdout
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", MadelungWarning)
         try:
+            sys.stdout = _FiniteOutput(stdout)
             code = run(args)
+            sys.stdout = stdout
+            stdout.flush()
         except InputError as exc:
-            print(f"madelung: {exc}", file=sys.stderr)
+            sys.stdout = stdout
+            print(f"madelung: {' '.join(str(exc).split())}", file=sys.stderr)
             return 2
+        except BrokenPipeError:
+            sys.stdout = stdout
+            _quiet_stdout()
+            return 141
         except KeyboardInterrupt:
             print("madelung: interrupted", file=sys.stderr)
             return 130
         except Exception as exc:  # our fault, not the user's
             if args.debug:
                 raise
-            print(f"madelung: internal error: {type(exc).__name__}: {exc} (rerun with --debug for details)",
-                  file=sys.stderr)
+            print(f"madelung: internal error: {type(exc).__name__}: {' '.join(str(exc).split())} "
+                  "(rerun with --debug for details)", file=sys.stderr)
             return 1
         finally:
+            sys.stdout = stdout
             for w in caught:
                 if issubclass(w.category, MadelungWarning):
                     print(f"madelung: warning: {w.message}", file=sys.stderr)

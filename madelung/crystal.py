@@ -16,6 +16,7 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from .bounds import COINCIDENT_DISTANCE, check_cell, check_charges
 from .errors import InputError
 
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
@@ -112,6 +113,7 @@ class Crystal:
         if np.any(lengths < 1e-8) or volume < 1e-6 * float(np.prod(lengths)) or volume < 1e-8:
             raise InputError(f"{where}the cell is degenerate (volume {volume:.3g} Å^3); "
                              "three non-coplanar lattice vectors are needed")
+        check_cell(cell, positions, self.source, min_distance)
 
         if symbols is None:
             symbols = ["X"] * n
@@ -137,6 +139,7 @@ class Crystal:
 
         species = _resolve_species(species, symbols, occupancies, labels, where)
         charges = _resolve_charges(charges, symbols, labels, where, species)
+        check_charges(charges, labels, self.source)
         species_states = _resolve_states(species_states, symbols, species, labels, where)
 
         self.cell = cell
@@ -152,8 +155,7 @@ class Crystal:
             array.setflags(write=False)
 
         self.min_distance = float(min_distance)
-        if self.min_distance > 0:
-            self._check_overlaps()
+        self._check_overlaps()
 
     # ------------------------------------------------------------------ basics
     def __len__(self):
@@ -305,11 +307,12 @@ class Crystal:
     def _check_overlaps(self):
         from .sums.geometry import closest_pair_within
 
-        pair = closest_pair_within(self.cell, self.positions, self.min_distance)
+        limit = max(self.min_distance, COINCIDENT_DISTANCE)   # coincident ions: always refused
+        pair = closest_pair_within(self.cell, self.positions, limit)
         if pair is not None:
             i, j, d = pair
             raise InputError(f"{_where(self.source)}sites {self.labels[i]} (#{i}) and {self.labels[j]} (#{j}) "
-                             f"are {d:.3f} Å apart, closer than the {self.min_distance:g} Å allowed "
+                             f"are {d:.3f} Å apart, closer than the {limit:g} Å allowed "
                              "(duplicate atoms? set min_distance to change the limit)")
 
     # --------------------------------------------------------- constructors

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 from .errors import InputError
 from .report.plots import save_candidate_plot
+from .report.files import check_outputs, make_folder, write_with
 
 #: Where the demo candidates live in a checkout of the project.
 DEMO_FOLDER = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "structures", "demo")
@@ -78,16 +79,26 @@ class DemoResult:
         return "\n".join(lines)
 
 
-def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folder=DEMO_FOLDER) -> DemoResult:
-    """Screen the demo candidates, rank them and plot them (see the module docstring)."""
+def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folder=DEMO_FOLDER, parents=False,
+             overwrite=False) -> DemoResult:
+    """Screen the demo candidates, rank them and plot them (see the module docstring).
+
+    Creates ``out_dir`` (and its missing parents only with ``parents=True``); refuses files of an
+    earlier run in it unless ``overwrite``.
+    """
     from .screen import TableWriter, screen, table_columns
 
     folder = demo_structures(folder)
-    os.makedirs(out_dir, exist_ok=True)
+    out_dir = os.fspath(out_dir)
     table = os.path.join(out_dir, "candidates.parquet")
     sites = os.path.join(out_dir, "candidate_sites.parquet")
     plot = os.path.join(out_dir, "candidates.png")
-    summary = screen([folder], table, sites=sites, workers=workers, progress=progress)
+    if not os.path.isdir(out_dir) and not os.path.lexists(out_dir) and not parents and \
+            not os.path.isdir(os.path.dirname(os.path.abspath(out_dir))):
+        raise InputError(f"{out_dir}: its parent folder does not exist (create it, or pass --parents)")
+    make_folder(out_dir, parents=parents)
+    check_outputs([table, sites, plot], overwrite=overwrite)
+    summary = screen([folder], table, sites=sites, workers=workers, progress=progress, overwrite=overwrite)
     rows = [r for r in TableWriter(table, table_columns()).read() if r["status"] == "ok"]
     for row in rows:
         row["prototype"] = prototype_of(row["source"])
@@ -95,7 +106,7 @@ def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folde
     keep = ("reduced_formula", "prototype", "space_group", "energy_per_atom_eV", "energy_per_formula_unit_kJ_mol",
             "madelung_charges_left_in", "anion_potential_mean_V", "source")
     ranked = [{"rank": k + 1, **{name: row[name] for name in keep}} for k, row in enumerate(rows[:max(0, top)])]
-    save_candidate_plot(rows, plot, PROTOTYPES, _elements)
+    write_with(plot, lambda temporary: save_candidate_plot(rows, temporary, PROTOTYPES, _elements), binary=True)
     return DemoResult(summary=summary, ranked=ranked, table=table, sites=sites, plot=plot)
 
 

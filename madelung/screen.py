@@ -51,10 +51,11 @@ import numpy as np
 from .errors import InputError
 from .crystal import check_size
 from .io.read import charge_table, read_sites, sites_from_atoms, structures_to_read
+from .report.files import atomic_output, check_outputs, remove_stale_temporaries
 
 #: Columns that come before the descriptors, with their types.
 ID_COLUMNS = {"index": "int", "source": "str", "db_id": "int", "status": "str", "space_group": "str",
-              "space_group_number": "int", "charges_from": "str"}
+              "space_group_number": "int", "charges_from": "str", "settings": "str"}
 
 #: Columns that come after the descriptors: warnings raised for the structure, and timings (s).
 TAIL_COLUMNS = {"notes": "str", "seconds_read": "float", "seconds_charges": "float",
@@ -290,9 +291,16 @@ def failed_row(task, status, options, seconds=math.nan) -> dict:
 
     return {"index": task.index, "source": task.source, "db_id": task.db_id, "status": status,
             "space_group": "", "space_group_number": -1, "charges_from": _charges_from(options),
-            **empty_row(options.spectrum_length), "notes": "",
+            "settings": settings_text(options), **empty_row(options.spectrum_length), "notes": "",
             "seconds_read": math.nan, "seconds_charges": math.nan, "seconds_sums": math.nan,
             "seconds_total": seconds, "seconds_cpu": math.nan}
+
+
+def settings_text(options) -> str:
+    """The settings that change the numbers of a row, as the ``settings`` column holds them; a
+    resumed run refuses a table whose rows were made with other settings."""
+    return (f"tol={options.tol!r};charges={_charges_from(options)};symprec={options.symprec!r};"
+            f"occupancy={options.occupancy};spectrum={options.spectrum_length}")
 
 
 def _charges_from(options):
@@ -352,7 +360,8 @@ def screen_task(task, options):
         row.update(seconds_read=read, seconds_charges=charged, notes=notes[:500], seconds_cpu=cpu)
         return row, []
     row = {"index": task.index, "source": task.source, "db_id": task.db_id, "status": "ok", "space_group": group,
-           "space_group_number": number, "charges_from": _charges_from(options), **descriptors,
+           "space_group_number": number, "charges_from": _charges_from(options),
+           "settings": settings_text(options), **descriptors,
            "notes": notes[:500], "seconds_read": read, "seconds_charges": charged, "seconds_sums": summed,
            "seconds_total": total, "seconds_cpu": cpu}
     for site in sites:
@@ -518,6 +527,9 @@ class DaskExecutor:
     that has not finished ``timeout`` seconds after it was handed to the cluster is recorded as
     timed out and cancelled (Dask cannot stop a running task: its thread may finish in vain).
     A task whose worker died more often than the cluster allows is recorded as crashed.
+
+    Security: results come back through Dask's serialisation (pickle), so whoever controls the
+    scheduler or a worker can run code in this process. Use only a cluster you trust.
     """
 
     def __init__(self, scheduler, options, timeout=None):
@@ -627,6 +639,7 @@ class TableWriter:
         self.format = output_format(self.path)
         self.columns = dict(columns)
         self.rows_written = 0
+        self.fresh = False    # the next append replaces the file instead of extending it
         if self.format == "parquet":
             try:
                 import pyarrow  # noqa: F401
@@ -669,45 +682,47 @@ class TableWriter:
         self.rows_written = len(rows)
 
     def append(self, rows):
-        if rows:
-            self._replace(rows, keep_old=True)
+        if rows or self.fresh:
+            self._replace(rows, keep_old=not self.fresh)
+            self.fresh = False
             self.rows_written += len(rows)
 
     def _replace(self, rows, keep_old):
-        temporary = f"{self.path}.part-{os.getpid()}"
+        """Write the new table to a fresh file beside the old one (``atomic_output``: created with an
+        unpredictable name, never through a link) and rename it over the old one; a failed write
+        (a full disk) leaves the old table as it was and no partial file."""
         old = self.path if keep_old and os.path.exists(self.path) else None
         rows = [{name: row.get(name) for name in self.columns} for row in rows]
-        if self.format == "parquet":
-            import pyarrow as pa
-            import pyarrow.parquet as pq
+        binary = self.format == "parquet"
+        with atomic_output(self.path, binary=binary) as (handle, _):
+            if binary:
+                import pyarrow as pa
+                import pyarrow.parquet as pq
 
-            schema = _arrow_schema(self.columns)
-            with pq.ParquetWriter(temporary, schema) as writer:
-                if old is not None:
-                    previous = pq.ParquetFile(old)
-                    for group in range(previous.num_row_groups):
-                        writer.write_table(previous.read_row_group(group).cast(schema))
-                if rows or old is None:
-                    writer.write_table(pa.Table.from_pylist(rows, schema=schema))
-        else:
+                schema = _arrow_schema(self.columns)
+                with pq.ParquetWriter(handle, schema) as writer:
+                    if old is not None:
+                        previous = pq.ParquetFile(old)
+                        for group in range(previous.num_row_groups):
+                            writer.write_table(previous.read_row_group(group).cast(schema))
+                    if rows or old is None:
+                        writer.write_table(pa.Table.from_pylist(rows, schema=schema))
+                return
             if old is not None:
-                shutil.copyfile(old, temporary)
-            with open(temporary, "a" if old is not None else "w", newline="", encoding="utf-8") as handle:
-                if self.format == "csv":
-                    import csv
+                with open(old, encoding="utf-8", newline="") as previous:
+                    shutil.copyfileobj(previous, handle)
+            if self.format == "csv":
+                import csv
 
-                    writer = csv.writer(handle)
-                    if old is None:
-                        writer.writerow(list(self.columns))
-                    for row in rows:
-                        writer.writerow(["" if isinstance(v, float) and math.isnan(v) else
-                                         (repr(v) if isinstance(v, float) else v) for v in row.values()])
-                else:
-                    for row in rows:
-                        handle.write(json.dumps({k: _json_value(v) for k, v in row.items()}) + "\n")
-                handle.flush()
-                os.fsync(handle.fileno())
-        os.replace(temporary, self.path)
+                writer = csv.writer(handle)
+                if old is None:
+                    writer.writerow(list(self.columns))
+                for row in rows:
+                    writer.writerow(["" if isinstance(v, float) and math.isnan(v) else
+                                     (repr(v) if isinstance(v, float) else v) for v in row.values()])
+            else:
+                for row in rows:
+                    handle.write(json.dumps({k: _json_value(v) for k, v in row.items()}) + "\n")
 
     def sort_by_index(self):
         """Rewrite the table in input order (after a resumed run has appended out of order)."""
@@ -735,6 +750,42 @@ def _write_back(database, rows):
                     continue
                 pairs[f"madelung_{key}"] = value if not isinstance(value, str) else value[:300]
             connection.update(int(row["db_id"]), **pairs)
+
+
+class TableLock:
+    """A lock file beside the table (``TABLE.lock``) held for the whole run: a second run writing
+    the same table is refused instead of interleaving its rows. The lock is an advisory
+    ``flock``, so the kernel drops it when a run dies (even by SIGKILL) and a stale lock file
+    never blocks a resume."""
+
+    def __init__(self, path):
+        import fcntl
+
+        self.path = os.fspath(path) + ".lock"
+        try:
+            self.descriptor = os.open(self.path, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o644)
+        except OSError as exc:
+            raise InputError(f"{self.path}: cannot create the lock file of the table "
+                             f"({exc.strerror or exc})") from None
+        try:
+            fcntl.flock(self.descriptor, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            same = os.fstat(self.descriptor).st_ino == os.stat(self.path).st_ino
+        except OSError:
+            same = False
+        if not same:
+            os.close(self.descriptor)
+            self.descriptor = None
+            raise InputError(f"{path}: another run is writing this table (lock {self.path}); wait for it to end")
+
+    def release(self):
+        if self.descriptor is None:
+            return
+        try:
+            os.unlink(self.path)
+        except OSError:
+            pass
+        os.close(self.descriptor)
+        self.descriptor = None
 
 
 # ---------------------------------------------------------------- progress
@@ -823,7 +874,8 @@ class ScreenSummary:
 
     def as_dict(self):
         return {"total": self.total, "ok": self.ok, "failed": self.failed, "skipped": self.skipped,
-                "seconds": self.seconds, "structures_per_second": self.rate, "out": self.out,
+                "seconds": self.seconds, "structures_per_second": self.rate if math.isfinite(self.rate) else None,
+                "out": self.out,
                 "sites": self.sites, "executor": self.executor,
                 "failures": [{"source": s, "status": m} for s, m in self.failures]}
 
@@ -831,7 +883,8 @@ class ScreenSummary:
 def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="file", charge_rules=None,
            tol=1e-8, workers=None, scheduler=None, timeout=None, resume=False, sites=None, write_db=False,
            chunk_size=256, progress=True, spectrum_length=None, symprec=None, min_distance=0.5,
-           max_atoms=None, occupancy="average", progress_every=10.0, allow_net_charge=False) -> ScreenSummary:
+           max_atoms=None, occupancy="average", progress_every=10.0, allow_net_charge=False,
+           overwrite=False) -> ScreenSummary:
     """Screen many structures and write one row each (see the module docstring).
 
     Parameters
@@ -855,7 +908,11 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     timeout : float, optional
         Seconds allowed per structure; a structure over it is recorded as failed.
     resume : bool
-        Keep the rows of ``out`` whose status is ok and screen only the rest.
+        Keep the rows of ``out`` whose status is ok and screen only the rest. The rows must have
+        been made with the same settings (tolerance, charges, symmetry tolerance, occupancy).
+    overwrite : bool
+        Replace an existing ``out`` (and ``sites``) table. Without it, and without ``resume``, an
+        existing table is refused. The old table stays whole until the first new chunk replaces it.
     sites : str, optional
         Also write the per-site table here (same formats).
     write_db : bool
@@ -895,32 +952,55 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     site_writer = TableWriter(sites, site_table_columns()) if sites else None
     if site_writer is not None and os.path.abspath(site_writer.path) == os.path.abspath(table.path):
         raise InputError(f"{sites}: the site table must be another file than the results table")
+    if workers is not None and (not isinstance(workers, int) or workers < 1):
+        raise InputError(f"workers must be at least 1, got {workers!r}")
+    outputs = [table.path] + ([site_writer.path] if site_writer is not None else [])
+    named = [os.fspath(i) for i in inputs if not _is_glob(os.fspath(i))] + ([os.fspath(db)] if db else [])
+    check_outputs(outputs, inputs=named, overwrite=True)
+    if not resume and not overwrite:
+        for path in outputs:
+            if os.path.lexists(path):
+                raise InputError(f"{path}: exists; pass --resume to continue it or --overwrite to replace it")
 
+    # every check that can fail comes before the existing table is touched
     total = count_tasks(inputs, db, select)
-    done_sources = set()
-    if resume:
-        kept = [row for row in table.read() if row.get("status") == "ok"]
-        if kept and set(kept[0]) != set(columns):
-            raise InputError(f"{table.path}: the table has other columns than this run writes (another spectrum "
-                             "length or madelung version?); resume into a new file instead")
-        done_sources = {row["source"] for row in kept}
-        if site_writer is not None:
-            site_writer.start([r for r in site_writer.read() if r.get("source") in done_sources])
-        table.start(kept)
-    else:
-        if site_writer is not None:
-            site_writer.start()
-        table.start()
-
-    if scheduler is not None:
-        executor = DaskExecutor(scheduler, options, timeout)
-        name = f"dask ({getattr(executor.client, 'scheduler', None) and executor.client.scheduler.address})"
-    else:
-        count = workers if workers else (os.cpu_count() or 1)
-        if count < 1:
-            raise InputError(f"workers must be at least 1, got {workers}")
-        executor = LocalPool(count, options, timeout)
-        name = f"local pool ({executor.capacity} worker{'s' if executor.capacity > 1 else ''})"
+    lock = TableLock(table.path)
+    executor = None
+    try:
+        for path in outputs:
+            remove_stale_temporaries(path)   # left by a run killed mid-write; the lock says none is alive
+        if scheduler is not None:
+            executor = DaskExecutor(scheduler, options, timeout)
+            name = f"dask ({getattr(executor.client, 'scheduler', None) and executor.client.scheduler.address})"
+        else:
+            count = workers if workers else (os.cpu_count() or 1)
+            executor = LocalPool(count, options, timeout)
+            name = f"local pool ({executor.capacity} worker{'s' if executor.capacity > 1 else ''})"
+        done_sources = set()
+        if resume:
+            kept = [row for row in table.read() if row.get("status") == "ok"]
+            if kept and set(kept[0]) != set(columns):
+                raise InputError(f"{table.path}: the table has other columns than this run writes (another spectrum "
+                                 "length or madelung version?); resume into a new file instead")
+            wanted = settings_text(options)
+            other = next((row["settings"] for row in kept if row.get("settings") != wanted), None)
+            if other is not None:
+                raise InputError(f"{table.path}: rows were made with other settings ({other}) than this run "
+                                 f"({wanted}); resume with the same settings or write a new table")
+            done_sources = {row["source"] for row in kept}
+            if site_writer is not None:
+                site_writer.start([r for r in site_writer.read() if r.get("source") in done_sources])
+            table.start(kept)
+        else:
+            # the old table (replaced with --overwrite) stays whole until the first chunk is written
+            table.fresh = True
+            if site_writer is not None:
+                site_writer.fresh = True
+    except BaseException:
+        if executor is not None:
+            executor.close(kill=True)
+        lock.release()
+        raise
 
     meter = Progress(total - len(done_sources), enabled=progress, every=progress_every)
     started = time.perf_counter()
@@ -980,17 +1060,22 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
         flush()
     except BaseException:
         try:
-            flush()   # keep what is done; the file stays a complete table either way
+            if pending_rows:
+                flush()   # keep what is done; the file stays a complete table either way
         finally:
             executor.close(kill=True)
             meter.close()
+            lock.release()
         raise
-    executor.close()
-    meter.close()
-    if resume and done_sources:
-        table.sort_by_index()
-        if site_writer is not None:
-            site_writer.sort_by_index()
+    try:
+        executor.close()
+        meter.close()
+        if resume and done_sources:
+            table.sort_by_index()
+            if site_writer is not None:
+                site_writer.sort_by_index()
+    finally:
+        lock.release()
     return ScreenSummary(total=total, ok=ok, failed=failed, skipped=len(done_sources),
                          seconds=time.perf_counter() - started, out=table.path,
                          sites=None if site_writer is None else site_writer.path, executor=name,

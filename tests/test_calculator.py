@@ -119,7 +119,7 @@ def test_cli_relax_and_eos(fitted, tmp_path, capsys):
     code = main(["relax", str(NACL), "--repulsion", str(tmp_path / "missing.json")])
     assert code == 2 and "missing.json" in capsys.readouterr().err
     code = main(["relax", str(strained), "--charge", "Na=1", "--charge", "Cl=-1", "--repulsion", str(params),
-                 "-o", str(out_file), "--steps", "1"])
+                 "-o", str(out_file), "--steps", "1", "--overwrite"])
     assert code == 2 and "did not converge" in capsys.readouterr().err
 
 

@@ -128,7 +128,10 @@ def test_not_periodic(tmp_path, capsys):
 
 
 def test_bad_tolerance(capsys):
-    assert_input_error(["energy", structure("rocksalt-NaCl"), "--tol", "-1"], capsys, "tol")
+    # refused while the arguments are parsed, before the structure is read
+    for value in ("-1", "nan", "1e-20"):
+        code, _, err = run_usage(["energy", structure("rocksalt-NaCl"), "--tol", value], capsys)
+        assert code == 2 and "--tol" in err and len(err.strip().splitlines()) == 1
 
 
 def test_all_charges_zero(capsys):

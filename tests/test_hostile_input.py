@@ -1,17 +1,16 @@
 """Hostile input: every bad file gives exit code 2 and one line naming the file (CLI), or an
 InputError naming it (API); nothing escapes as a traceback."""
 
-import io
 import re
 import warnings
-from contextlib import redirect_stderr, redirect_stdout
 from pathlib import Path
 
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 from madelung import Crystal, InputError, MadelungWarning
-from madelung.cli import main
+
+from fuzz_corpus import run_command as run
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
 NACL = (STRUCTURES / "rocksalt-NaCl.cif").read_text()
@@ -49,14 +48,6 @@ def files(tmp_path_factory):
     return paths
 
 
-def run(argv):
-    out, err = io.StringIO(), io.StringIO()
-    with redirect_stdout(out), redirect_stderr(err):
-        try:
-            code = main(argv)
-        except SystemExit as exc:   # argparse usage errors
-            code = exc.code
-    return code, out.getvalue(), err.getvalue()
 
 
 def test_the_negative_cell_case_edits_the_file():

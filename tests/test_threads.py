@@ -9,7 +9,7 @@ from ase.build import bulk
 
 import madelung
 from madelung.sums._kernels import kernels
-from madelung.sums import reciprocal_vectors
+from madelung.sums.plan import reciprocal_vectors
 from madelung.sums.geometry import build_bins, wrapped_fractional
 
 pytestmark = pytest.mark.skipif(numba.config.NUMBA_NUM_THREADS < 2, reason="needs two threads")

@@ -12,6 +12,7 @@ import tempfile
 import numpy as np
 
 from ..errors import InputError
+from ..report.files import atomic_output, cif_text, make_folder, write_text
 
 #: The files written into the output folder, by role.
 FILES = {"cluster_xyz": "cluster.xyz", "cluster_cif": "cluster.cif", "point_charges": "point_charges.txt",
@@ -27,7 +28,7 @@ LIMITS = ("A point-charge field: it reproduces the electrostatic potential of ri
 
 def check_output_folder(folder, overwrite=False):
     """Refuse before any work when the folder cannot be written or already holds our files (the
-    folder is created if missing)."""
+    folder is created if missing; its parent must exist)."""
     folder = os.fspath(folder)
     if os.path.exists(folder) and not os.path.isdir(folder):
         raise InputError(f"output folder {folder} is a file, not a folder")
@@ -35,41 +36,23 @@ def check_output_folder(folder, overwrite=False):
     if existing and not overwrite:
         raise InputError(f"output folder {folder} already holds {', '.join(existing)}; "
                          "choose another folder or pass --overwrite")
+    make_folder(folder)
     try:  # try it for real: permission bits say little to root or on network file systems
-        os.makedirs(folder, exist_ok=True)
         with tempfile.NamedTemporaryFile(dir=folder, prefix=".madelung-write-test-"):
             pass
     except OSError as exc:
         raise InputError(f"output folder {folder} cannot be written: {exc.strerror or exc}") from None
 
 
-def _charge_symbol(symbol, charge):
-    if abs(charge) < 1e-12:
-        return symbol
-    return f"{symbol}{abs(charge):g}{'+' if charge > 0 else '-'}"
-
-
 def _cif_text(result):
+    """The cluster in a cubic box with its charges as oxidation states (one CIF writer for the package)."""
     positions = result.cluster_positions - result.center
     side = 2.0 * (float(np.max(np.abs(positions))) if len(positions) else 0.0) + 2.0 * CIF_VACUUM
-    frac = positions / side + 0.5
-    types = {}
-    for symbol, q in zip(result.cluster_symbols, result.cluster_charges):
-        types.setdefault(_charge_symbol(symbol, q), float(q))
-    lines = ["data_embedded_cluster",
-             f"_cell_length_a {side:.6f}", f"_cell_length_b {side:.6f}", f"_cell_length_c {side:.6f}",
-             "_cell_angle_alpha 90", "_cell_angle_beta 90", "_cell_angle_gamma 90",
-             "_symmetry_space_group_name_H-M 'P 1'", "_symmetry_Int_Tables_number 1", "",
-             "loop_", "_symmetry_equiv_pos_as_xyz", "'x, y, z'", "",
-             "loop_", "_atom_type_symbol", "_atom_type_oxidation_number",
-             *[f"{name} {q:.10g}" for name, q in types.items()], "",
-             "loop_", "_atom_site_label", "_atom_site_type_symbol", "_atom_site_fract_x", "_atom_site_fract_y",
-             "_atom_site_fract_z", "_atom_site_occupancy"]
-    for k, (label, symbol, q, f) in enumerate(zip(result.cluster_labels, result.cluster_symbols,
-                                                  result.cluster_charges, frac)):
-        lines.append(f"{label}_{k + 1} {_charge_symbol(symbol, q)} {f[0]:.8f} {f[1]:.8f} {f[2]:.8f} 1")
-    return "\n".join(["# cluster cut from the crystal for an embedded-cluster calculation: one "
-                      f"cubic box of {side:.3f} Å with the centre in the middle; not a periodic crystal", *lines]) + "\n"
+    labels = [f"{label}_{k + 1}" for k, label in enumerate(result.cluster_labels)]
+    return cif_text(side * np.eye(3), positions + 0.5 * side, result.cluster_symbols, result.cluster_charges,
+                    labels=labels, title="embedded_cluster",
+                    comment="cluster cut from the crystal for an embedded-cluster calculation: one cubic box of "
+                            f"{side:.3f} Å with the centre in the middle; not a periodic crystal")
 
 
 def embedding_report(result) -> str:
@@ -107,30 +90,26 @@ def embedding_report(result) -> str:
 
 
 def write_embedding(result, folder, overwrite=False) -> dict:
-    """Write the embedding's files into ``folder`` (created if needed); return {role: path}.
+    """Write the embedding's files into ``folder`` (created if needed), each atomically; return {role: path}.
 
     Files (centre at the origin, Å, e): cluster.xyz, cluster.cif, point_charges.txt (one
     "x y z q" line per point charge, cluster ions not included), report.txt and embedding.json.
     """
     check_output_folder(folder, overwrite)
     folder = os.fspath(folder)
-    os.makedirs(folder, exist_ok=True)
     paths = {role: os.path.join(folder, name) for role, name in FILES.items()}
     positions = result.cluster_positions - result.center
-    with open(paths["cluster_xyz"], "w") as handle:
+    with atomic_output(paths["cluster_xyz"]) as (handle, _):
         handle.write(f"{len(positions)}\n")
         handle.write(f"cluster of {len(positions)} ions around {result.center_text}, charge "
                      f"{result.cluster_charge:+.6g} e; Å, centre at the origin\n")
         for symbol, p in zip(result.cluster_symbols, positions):
             handle.write(f"{symbol:<3s} {p[0]:15.8f} {p[1]:15.8f} {p[2]:15.8f}\n")
-    with open(paths["cluster_cif"], "w") as handle:
-        handle.write(_cif_text(result))
+    write_text(paths["cluster_cif"], _cif_text(result))
     charges = result.charge_positions - result.center
-    with open(paths["point_charges"], "w") as handle:
+    with atomic_output(paths["point_charges"]) as (handle, _):
         for p, q in zip(charges, result.charges):
             handle.write(f"{p[0]:17.10f} {p[1]:17.10f} {p[2]:17.10f} {q:20.14f}\n")
-    with open(paths["report"], "w") as handle:
-        handle.write(embedding_report(result) + "\n")
-    with open(paths["json"], "w") as handle:
-        json.dump(result.to_dict(), handle, indent=1)
+    write_text(paths["report"], embedding_report(result) + "\n")
+    write_text(paths["json"], json.dumps(result.to_dict(), indent=1))
     return paths

@@ -17,43 +17,15 @@ import os
 import numpy as np
 
 from ..errors import InputError
+from ..report.files import cif_text, make_folder, write_text, write_with
 
 TABLE_FORMATS = ("parquet", "csv")
 
 
-def typed_symbol(element, charge):
-    """``Li1+``, ``O2-``, ``Co3.5+``: the element and its charge as CIF type symbols write them."""
-    magnitude = f"{abs(float(charge)):.6g}"
-    return f"{element}{magnitude}{'-' if charge < 0 else '+'}"
-
-
 def write_cif(path, crystal, title="ordering", comment=None):
-    """Write an ordered crystal as a P1 CIF with oxidation states (one typed symbol per ion kind)."""
-    from ase.geometry import cell_to_cellpar
-
-    a, b, c, alpha, beta, gamma = cell_to_cellpar(crystal.cell)
-    frac = crystal.fractional_positions
-    frac = frac - np.floor(frac + 1e-12)
-    types = {}
-    for element, q in zip(crystal.symbols, crystal.charges):
-        types.setdefault(typed_symbol(element, q), float(q))
-    lines = [f"data_{title}"]
-    if comment:
-        lines += [f"# {line}" for line in str(comment).splitlines()]
-    lines += [f"_cell_length_a {a:.8f}", f"_cell_length_b {b:.8f}", f"_cell_length_c {c:.8f}",
-              f"_cell_angle_alpha {alpha:.8f}", f"_cell_angle_beta {beta:.8f}", f"_cell_angle_gamma {gamma:.8f}",
-              "_symmetry_space_group_name_H-M 'P 1'", "_symmetry_Int_Tables_number 1", "",
-              "loop_", "_symmetry_equiv_pos_as_xyz", "'x, y, z'", "",
-              "loop_", "_atom_type_symbol", "_atom_type_oxidation_number"]
-    lines += [f"{name} {q:.6g}" for name, q in types.items()]
-    lines += ["", "loop_", "_atom_site_label", "_atom_site_type_symbol", "_atom_site_fract_x",
-              "_atom_site_fract_y", "_atom_site_fract_z", "_atom_site_occupancy"]
-    running = {}
-    for element, q, f in zip(crystal.symbols, crystal.charges, frac):
-        running[element] = running.get(element, 0) + 1
-        lines.append(f"{element}{running[element]} {typed_symbol(element, q)} {f[0]:.8f} {f[1]:.8f} {f[2]:.8f} 1")
-    with open(path, "w", encoding="utf-8") as handle:
-        handle.write("\n".join(lines) + "\n")
+    """Write an ordered crystal as a P1 CIF with oxidation states (see :func:`madelung.report.files.cif_text`)."""
+    write_text(path, cif_text(crystal.cell, crystal.positions, crystal.symbols, crystal.charges, title=title,
+                              comment=comment))
 
 
 def energy_table(ranking) -> dict:
@@ -79,6 +51,9 @@ def check_output_folder(folder, overwrite=False):
         raise InputError(f"{folder}: exists and is not a folder")
     if os.path.isdir(folder) and os.listdir(folder) and not overwrite:
         raise InputError(f"{folder}: folder is not empty; choose another or allow replacing its files (--overwrite)")
+    parent = os.path.dirname(os.path.abspath(folder))
+    if not os.path.isdir(folder) and not os.path.isdir(parent):
+        raise InputError(f"{folder}: its parent folder {parent} does not exist (create it first)")
 
 
 def write_ranking(ranking, folder, table_format="parquet", overwrite=False) -> dict:
@@ -87,7 +62,7 @@ def write_ranking(ranking, folder, table_format="parquet", overwrite=False) -> d
     if table_format not in TABLE_FORMATS:
         raise InputError(f"table format must be one of {', '.join(TABLE_FORMATS)}, got {table_format!r}")
     check_output_folder(folder, overwrite)
-    os.makedirs(folder, exist_ok=True)
+    make_folder(folder)
     cifs = []
     for ordering in ranking.orderings:
         path = os.path.join(folder, f"ordering_{ordering.rank:03d}.cif")
@@ -104,9 +79,9 @@ def write_ranking(ranking, folder, table_format="parquet", overwrite=False) -> d
     if table_format == "parquet":
         import pyarrow.parquet as pq
 
-        pq.write_table(table, path)
+        write_with(path, lambda temporary: pq.write_table(table, temporary), binary=True)
     else:
         import pyarrow.csv as pcsv
 
-        pcsv.write_csv(table, path)
+        write_with(path, lambda temporary: pcsv.write_csv(table, temporary), binary=True)
     return {"cif": cifs, "table": path}

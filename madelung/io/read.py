@@ -34,6 +34,7 @@ from typing import Mapping
 import ase.io
 import numpy as np
 
+from ..bounds import precheck_file
 from ..charges import EquilibrationResult, assign_oxidation_states, equilibrate
 from ..charges.oxidation import OxidationAssignment
 from ..crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size,
@@ -67,6 +68,7 @@ def _check_path(path):
 
 
 def _read_frames(path, format, max_atoms):
+    precheck_file(path, format, max_atoms)   # numbers and claimed sizes no reader should trust
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -129,6 +131,7 @@ def read_sites(path, *, block=None, format=None, max_atoms=DEFAULT_MAX_ATOMS) ->
     path = os.fspath(path)
     _check_path(path)
     if _is_cif(path, format):
+        precheck_file(path, "cif", max_atoms)
         name, entry = choose_block(cif_blocks(path), block, path)
         table = block_sites(entry, path, max_atoms=max_atoms)
         check_size(len(table), max_atoms, path)

@@ -1,7 +1,6 @@
-"""The electrostatics core: Ewald sums of periodic point charges, all run from one sum plan."""
+"""The electrostatics core: Ewald sums of periodic point charges, all run from one sum plan.
 
-from .direct import EwaldParameters, EwaldResult, ewald_direct, shortest_distance
-from .plan import SumPlan, plan_for, plan_sum, reciprocal_vectors
-
-__all__ = ["EwaldParameters", "EwaldResult", "ewald_direct", "reciprocal_vectors", "shortest_distance",
-           "SumPlan", "plan_for", "plan_sum"]
+Import what you need from its modules (``madelung.sums.plan``, ``.direct``, ``.mesh``,
+``.matrix``, ``.geometry``, ``.shortrange``); the package imports nothing itself, so the
+structure checks (``madelung.bounds``) can use the geometry without loading the engines.
+"""

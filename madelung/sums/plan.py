@@ -26,6 +26,7 @@ from functools import cached_property
 
 import numpy as np
 
+from ..bounds import check_mesh
 from ..errors import InputError
 from .geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
@@ -265,6 +266,7 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
         reciprocal_cutoff, recip_error, shape, spline = choice.reciprocal_cutoff, choice.reciprocal_error, None, None
     else:
         shape, spline = tuple(int(k) for k in choice.shape), int(choice.order)
+        check_mesh(shape)
         reciprocal_cutoff = float(min(math.pi * shape[i] / lengths[i] for i in range(3)))
         recip_error = choice.mesh_error
     return SumPlan(
