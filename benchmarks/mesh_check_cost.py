@@ -8,26 +8,14 @@ the sum. Rattled rock salt in an oblique basis (rows a, 3a+b, 3a+3b+c), energy +
 """
 
 import sys
-import time
 
 import numba
-import numpy as np
 
 sys.path.insert(0, ".")
-import madelung  # noqa: E402
 from madelung.sums.mesh import ewald_mesh  # noqa: E402
 
 sys.path.insert(0, "benchmarks")
-from common import rattled_rock_salt  # noqa: E402
-
-
-def best_cpu(call, repeats=3):
-    times = []
-    for _ in range(repeats):
-        started = time.process_time()
-        result = call()
-        times.append(time.process_time() - started)
-    return min(times), result
+from common import best_cpu, rattled_rock_salt  # noqa: E402
 
 
 def main():

@@ -10,7 +10,6 @@ in the same run; both results are checked against each other.
 
 import os
 import sys
-import time
 
 import numba
 import numpy as np
@@ -19,16 +18,7 @@ sys.path.insert(0, ".")
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import madelung  # noqa: E402
 from baseline_numpy import numpy_ewald  # noqa: E402
-from common import STRUCTURES, print_table  # noqa: E402
-
-
-def best_cpu(call, repeat=30):
-    best = np.inf
-    for _ in range(repeat):
-        started = time.process_time()
-        call()
-        best = min(best, time.process_time() - started)
-    return best
+from common import STRUCTURES, best_cpu, print_table  # noqa: E402
 
 
 def cases():
@@ -48,11 +38,11 @@ def main():
         base = numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=1e-8, forces=True)
         energy = base[0] if isinstance(base, tuple) else base["energy"]
         agree = abs(ours.energy - energy) / ours.energy_scale
-        t_ours = best_cpu(lambda: madelung.ewald(crystal, tol=1e-8, forces=True))
-        t_base = best_cpu(lambda: numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=1e-8,
+        t_ours, _ = best_cpu(lambda: madelung.ewald(crystal, tol=1e-8, forces=True), repeat=30)
+        t_base, _ = best_cpu(lambda: numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=1e-8,
                                               forces=True), repeat=10)
         madelung.describe(crystal)
-        t_describe = best_cpu(lambda: madelung.describe(crystal), repeat=10)
+        t_describe, _ = best_cpu(lambda: madelung.describe(crystal), repeat=10)
         rows.append([name, f"{1e3 * t_ours:.3f}", f"{1e3 * t_base:.3f}", f"{t_base / t_ours:.1f}x",
                      f"{1e3 * t_describe:.2f}", f"{t_base / t_describe:.2f}x", f"{agree:.1e}"])
     print_table(["case", "ewald ms", "NumPy ms", "speed-up", "describe ms", "NumPy/describe", "|dE|/E_scale"],
