@@ -2,14 +2,17 @@
 relaxation back to the fitted structure, and the relax / eos commands."""
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
 import pytest
 from ase.io import read
+from matplotlib.image import imread
 
 from madelung import Crystal, InputError
 from madelung.analysis.calculator import RigidIonCalculator, relax
+from madelung.analysis.equation_of_state import equation_of_state
 from madelung.analysis.fitting import FitTarget, fit_repulsion
 from madelung.analysis.lattice_energy import scaled
 
@@ -144,12 +147,6 @@ def test_hypothetical_caesium_chloride_type_nacl_is_less_stable(fitted):
 def _check_eos_report(out, png, crystal, params):
     """The eos command prints the numbers of the library's fit, and the fit has the bulk modulus the
     model was fitted to; the plot is a real image of the stated size."""
-    import re
-
-    from matplotlib.image import imread
-
-    from madelung.analysis.equation_of_state import equation_of_state
-
     eos = equation_of_state(crystal, str(params), points=7)
     b0, b0_prime = map(float, re.search(r"B0\s+([-\d.]+) GPa\s+B0' ([-\d.]+)", out).groups())
     v0 = float(re.search(r"V0\s+([-\d.]+) Å\^3 per cell", out).group(1))

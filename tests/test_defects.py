@@ -7,6 +7,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ase.io.cube import read_cube_data
+from matplotlib.image import imread
 
 import madelung
 from madelung import Crystal, InputError, MadelungWarning
@@ -238,9 +240,6 @@ def test_cli_defect_report_and_map(tmp_path, capsys):
 
 def _check_map_files(cube_path, png_path, crystal, grid):
     """The map command's files read back: the cube holds the library's grid, the PNG is a real image."""
-    from ase.io.cube import read_cube_data
-    from matplotlib.image import imread
-
     values, atoms = read_cube_data(str(cube_path))
     expected = madelung.potential_grid(crystal, grid, smearing=0.3, tol=1e-8)
     assert values.shape == tuple(expected.shape)

@@ -4,7 +4,9 @@ the textbook trends, the equation of state, and the fitting errors."""
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
+from matplotlib.image import imread
 
 from madelung import Crystal, InputError
 from madelung.analysis.madelung_constants import madelung_constants
@@ -133,8 +135,6 @@ def test_equation_of_state_recovers_fitted_bulk_modulus(tmp_path):
     assert 3.0 < eos.b0_prime < 7.0                            # typical B' of alkali halides, fact of the trade
     png = tmp_path / "eos.png"
     eos.plot(png)
-    from matplotlib.image import imread
-
     image = imread(str(png))             # a 6 x 4.2 in figure at 120 dpi: 720 x 504 pixels, values in [0, 1]
     assert image.shape[:2] == (504, 720) and 0.0 <= image.min() and image.max() <= 1.0
     assert len(np.unique(image[..., :3].reshape(-1, 3), axis=0)) > 20       # points, curve and text drawn
