@@ -135,5 +135,8 @@ def test_readme_block_runs(line, language, text, workdir, capsys):
             code = main(argv)
             captured = capsys.readouterr()
             assert code == expected, f"README.md:{line}: madelung {' '.join(argv)} exited {code}: {captured.err}"
+            if expected == 2:
+                # the README's exit-code-2 examples each have exactly one bad input on purpose
+                assert "madelung: 1 of " in captured.err, f"README.md:{line}: {captured.err}"
     finally:
         os.chdir(here)
