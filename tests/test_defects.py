@@ -7,6 +7,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ase.io.cube import read_cube_data
+from matplotlib.image import imread
 
 import madelung
 from madelung import Crystal, InputError, MadelungWarning
@@ -232,7 +234,35 @@ def test_cli_defect_report_and_map(tmp_path, capsys):
     assert data["dielectric_correction_eV"] == pytest.approx(data["image_correction_vacuum_eV"] / 9.8, rel=1e-9)
     prefix = tmp_path / "mgo"
     assert main(["map", mgo, "--grid", "0.5", "--plane", "001", "--offset", "0.5", "--output", str(prefix)]) == 0
-    assert (tmp_path / "mgo.cube").stat().st_size > 0 and (tmp_path / "mgo.png").stat().st_size > 0
+    capsys.readouterr()
+    _check_map_files(tmp_path / "mgo.cube", tmp_path / "mgo.png", _load("rocksalt-MgO.cif"), grid=0.5)
+
+
+def _check_map_files(cube_path, png_path, crystal, grid):
+    """The map command's files read back: the cube holds the library's grid, the PNG is a real image."""
+    values, atoms = read_cube_data(str(cube_path))
+    expected = madelung.potential_grid(crystal, grid, smearing=0.3, tol=1e-8)
+    assert values.shape == tuple(expected.shape)
+    # the cube format keeps six significant digits
+    scale = np.abs(expected.values).max()
+    assert np.abs(values - expected.values).max() < 1e-5 * scale
+    assert np.allclose(atoms.cell[:], crystal.cell, atol=1e-5)
+    assert np.allclose(atoms.positions, crystal.positions, atol=1e-5)
+    # grid point (i, j, k) of the file is the fractional point (i/n1, j/n2, k/n3): spot-check it against
+    # the potential at that point computed directly, and the Ewald convention (zero cell average)
+    i, j, k = (n // 3 for n in values.shape)
+    point = (np.array([i, j, k]) / np.array(values.shape)) @ crystal.cell
+    direct = madelung.potential_at(crystal, point[None, :], smearing=0.3, tol=1e-10)
+    assert values[i, j, k] == pytest.approx(float(direct.potentials[0]), abs=1e-5 * scale)
+    assert abs(values.mean()) < 1e-4 * scale
+    image = imread(str(png_path))
+    # figure 6.4 x 5.2 in at 120 dpi, trimmed to its drawing: a few hundred pixels each way, RGBA in [0, 1]
+    assert image.ndim == 3 and image.shape[2] in (3, 4)
+    assert 300 < image.shape[0] < 700 and 400 < image.shape[1] < 850
+    assert image.min() >= 0.0 and image.max() <= 1.0
+    # a heat map, not a blank page: many distinct colours, dark axes and text present
+    assert len(np.unique(image[..., :3].reshape(-1, 3), axis=0)) > 50
+    assert image[..., :3].min() < 0.2
 
 
 def test_defect_series_extrapolates_to_the_madelung_estimate():
