@@ -52,7 +52,7 @@ def _add_screen(sub):
 
 def _run_screen(args):
     from ..crystal import parse_charge_rules
-    from ..screen import screen
+    from ..batch import screen
 
     if not args.inputs and not args.db:
         raise InputError("nothing to screen: give files, folders, globs or --db FILE")
