@@ -7,7 +7,9 @@ import numpy as np
 from ..errors import InputError
 from ..units import EV_TO_KJ_PER_MOL
 from .loading import _charged
-from .options import _crystal_options, _structure_options, _tolerance
+from .options import (
+    COARSE_TOL, _charge_option, _crystal_options, _json_option, _min_distance_option, _structure_options,
+    _tol_option)
 from .output import _print_json
 
 
@@ -21,8 +23,7 @@ def _add_charges(sub):
     parser.add_argument("file", metavar="FILE", help="structure file: CIF, POSCAR, extended XYZ, ... (read by ASE)")
     parser.add_argument("--method", choices=("auto", "equilibrate"), default="auto",
                         help="oxidation-state assignment (auto, default) or charge equilibration")
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
-                        help="fix the state of an element or site label, e.g. Fe1=+3 (auto only; repeat as needed)")
+    _charge_option(parser, help="fix the state of an element or site label, e.g. Fe1=+3 (auto only; repeat as needed)")
     parser.add_argument("--ignore-file-states", action="store_true",
                         help="assign every site afresh, ignoring oxidation states written in the file")
     parser.add_argument("--mixing-denominator", type=int, default=2, metavar="D",
@@ -33,10 +34,9 @@ def _add_charges(sub):
                         help="equilibration: relative permittivity dividing the inter-site interaction (default 2)")
     parser.add_argument("--total-charge", type=float, default=0.0, metavar="Q",
                         help="net charge of the cell, e (default 0)")
-    parser.add_argument("--tol", type=_tolerance, default=1e-8, metavar="TOL", help="accuracy of the Ewald sums (1e-8)")
-    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
-                        help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
-    parser.add_argument("--json", action="store_true", help="print JSON: every ranked candidate")
+    _tol_option(parser, default=COARSE_TOL, help="accuracy of the Ewald sums (default %(default)g)")
+    _min_distance_option(parser)
+    _json_option(parser, help="print JSON: every ranked candidate")
     _structure_options(parser, charges_from=False)
     return parser
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from .options import _json_option
 from .output import _print_json
 
 
@@ -11,7 +12,7 @@ def _add_compile(sub):
                                         "is compiled and cached before the first real job (about a minute on a "
                                         "new machine; a second or two once cached). For cluster images, "
                                         "containers and CI.")
-    parser.add_argument("--json", action="store_true", help="print the steps and their times as JSON")
+    _json_option(parser, help="print the steps and their times as JSON")
     return parser
 
 

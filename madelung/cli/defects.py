@@ -9,7 +9,9 @@ import numpy as np
 from ..errors import InputError
 from ..report.files import write_with
 from .loading import _dielectric_from, load_crystal
-from .options import _check_outputs, _common, _dielectric_options, _overwrite_option, _supercell_options, _tolerance
+from .options import (
+    COARSE_TOL, _check_outputs, _common, _dielectric_options, _json_option, _overwrite_option, _supercell_options,
+    _tol_option)
 from .output import MODEL_NOTE, _eps_text, _frac, _print_json, _structure_lines
 from .text import _series, parse_cell
 
@@ -20,7 +22,7 @@ def _add_map(sub):
                                         "Gaussian cube file, and a PNG heat map of one lattice plane with its ions "
                                         "marked. Ions are Gaussians of width --smearing (0: point ions).")
     _common(parser)
-    parser.set_defaults(tol=1e-8)
+    parser.set_defaults(tol=COARSE_TOL)
     parser.add_argument("--grid", type=float, default=0.2, metavar="Å", help="grid step (default 0.2 Å)")
     parser.add_argument("--plane", default="001", metavar="HKL", help="lattice plane of the heat map (default 001)")
     parser.add_argument("--offset", type=float, default=0.5,
@@ -79,7 +81,7 @@ def _add_interstitials(sub):
                                         "Born-Mayer contact term with ionic radii) on a grid, refined, filtered by "
                                         "a minimum distance to the ions and merged by symmetry.")
     _common(parser)
-    parser.set_defaults(tol=1e-8)
+    parser.set_defaults(tol=COARSE_TOL)
     parser.add_argument("--probe", type=float, default=1.0, metavar="Q", help="probe charge in e (default +1)")
     parser.add_argument("--probe-radius", type=float, default=None, metavar="Å",
                         help="probe radius (default 0.76 Å, about Li+)")
@@ -319,8 +321,8 @@ def _add_correction(sub):
     _supercell_options(parser)
     parser.add_argument("--series", default="1,2,3,4", metavar="N,N,...",
                         help="repeats of the supercell for the 1/L check (default 1,2,3,4)")
-    parser.add_argument("--tol", type=_tolerance, default=1e-10, help="relative accuracy of the lattice sum")
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _tol_option(parser, help="relative accuracy of the lattice sum")
+    _json_option(parser)
     return parser
 
 

@@ -9,7 +9,8 @@ from ..analysis.embedding_files import check_output_folder
 from ..analysis.embedding_files import embedding_report
 from ..analysis.embedding_files import write_embedding
 from .loading import load_crystal
-from .options import _structure_options
+from .options import (
+    _charge_option, _json_option, _min_distance_option, _overwrite_option, _structure_options, _tol_option)
 from .output import _print_json
 
 
@@ -21,8 +22,7 @@ def _add_embed(sub):
                                         "matches the periodic crystal's. Writes " + ", ".join(EMBEDDING_FILES.values())
                                         + " into the output folder, centre at the origin (Å, e).")
     parser.add_argument("file", metavar="FILE", help="structure file: CIF, POSCAR, extended XYZ, ... (read by ASE)")
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
-                        help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed)")
+    _charge_option(parser)
     parser.add_argument("--center", required=True, metavar="SITE",
                         help="centre of the cluster: a site label (its first site), #INDEX, or fractional "
                              "coordinates x,y,z")
@@ -39,14 +39,13 @@ def _add_embed(sub):
                         help="match the periodic potential's values in the Ewald convention (ewald, default) or up "
                              "to a fitted constant (free)")
     parser.add_argument("--out", required=True, metavar="DIR", help="output folder (created if needed)")
-    parser.add_argument("--overwrite", action="store_true", help="replace files of an earlier run in the folder")
-    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
-                        help="accuracy of the periodic potentials, relative to k_e*sum(q^2)/d_min (default 1e-10)")
-    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
-                        help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
+    _overwrite_option(parser, help="replace files of an earlier run in the folder")
+    _tol_option(parser,
+                help="accuracy of the periodic potentials, relative to k_e*sum(q^2)/d_min (default %(default)g)")
+    _min_distance_option(parser)
     parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
                         help="use the cell as read (default) or spglib's standardized cell")
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _json_option(parser)
     _structure_options(parser)
     return parser
 

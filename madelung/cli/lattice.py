@@ -13,7 +13,8 @@ from ..report.files import write_text
 from ..report.files import write_with
 from ..units import EV_TO_KJ_PER_MOL
 from .loading import _crystal_from, load_crystal
-from .options import _check_outputs, _common, _overwrite_option, _tolerance
+from .options import (
+    _charge_option, _check_outputs, _common, _json_option, _min_distance_option, _overwrite_option, _tol_option)
 from .output import LATTICE_SIGN, RIGID_ION_NOTE, _print_json
 from .text import _list_values, _parse_pairs
 
@@ -48,11 +49,10 @@ def _add_fit(sub):
     parser.add_argument("-o", "--output", default="repulsion.json", metavar="PARAMS.json",
                         help="parameter file to write (default repulsion.json)")
     _overwrite_option(parser)
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
-                        help="charge of an element or site label for every file, e.g. Na=+1")
-    parser.add_argument("--tol", type=_tolerance, default=1e-10, metavar="TOL", help="Ewald accuracy (default 1e-10)")
-    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å", help=argparse.SUPPRESS)
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _charge_option(parser, help="charge of an element or site label for every file, e.g. Na=+1")
+    _tol_option(parser, help="Ewald accuracy (default %(default)g)")
+    _min_distance_option(parser, help=argparse.SUPPRESS)
+    _json_option(parser)
     return parser
 
 
@@ -135,10 +135,10 @@ def _add_cycle(sub):
     parser.add_argument("--repulsion", metavar="PARAMS.json", help="short-range parameters for the rigid-ion value")
     parser.add_argument("--covalent-threshold", type=float, default=0.08, metavar="FRACTION",
                         help="flag covalent character when the model is this far below the cycle (default 0.08)")
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[], help=argparse.SUPPRESS)
-    parser.add_argument("--tol", type=_tolerance, default=1e-10, help=argparse.SUPPRESS)
-    parser.add_argument("--min-distance", type=float, default=0.5, help=argparse.SUPPRESS)
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _charge_option(parser, help=argparse.SUPPRESS)
+    _tol_option(parser, help=argparse.SUPPRESS)
+    _min_distance_option(parser, help=argparse.SUPPRESS)
+    _json_option(parser)
     return parser
 
 

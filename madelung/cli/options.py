@@ -6,7 +6,18 @@ import argparse
 
 import numpy as np
 
+from ..crystal import DEFAULT_MAX_ATOMS
 from ..report.files import check_outputs
+from ..symmetry import DEFAULT_SYMPREC
+
+#: Defaults of the shared options, one place. ``--tol``: relative accuracy of the sums; ``charges``,
+#: ``screen``, ``map`` and ``interstitials`` use the looser COARSE_TOL (they sum many candidates,
+#: structures or grid points, and need far less to rank or draw them), every other command DEFAULT_TOL.
+DEFAULT_TOL = 1e-10
+COARSE_TOL = 1e-8
+#: ``--min-distance``: ions closer than this (Å) are refused.
+DEFAULT_MIN_DISTANCE = 0.5
+CHARGES_FROM = ("file", "auto", "equilibrate")
 
 
 def _tolerance(text):
@@ -27,8 +38,40 @@ def _tolerance(text):
 INPUT_OPTIONS = ("file", "files", "more_files", "repulsion", "structure", "input", "dielectric_tensor", "db")
 
 
-def _overwrite_option(parser):
-    parser.add_argument("--overwrite", action="store_true", help="replace output files that exist already")
+def _overwrite_option(parser, help="replace output files that exist already"):
+    parser.add_argument("--overwrite", action="store_true", help=help)
+
+
+def _tol_option(parser, default=DEFAULT_TOL,
+                help="wanted error of the energy relative to k_e*sum(q^2)/d_min (default %(default)g)"):
+    parser.add_argument("--tol", type=_tolerance, default=default, metavar="TOL", help=help)
+
+
+def _json_option(parser, help="print JSON instead of a report"):
+    parser.add_argument("--json", action="store_true", help=help)
+
+
+def _charge_option(parser,
+                   help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed)"):
+    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[], help=help)
+
+
+def _min_distance_option(parser,
+                         help="refuse ions closer than this (default %(default)g Å; 0 switches the check off)"):
+    parser.add_argument("--min-distance", type=float, default=DEFAULT_MIN_DISTANCE, metavar="Å", help=help)
+
+
+def _max_atoms_option(parser, help="refuse structures with more sites than this (default %(default)d)"):
+    parser.add_argument("--max-atoms", type=int, default=DEFAULT_MAX_ATOMS, metavar="N", help=help)
+
+
+def _symmetry_tolerance_option(parser, help="symmetry tolerance (default %(default)g Å, suits experimental CIFs)"):
+    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å", help=help)
+
+
+def _charges_from_option(parser, help="where charges come from: the file (default), assigned oxidation states "
+                                      "(auto; states in the file and --charge rules are kept) or charge equilibration"):
+    parser.add_argument("--charges-from", choices=CHARGES_FROM, default="file", help=help)
 
 
 def _check_outputs(args, *paths):
@@ -43,16 +86,13 @@ def _check_outputs(args, *paths):
 
 def _common(parser):
     parser.add_argument("file", metavar="FILE", help="structure file: CIF, POSCAR, extended XYZ, ... (read by ASE)")
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
-                        help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed); "
-                             "overrides charges read from the file")
-    parser.add_argument("--tol", type=_tolerance, default=1e-10, metavar="TOL",
-                        help="wanted error of the energy relative to k_e*sum(q^2)/d_min (default 1e-10)")
-    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
-                        help="refuse ions closer than this (default 0.5 Å; 0 switches the check off)")
+    _charge_option(parser, help="charge of an element or a site label, e.g. Na=+1 or O1=-2 (repeat as needed); "
+                                "overrides charges read from the file")
+    _tol_option(parser)
+    _min_distance_option(parser)
     parser.add_argument("--method", choices=("auto", "direct", "mesh"), default="auto",
                         help="Ewald engine: direct sum, particle mesh, or the one predicted faster (default auto)")
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _json_option(parser)
     parser.add_argument("--cell", choices=("input", "primitive", "conventional"), default="input",
                         help="use the cell as read (default) or spglib's standardized primitive or conventional "
                              "cell (same energy per formula unit)")
@@ -60,13 +100,8 @@ def _common(parser):
 
 
 def _structure_options(parser, charges_from=True):
-    from ..crystal import DEFAULT_MAX_ATOMS
-    from ..symmetry import DEFAULT_SYMPREC
-
     if charges_from:
-        parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
-                            help="where charges come from: the file (default), assigned oxidation states (auto; "
-                                 "states in the file and --charge rules are kept) or charge equilibration")
+        _charges_from_option(parser)
     parser.add_argument("--block", metavar="NAME|NUMBER", default=None,
                         help="the CIF data block (or frame) to read, by name or number counted from 1; needed "
                              "for a file with several structures")
@@ -76,19 +111,15 @@ def _structure_options(parser, charges_from=True):
     parser.add_argument("--occupancy", choices=("average", "error"), default="average",
                         help="mixed or partly occupied sites: occupancy-weighted mean charge with a warning "
                              "(average, default) or refuse the file (error)")
-    parser.add_argument("--max-atoms", type=int, default=DEFAULT_MAX_ATOMS, metavar="N",
-                        help=f"refuse structures with more sites than this (default {DEFAULT_MAX_ATOMS})")
-    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å",
-                        help=f"symmetry tolerance (default {DEFAULT_SYMPREC:g} Å, suits experimental CIFs)")
+    _max_atoms_option(parser)
+    _symmetry_tolerance_option(parser)
 
 
 def _structure_defaults(args):
     """Fill the structure options for commands whose parser does not declare them."""
-    from ..crystal import DEFAULT_MAX_ATOMS
-    from ..symmetry import DEFAULT_SYMPREC
-
-    for name, value in (("min_distance", 0.5), ("occupancy", "average"), ("max_atoms", DEFAULT_MAX_ATOMS),
-                        ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"), ("cell", "input"),
+    for name, value in (("min_distance", DEFAULT_MIN_DISTANCE), ("occupancy", "average"),
+                        ("max_atoms", DEFAULT_MAX_ATOMS), ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"),
+                        ("cell", "input"),
                         ("block", None), ("allow_net_charge", False), ("charge", [])):
         if not hasattr(args, name):
             setattr(args, name, value)

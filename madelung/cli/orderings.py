@@ -7,14 +7,14 @@ import warnings
 from ..analysis.embedding_files import check_output_folder
 from ..errors import InputError
 from .loading import _ion_charges_of
-from .options import _crystal_options, _structure_defaults
+from .options import (
+    _charge_option, _charges_from_option, _crystal_options, _json_option, _max_atoms_option, _min_distance_option,
+    _overwrite_option, _structure_defaults, _symmetry_tolerance_option, _tol_option)
 from .output import _print_json
 
 
 def _add_orderings(sub):
     from ..analysis.orderings import DEFAULT_MAX_DISTINCT
-    from ..crystal import DEFAULT_MAX_ATOMS
-    from ..symmetry import DEFAULT_SYMPREC
 
     parser = sub.add_parser("orderings", help="rank the orderings of mixed or partly occupied sites by energy",
                             description="Place the ions of the mixed or partly occupied sites (and the vacancies) "
@@ -28,7 +28,7 @@ def _add_orderings(sub):
                         help="supercell repeats, e.g. 2x2x1 (or nine integers, the rows of a matrix); default 1")
     parser.add_argument("--keep", type=int, default=20, metavar="N", help="orderings written as CIF (default 20)")
     parser.add_argument("--out", required=True, metavar="DIR", help="folder for the CIF files and the energy table")
-    parser.add_argument("--overwrite", action="store_true", help="allow writing into a folder that holds files")
+    _overwrite_option(parser, help="allow writing into a folder that holds files")
     parser.add_argument("--table", choices=("parquet", "csv"), default="parquet",
                         help="format of the table of all energies (default parquet)")
     parser.add_argument("--strategy", choices=("auto", "enumeration", "search"), default="auto",
@@ -45,20 +45,14 @@ def _add_orderings(sub):
     parser.add_argument("--scheduler", metavar="ADDRESS", help="run the chunks on this Dask scheduler instead")
     parser.add_argument("--background", action="store_true",
                         help="allow a net charge, summed with a uniform neutralizing background")
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
-                        help="charge of an ion by element (or site label), e.g. Li=+1 or Mg=+2 (repeat as needed)")
-    parser.add_argument("--charges-from", choices=("file", "auto", "equilibrate"), default="file",
-                        help="where charges come from: the file (default), assigned oxidation states (auto) or "
-                             "charge equilibration")
-    parser.add_argument("--tol", type=float, default=1e-10, metavar="TOL",
-                        help="accuracy of the Coulomb matrix, relative to k_e*sum(q^2)/d_min (default 1e-10)")
-    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
-                        help="refuse ions closer than this (default 0.5 Å)")
-    parser.add_argument("--max-atoms", type=int, default=DEFAULT_MAX_ATOMS, metavar="N",
-                        help=f"refuse structures with more sites than this (default {DEFAULT_MAX_ATOMS})")
-    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å",
-                        help=f"symmetry tolerance (default {DEFAULT_SYMPREC:g} Å)")
-    parser.add_argument("--json", action="store_true", help="print JSON instead of a report")
+    _charge_option(parser, help="charge of an ion by element (or site label), e.g. Li=+1 or Mg=+2 (repeat as needed)")
+    _charges_from_option(parser, help="where charges come from: the file (default), assigned oxidation states "
+                                      "(auto) or charge equilibration")
+    _tol_option(parser, help="accuracy of the Coulomb matrix, relative to k_e*sum(q^2)/d_min (default %(default)g)")
+    _min_distance_option(parser)
+    _max_atoms_option(parser)
+    _symmetry_tolerance_option(parser)
+    _json_option(parser)
     return parser
 
 

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 from ..errors import InputError
-from .options import _overwrite_option, _structure_options, _tolerance
+from .options import (
+    COARSE_TOL, _charge_option, _json_option, _min_distance_option, _overwrite_option, _structure_options,
+    _tol_option)
 from .output import _batch_code, _print_json
 
 
@@ -25,10 +27,8 @@ def _add_screen(sub):
     parser.add_argument("--write-db", action="store_true",
                         help="store the results in the database rows as madelung_* key-value pairs")
     parser.add_argument("--sites", metavar="TABLE", help="also write one row per site to this table")
-    parser.add_argument("--charge", action="append", metavar="KEY=Q", default=[],
-                        help="charge of an element or a site label for every structure, e.g. O=-2 (repeat)")
-    parser.add_argument("--tol", type=_tolerance, default=1e-8, metavar="TOL",
-                        help="relative accuracy of every sum (default 1e-8)")
+    _charge_option(parser, help="charge of an element or a site label for every structure, e.g. O=-2 (repeat)")
+    _tol_option(parser, default=COARSE_TOL, help="relative accuracy of every sum (default %(default)g)")
     parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run on this Dask distributed scheduler (e.g. tcp://10.0.0.5:8786) instead of the "
@@ -36,16 +36,14 @@ def _add_screen(sub):
                              "results come back by its serialisation, so a hostile worker can run code here")
     parser.add_argument("--timeout", type=float, metavar="S", help="seconds allowed per structure")
     parser.add_argument("--resume", action="store_true", help="keep rows already ok in --out, screen the rest")
-    parser.add_argument("--overwrite", action="store_true",
-                        help="replace an existing --out (and --sites) table instead of refusing it")
+    _overwrite_option(parser, help="replace an existing --out (and --sites) table instead of refusing it")
     parser.add_argument("--chunk", type=int, default=256, metavar="N", help="rows written at once, at least "
                                                                              "(default 256)")
     parser.add_argument("--spectrum-length", type=int, default=SPECTRUM_LENGTH, metavar="L",
                         help=f"padded length of the Ewald-sum-matrix spectrum (default {SPECTRUM_LENGTH})")
-    parser.add_argument("--min-distance", type=float, default=0.5, metavar="Å",
-                        help="refuse ions closer than this (default 0.5 Å)")
+    _min_distance_option(parser)
     parser.add_argument("--no-progress", action="store_true", help="no progress bar or progress lines")
-    parser.add_argument("--json", action="store_true", help="print the summary as JSON")
+    _json_option(parser, help="print the summary as JSON")
     _structure_options(parser)
     return parser
 
@@ -92,7 +90,7 @@ def _add_demo(sub):
     _overwrite_option(parser)
     parser.add_argument("--workers", type=int, metavar="N", help="worker processes (default: every core)")
     parser.add_argument("--top", type=int, default=10, metavar="N", help="rows shown (default 10)")
-    parser.add_argument("--json", action="store_true", help="print the ranked rows as JSON")
+    _json_option(parser, help="print the ranked rows as JSON")
     return parser
 
 
