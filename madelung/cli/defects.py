@@ -13,7 +13,7 @@ from .options import (
     COARSE_TOL, _check_outputs, _common, _dielectric_options, _json_option, _overwrite_option, _supercell_options,
     _tol_option)
 from .output import MODEL_NOTE, _eps_text, _frac, _print_json, _structure_lines
-from .text import _series, parse_cell
+from .text import _series, parse_cell, parse_key_values
 
 
 def _add_map(sub):
@@ -97,15 +97,7 @@ def _run_interstitials(args):
     from ..analysis.defects import DEFAULT_PROBE_RADIUS, find_interstitials
 
     crystal = load_crystal(args)
-    radii = {}
-    for rule in args.radius:
-        key, sep, value = str(rule).partition("=")
-        try:
-            radii[key.strip()] = float(value)
-        except ValueError:
-            sep = ""
-        if not sep or not key.strip():
-            raise InputError(f"radius {rule!r} must look like ELEMENT=Å or LABEL=Å, e.g. O=1.40")
+    radii = parse_key_values(args.radius, "radius", "ELEMENT=Å or LABEL=Å, e.g. O=1.40")
     unknown = sorted(set(radii) - set(crystal.symbols) - set(crystal.labels))
     if unknown:
         raise InputError(f"{args.file}: radius given for {unknown[0]}, which is neither an element nor a site label "

@@ -6,6 +6,7 @@ import argparse
 
 from ..errors import InputError
 from .options import _crystal_options, _structure_defaults
+from .text import parse_charge_rules
 
 
 def load_crystal(args):
@@ -22,7 +23,6 @@ def _load_charged(args):
 
 def _charged(args, ignore_file_states=False):
     """The crystal of the file on the command line and, for --charges-from auto, its assignment."""
-    from ..crystal import parse_charge_rules
     from ..io.read import load
 
     _structure_defaults(args)

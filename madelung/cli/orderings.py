@@ -11,6 +11,7 @@ from .options import (
     _charge_option, _charges_from_option, _crystal_options, _json_option, _max_atoms_option, _min_distance_option,
     _overwrite_option, _structure_defaults, _symmetry_tolerance_option, _tol_option)
 from .output import _print_json
+from .text import parse_charge_rules
 
 
 def _add_orderings(sub):
@@ -59,7 +60,6 @@ def _add_orderings(sub):
 def _run_orderings(args):
     from ..analysis.ordering_output import check_output_folder, write_ranking
     from ..analysis.orderings import rank_orderings
-    from ..crystal import parse_charge_rules
     from ..io.read import load
 
     check_output_folder(args.out, args.overwrite)

@@ -7,6 +7,7 @@ from .options import (
     COARSE_TOL, _charge_option, _json_option, _min_distance_option, _overwrite_option, _structure_options,
     _tol_option)
 from .output import _batch_code, _print_json
+from .text import parse_charge_rules
 
 
 def _add_screen(sub):
@@ -49,7 +50,6 @@ def _add_screen(sub):
 
 
 def _run_screen(args):
-    from ..crystal import parse_charge_rules
     from ..batch import screen
 
     if not args.inputs and not args.db:

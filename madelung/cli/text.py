@@ -1,4 +1,7 @@
-"""The command line's text grammars (cells, series, KEY=VALUE lists), parsed here only."""
+"""The command line's text grammars (cells, series, KEY=VALUE lists), parsed here only.
+
+Every ``KEY=VALUE`` option of every command goes through :func:`parse_key_values`.
+"""
 
 from __future__ import annotations
 
@@ -49,10 +52,32 @@ def parse_cell(text):
     raise InputError(f"cell spec has {len(values)} numbers; give 1, 3, 6 or 9")
 
 
+def parse_key_values(rules, what="option", shape="KEY=VALUE", number=True) -> dict:
+    """Parse command-line ``KEY=VALUE`` options into a map (values as floats unless ``number`` is
+    False); a malformed one is an InputError naming it and the ``shape`` wanted."""
+    result = {}
+    for rule in rules or []:
+        key, sep, value = str(rule).partition("=")
+        key = key.strip()
+        if not sep or not key:
+            raise InputError(f"{what} {rule!r} must look like {shape}")
+        if not number:
+            result[key] = value.strip()
+            continue
+        try:
+            result[key] = float(value)
+        except ValueError:
+            raise InputError(f"{what} {rule!r}: {value!r} is not a number") from None
+    return result
+
+
+def parse_charge_rules(rules) -> dict:
+    """Parse command-line rules such as ``Na=+1`` or ``O1=-2`` into a map."""
+    return parse_key_values(rules, "charge rule", "ELEMENT=CHARGE or LABEL=CHARGE, e.g. Na=+1")
+
+
 def _parse_pairs(rules, what, number=True):
     """``KEY=VALUE`` options into a dict (values as floats unless ``number`` is False)."""
-    from ..crystal import parse_key_values
-
     return parse_key_values(rules, what, number=number)
 
 
