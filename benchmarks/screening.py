@@ -5,7 +5,7 @@ fluorite, rutile, zinc blende, wurtzite, perovskite, layered rock salt, corundum
 strained by up to +-4 % per axis and rattled by 0.03 Å (seeded), some as 2x1x1, 2x2x1 or 2x2x2
 supercells. They are written once as P1 CIFs with oxidation numbers, and once into an ASE
 database (SQLite) with the charges as initial charges. Each input is screened end to end
-(``madelung.screen.screen``: reading, charges, space group, Ewald sum, Madelung constants,
+(``madelung.batch.screen``: reading, charges, space group, Ewald sum, Madelung constants,
 Coulomb matrix and its spectrum, writing the Parquet table) at tol 1e-8 with 1 and with 2
 workers; the workers are started inside the timed run.
 
@@ -76,7 +76,7 @@ def write_inputs(cells, folder):
 
 
 def run(inputs, db, workers, out, tol):
-    from madelung.screen import TableWriter, screen, table_columns
+    from madelung.batch import TableWriter, screen, table_columns
 
     started = time.perf_counter()
     summary = screen(inputs, out, db=db, workers=workers, tol=tol, progress=False, chunk_size=500)

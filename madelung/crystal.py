@@ -12,7 +12,7 @@ ASE initial charges).
 
 from __future__ import annotations
 
-from typing import Mapping, Sequence
+from typing import Mapping
 
 import numpy as np
 
@@ -484,27 +484,3 @@ def _resolve_charges(charges, symbols, labels, where, species=None):
     if len(bad):
         raise InputError(f"{where}site {labels[bad[0]]} has charge {result[bad[0]]:g}, above {MAX_CHARGE:g} e in size")
     return result
-
-
-def parse_key_values(rules: Sequence[str] | None, what="option", shape="KEY=VALUE", number=True) -> dict:
-    """Parse command-line ``KEY=VALUE`` options into a map (values as floats unless ``number`` is
-    False); a malformed one is an InputError naming it and the ``shape`` wanted."""
-    result = {}
-    for rule in rules or []:
-        key, sep, value = str(rule).partition("=")
-        key = key.strip()
-        if not sep or not key:
-            raise InputError(f"{what} {rule!r} must look like {shape}")
-        if not number:
-            result[key] = value.strip()
-            continue
-        try:
-            result[key] = float(value)
-        except ValueError:
-            raise InputError(f"{what} {rule!r}: {value!r} is not a number") from None
-    return result
-
-
-def parse_charge_rules(rules: Sequence[str] | None) -> dict:
-    """Parse command-line rules such as ``Na=+1`` or ``O1=-2`` into a map."""
-    return parse_key_values(rules, "charge rule", "ELEMENT=CHARGE or LABEL=CHARGE, e.g. Na=+1")

@@ -1,7 +1,7 @@
 """The main-job demo: screen the invented coating candidates of ``structures/demo/`` and plot them.
 
 :func:`run_demo` makes the candidate files if they are missing (``structures/demo/make_demo.py``),
-screens them with :func:`madelung.screen.screen` on the local pool, writes the table and the
+screens them with :func:`madelung.batch.screen` on the local pool, writes the table and the
 per-site table, ranks the candidates by electrostatic energy per atom (most strongly bound
 first) and saves a scatter plot of that energy against the mean potential at the anion sites.
 
@@ -86,7 +86,7 @@ def run_demo(out_dir="madelung-demo", workers=None, top=10, progress=True, folde
     Creates ``out_dir`` (and its missing parents only with ``parents=True``); refuses files of an
     earlier run in it unless ``overwrite``.
     """
-    from .screen import TableWriter, screen, table_columns
+    from .batch import TableWriter, screen, table_columns
 
     folder = demo_structures(folder)
     out_dir = os.fspath(out_dir)

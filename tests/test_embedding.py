@@ -261,7 +261,7 @@ def test_command_refuses_used_or_unwritable_folders_before_working(tmp_path, cap
     out = tmp_path / "embed"
     out.mkdir()
     (out / "point_charges.txt").write_text("keep me\n")
-    monkeypatch.setattr(madelung.cli, "embedding", lambda *a, **k: pytest.fail("computed before checking"))
+    monkeypatch.setattr(madelung.cli.embed, "embedding", lambda *a, **k: pytest.fail("computed before checking"))
     argv = ["embed", str(STRUCTURES / "rocksalt-NaCl.cif"), "--center", "Na1", "--cluster-radius", "4",
             "--field-radius", "12", "--out", str(out)]
     assert main(argv) == 2

@@ -304,7 +304,7 @@ def test_screen_resume_refuses_rows_made_with_other_settings(tmp_path, table):
 
 
 def test_a_second_writer_of_the_same_table_is_refused(tmp_path, table):
-    from madelung.screen import TableLock
+    from madelung.batch import TableLock
 
     before = snapshot(tmp_path)
     lock = TableLock(str(table))     # a run in progress

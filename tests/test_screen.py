@@ -14,7 +14,7 @@ import pytest
 
 import madelung
 from madelung.cli import main
-from madelung.screen import TIMING_COLUMNS, TableWriter, screen, table_columns
+from madelung.batch import TIMING_COLUMNS, TableWriter, screen, table_columns
 
 from conftest import ROOT, structure
 
@@ -226,7 +226,7 @@ def test_kill_midway_then_resume(tmp_path):
 def test_a_killed_worker_is_recorded_and_replaced(tmp_path):
     import ase.db
 
-    from madelung.screen import LocalPool, ScreenOptions, Task
+    from madelung.batch import LocalPool, ScreenOptions, Task
 
     path = str(tmp_path / "big.db")
     crystal = madelung.Crystal.from_file(structure("rocksalt-NaCl"))

@@ -23,7 +23,7 @@ The columns (units in the names: eV, V, e, Å):
 ``species_potentials_V``
     JSON text ``{"O": [min, mean, max], ...}``: the same statistics per species (element, or the
     mixture label of a mixed site). Kept as text so that the table schema does not depend on the
-    elements present; the per-site table of :mod:`madelung.screen` has every site.
+    elements present; the per-site table of :mod:`madelung.batch` has every site.
 ``site_constant_{min,max}``
     Range of the site Madelung constants ``M_i = -phi_i r0 / (k_e q_i)``.
 ``charge_min_e``, ``charge_max_e``, ``charge_mean_abs_e``, ``charge_rms_e``

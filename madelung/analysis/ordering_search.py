@@ -21,7 +21,8 @@ from concurrent.futures import ProcessPoolExecutor
 import numpy as np
 
 from ..errors import InputError
-from ..screen import _main_module_hidden, prepare_process
+from ..batch.executors import _main_module_hidden
+from ..batch.tasks import prepare_process
 from . import _ordering_kernels as kernels
 from .ordering_symmetry import canonical_form, multinomial
 

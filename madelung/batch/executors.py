@@ -1,0 +1,243 @@
+"""Executors of a batch: :class:`LocalPool` runs tasks on worker processes, one task per worker at a
+time, so a worker that crashes or runs past the per-structure timeout is replaced and its structure is
+recorded as failed; :class:`DaskExecutor` does the same through ``dask.distributed``. Each worker runs
+Numba and BLAS on one thread: the parallelism is across structures.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from contextlib import contextmanager
+
+from ..errors import InputError
+from .tasks import _one_line, failed_row, prepare_process, screen_task
+
+
+# ---------------------------------------------------------------- executors
+#: Modules the fork server imports once, so that every worker starts with them loaded (running a
+#: Numba kernel there is another matter: its OpenMP runtime does not survive a fork).
+PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis.madelung_constants",
+           "madelung.sums.matrix", "madelung.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib",
+           "scipy.special")
+
+
+def _worker_main(connection, options):
+    """Loop of a pool worker: receive a task, send back its result; stop at None or a closed pipe."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides what an interrupt means
+    prepare_process()
+    while True:
+        try:
+            task = connection.recv()
+        except (EOFError, OSError):
+            return
+        if task is None:
+            return
+        result = screen_task(task, options)
+        try:
+            connection.send((task.index, result))
+        except (BrokenPipeError, OSError):
+            return
+
+
+@contextmanager
+def _main_module_hidden():
+    """Start workers without re-running the caller's main script in them.
+
+    A fork-server or spawned child normally imports the parent's ``__main__`` first, which runs a
+    script without an ``if __name__ == "__main__"`` guard again (and starts workers from the
+    workers). Our workers need nothing from it: their code lives in this module.
+    """
+    main = sys.modules.get("__main__")
+    saved = {name: main.__dict__[name] for name in ("__file__", "__spec__") if main is not None
+             and name in main.__dict__}
+    if main is not None:
+        main.__dict__.pop("__file__", None)
+        main.__spec__ = None
+    try:
+        yield
+    finally:
+        if main is not None:
+            main.__dict__.update(saved)
+
+
+class _Worker:
+    def __init__(self, context, options):
+        self.connection, child = context.Pipe()
+        self.process = context.Process(target=_worker_main, args=(child, options), daemon=True)
+        with _main_module_hidden():
+            self.process.start()
+        child.close()
+        self.task = None
+        self.started = 0.0
+
+    def stop(self, kill=False):
+        try:
+            if kill:
+                self.process.kill()
+            else:
+                self.connection.send(None)
+        except (BrokenPipeError, OSError):
+            pass
+        self.process.join(timeout=None if kill else 5)
+        if self.process.is_alive():
+            self.process.kill()
+            self.process.join()
+        self.connection.close()
+
+
+class LocalPool:
+    """Worker processes on this machine, one task each at a time.
+
+    A worker is started from a fork server that has imported madelung already (so start-up costs
+    little, and the Numba kernels load from their on-disk cache once per worker). A worker that
+    dies, or runs one structure longer than ``timeout`` seconds (it is then killed), is replaced;
+    its structure gets a failed row.
+    """
+
+    def __init__(self, workers, options, timeout=None):
+        import multiprocessing
+
+        self.options = options
+        self.timeout = timeout
+        methods = multiprocessing.get_all_start_methods()
+        self.context = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+        if self.context.get_start_method() == "forkserver":
+            self.context.set_forkserver_preload(list(PRELOAD))
+        self.workers = [_Worker(self.context, options) for _ in range(max(1, int(workers)))]
+        self.capacity = len(self.workers)
+
+    def idle(self):
+        return sum(1 for w in self.workers if w.task is None)
+
+    def busy(self):
+        return sum(1 for w in self.workers if w.task is not None)
+
+    def submit(self, task):
+        worker = next(w for w in self.workers if w.task is None)
+        worker.task, worker.started = task, time.perf_counter()
+        worker.connection.send(task)
+
+    def _replace(self, worker, kill):
+        position = self.workers.index(worker)
+        worker.stop(kill=kill)
+        self.workers[position] = _Worker(self.context, self.options)
+
+    def collect(self, wait=0.5):
+        """Results that are in: a list of ``(task, (row, sites))``; waits up to ``wait`` s for one."""
+        from multiprocessing.connection import wait as wait_for
+
+        busy = [w for w in self.workers if w.task is not None]
+        if not busy:
+            return []
+        now = time.perf_counter()
+        if self.timeout:
+            wait = max(0.0, min(wait, min(w.started + self.timeout for w in busy) - now))
+        ready = set(wait_for([w.connection for w in busy] + [w.process.sentinel for w in busy], timeout=wait))
+        done = []
+        now = time.perf_counter()
+        for worker in busy:
+            task = worker.task
+            if worker.connection in ready or worker.connection.poll():
+                try:
+                    _, result = worker.connection.recv()
+                except (EOFError, OSError):
+                    result = None
+                if result is not None:
+                    worker.task = None
+                    done.append((task, result))
+                    continue
+            if worker.process.sentinel in ready or not worker.process.is_alive():
+                worker.process.join(timeout=1)
+                code = worker.process.exitcode
+                status = f"worker crashed (exit code {code}) while screening this structure"
+                done.append((task, (failed_row(task, status, self.options, now - worker.started), [])))
+                self._replace(worker, kill=True)
+            elif self.timeout and now - worker.started > self.timeout:
+                status = f"timed out after {self.timeout:g} s (worker stopped)"
+                done.append((task, (failed_row(task, status, self.options, now - worker.started), [])))
+                self._replace(worker, kill=True)
+        return done
+
+    def close(self, kill=False):
+        for worker in self.workers:
+            worker.stop(kill=kill)
+
+
+class DaskExecutor:
+    """The same tasks on a Dask distributed cluster (``pip install madelung[dask]``).
+
+    ``scheduler`` is an address (``tcp://host:8786``) or a ``dask.distributed.Client``. A task
+    that has not finished ``timeout`` seconds after it was handed to the cluster is recorded as
+    timed out and cancelled (Dask cannot stop a running task: its thread may finish in vain).
+    A task whose worker died more often than the cluster allows is recorded as crashed.
+
+    Security: results come back through Dask's serialisation (pickle), so whoever controls the
+    scheduler or a worker can run code in this process. Use only a cluster you trust.
+    """
+
+    def __init__(self, scheduler, options, timeout=None):
+        try:
+            from dask.distributed import Client
+        except ImportError:
+            raise InputError("--scheduler needs Dask: pip install 'madelung[dask]'") from None
+        if isinstance(scheduler, Client):
+            self.client, self.own_client = scheduler, False
+        else:
+            try:
+                self.client = Client(str(scheduler), timeout=30)
+            except Exception as exc:
+                raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({_one_line(exc)[:160]})") from None
+            self.own_client = True
+        self.options = options
+        self.timeout = timeout
+        threads = sum(self.client.nthreads().values()) or 1
+        self.capacity = 2 * threads
+        self.futures = {}
+
+    def idle(self):
+        return self.capacity - len(self.futures)
+
+    def busy(self):
+        return len(self.futures)
+
+    def submit(self, task):
+        future = self.client.submit(screen_task, task, self.options, pure=False)
+        self.futures[future] = (task, time.perf_counter())
+
+    def collect(self, wait=0.5):
+        from dask.distributed import wait as wait_for
+
+        if not self.futures:
+            return []
+        try:
+            wait_for(list(self.futures), timeout=wait, return_when="FIRST_COMPLETED")
+        except Exception:  # distributed's TimeoutError: nothing finished yet
+            pass
+        done = []
+        now = time.perf_counter()
+        for future, (task, submitted) in list(self.futures.items()):
+            if future.done():
+                del self.futures[future]
+                try:
+                    done.append((task, future.result()))
+                except Exception as exc:
+                    name = type(exc).__name__
+                    status = (f"worker crashed while screening this structure ({name})" if name == "KilledWorker"
+                              else f"internal error: {name}: {_one_line(exc)[:200]}")
+                    done.append((task, (failed_row(task, status, self.options, now - submitted), [])))
+            elif self.timeout and now - submitted > self.timeout:
+                del self.futures[future]
+                future.cancel()
+                status = f"timed out after {self.timeout:g} s (task cancelled)"
+                done.append((task, (failed_row(task, status, self.options, now - submitted), [])))
+        return done
+
+    def close(self, kill=False):
+        for future in self.futures:
+            future.cancel()
+        self.futures.clear()
+        if self.own_client:
+            self.client.close()
