@@ -390,3 +390,29 @@ def test_formal_rule_on_the_command_line_reports_the_internal_energy():
     assert out.returncode == 0, out.stderr
     result = interionic_energy(load("nitre-KNO3.cif"), "formal", tol=1e-8)
     assert f"{result.internal:16.8f}" in out.stdout and "(removed)" in out.stdout
+
+
+@pytest.mark.parametrize("name", ["calcite-CaCO3.cif", "brucite-MgOH2.cif"])
+def test_api_command_line_and_screening_row_agree_for_salts_of_polyatomic_ions(name, capsys):
+    # the same file gives the same Madelung numbers through madelung_constants, `madelung constant`
+    # and the screening row (describe): each ion one charge at its centre, r0 to the ion centres
+    from madelung.analysis.descriptors import describe
+    from madelung.analysis.madelung_constants import madelung_constants
+    from madelung.cli import main
+
+    path = DATA / name
+    if not path.exists():
+        pytest.skip(f"{name} is not among the test structures")
+    crystal = Crystal.from_file(path)
+    api = madelung_constants(crystal, tol=1e-10)
+    assert api.polyatomic_ions  # the ions were found and counted as units
+    assert main(["constant", str(path), "--json"]) == 0
+    cli = json.loads(capsys.readouterr().out)
+    assert cli["r0_angstrom"] == pytest.approx(api.r0, rel=1e-12)
+    assert cli["charges_left_in"] == pytest.approx(api.charges_left_in, rel=1e-9)
+    row = describe(crystal, tol=1e-10, spectrum_length=0)
+    assert row["r0_A"] == pytest.approx(api.r0, rel=1e-12)
+    assert row["madelung_charges_left_in"] == pytest.approx(api.charges_left_in, rel=1e-8)
+    # every atom a point charge, when asked, gives the covalent bond as r0 (the old, misleading value)
+    atoms = madelung_constants(crystal, tol=1e-10, polyatomic_ions="atoms")
+    assert atoms.r0 < 1.5 < api.r0

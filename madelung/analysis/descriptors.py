@@ -75,6 +75,7 @@ from ..errors import InputError
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 from ..crystal import Crystal
 from ..sums.matrix import coulomb_matrix, MAX_MATRIX_SITES
+from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from .madelung_constants import madelung_constants
 
 #: Length of the padded Ewald-sum-matrix spectrum (the screening benchmark's cells have up to 40 sites).
@@ -166,6 +167,12 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     sites : bool, optional
         Also return the per-site values (see :data:`SITE_COLUMNS`).
 
+    Notes
+    -----
+    A salt of polyatomic ions (carbonate, sulfate, hydroxide, ammonium, ...) is described with
+    each ion as one charge at its centre (:func:`madelung.charges.polyatomic.centred_crystal`), so
+    its row and its sites are those of the ions, as in ``madelung constant``.
+
     Returns
     -------
     dict, or (dict, list of dict) with ``sites=True``
@@ -183,7 +190,12 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     """
     if not isinstance(crystal, Crystal):
         raise InputError(f"describe() needs a madelung.Crystal, got {type(crystal).__name__}")
-    constants = madelung_constants(crystal, tol=tol)
+    # salts of polyatomic ions are described with each ion one charge at its centre, as the
+    # command line and madelung_constants do by default
+    found = find_polyatomic_ions(crystal)
+    if found.found:
+        crystal = centred_crystal(crystal, found)
+    constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms")
     result = constants.ewald
     q = np.asarray(crystal.charges, dtype=float)
     phi = np.asarray(result.potentials)

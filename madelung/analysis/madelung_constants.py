@@ -40,6 +40,7 @@ from fractions import Fraction
 
 import numpy as np
 
+from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from ..errors import InputError
 from ..sums.geometry import neighbour_pairs
 from ..units import COULOMB_CONSTANT
@@ -92,6 +93,7 @@ class MadelungConstants:
     common_factor_z : Z used, or None.
     r0_mean_first_shell : mean cation–anion distance over the cations' first shells, Å.
     charges_left_in_mean_first_shell, handbook_mean_first_shell : the same conventions with that r0.
+    polyatomic_ions : the polyatomic ions counted as one charge each ("" when none).
     site : (N,) site constants M_i = -phi_i r0 / (k_e q_i) (nan for uncharged sites).
     error_estimate : estimated error of the constants from the sum's truncation error.
     handbook_note, common_factor_note : why a convention is undefined here ("" when defined).
@@ -116,6 +118,7 @@ class MadelungConstants:
     r0_mean_first_shell: float = math.nan
     charges_left_in_mean_first_shell: float = math.nan
     handbook_mean_first_shell: float | None = None
+    polyatomic_ions: str = ""
 
     def as_dict(self):
         return self.to_dict()
@@ -124,6 +127,7 @@ class MadelungConstants:
         return {
             "formula": self.formula, "formula_units": self.formula_units, "r0_angstrom": self.r0,
             "r0_mean_first_shell_angstrom": self.r0_mean_first_shell,
+            "polyatomic_ions": self.polyatomic_ions,
             "charges_left_in_mean_first_shell": self.charges_left_in_mean_first_shell,
             "handbook_mean_first_shell": self.handbook_mean_first_shell,
             "energy_eV": self.energy, "energy_per_formula_unit_eV": self.energy_per_formula_unit,
@@ -151,7 +155,8 @@ def _common_factor(charges):
     return numerator / denominator
 
 
-def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> MadelungConstants:
+def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None,
+                       polyatomic_ions="centre") -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 
     Parameters
@@ -163,7 +168,14 @@ def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> 
     method : {"auto", "direct", "mesh"}
         Engine of the underlying sum (see :func:`madelung.ewald`).
     ewald_result : EwaldResult, optional
-        The sum of this very crystal if it has been done already (it is not done again).
+        The sum of this very crystal if it has been done already (it is not done again; the
+        crystal is then taken as given, without looking for polyatomic ions).
+    polyatomic_ions : {"centre", "atoms"}
+        "centre" (default, as the command line): covalently bonded polyatomic ions (carbonate,
+        sulfate, hydroxide, ammonium, ...; :mod:`madelung.charges.polyatomic`) count as one charge
+        at their centre, so r0 is the shortest cation–anion-centre distance and the constants
+        describe the salt of those ions; ``polyatomic_ions`` of the result names them and ``site``
+        then has one entry per ion. "atoms": every atom is a point charge.
 
     Returns
     -------
@@ -173,6 +185,13 @@ def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> 
     ----------
     E. Madelung, Phys. Z. 19 (1918) 524; P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
+    if polyatomic_ions not in ("centre", "atoms"):
+        raise InputError(f"polyatomic_ions must be 'centre' or 'atoms', got {polyatomic_ions!r}")
+    ions = ""
+    if polyatomic_ions == "centre" and ewald_result is None:
+        found = find_polyatomic_ions(crystal)
+        if found.found:
+            crystal, ions = centred_crystal(crystal, found), found.summary()
     charges = np.asarray(crystal.charges)
     where = f"{crystal.source}: " if crystal.source else ""
     if not (np.any(charges > 0) and np.any(charges < 0)):
@@ -221,7 +240,7 @@ def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None) -> 
     error = result.error_estimate / z * r0 / k_e
     r0_mean = mean_first_shell_distance(crystal)
     return MadelungConstants(
-        r0_mean_first_shell=r0_mean, charges_left_in_mean_first_shell=m_in * r0_mean / r0,
+        polyatomic_ions=ions, r0_mean_first_shell=r0_mean, charges_left_in_mean_first_shell=m_in * r0_mean / r0,
         handbook_mean_first_shell=None if handbook is None else handbook * r0_mean / r0,
         formula=crystal.reduced_formula, formula_units=z, r0=r0, energy=result.energy,
         energy_per_formula_unit=e_fu, charges_left_in=m_in, handbook=handbook,

@@ -110,7 +110,8 @@ def _run_sites(args):
 
     crystal = load_crystal(args)
     symmetry = crystal_symmetry(crystal, symprec=args.symprec)
-    constants = madelung_constants(crystal, tol=args.tol, method=args.method)
+    # one row per atomic site: every atom a point charge here (polyatomic ions in energy/constant)
+    constants = madelung_constants(crystal, tol=args.tol, method=args.method, polyatomic_ions="atoms")
     potentials = constants.ewald.potentials
     z = crystal.formula_units
     energy_per_fu = constants.ewald.energy / z
