@@ -324,7 +324,7 @@ class Crystal:
         states), ``"equilibrate"``, an array, or a map by element or site label. ``source`` names
         the structure in messages; ``labels`` replaces the site labels; ``max_atoms`` sets a size
         limit (default none); the other
-        options (``min_distance``, ``occupancy``, ``symprec``, ``allow_net_charge``, ...) are those
+        options (``min_distance``, ``occupancy``, ``symmetry_tolerance``, ``allow_net_charge``, ...) are those
         of :func:`madelung.io.read.load`.
         """
         return _LOADER["ase"](cls, atoms, charges, source=source, max_atoms=max_atoms, **options)
@@ -333,7 +333,7 @@ class Crystal:
     def from_file(cls, path, charges=None, **options) -> "Crystal":
         """Read any structure file ASE reads (CIF, POSCAR, extended XYZ, ...) through the one loader
         (:func:`madelung.io.read.load`; options ``block``, ``format``, ``min_distance``, ``occupancy``,
-        ``max_atoms``, ``symprec``, ``allow_net_charge``, ... as there).
+        ``max_atoms``, ``symmetry_tolerance``, ``allow_net_charge``, ... as there).
 
         CIF rows that share a position form one site, whatever their elements or oxidation states;
         its charge is the occupancy-weighted sum of the rows' charges.

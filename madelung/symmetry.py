@@ -25,7 +25,7 @@ from .errors import InputError
 #: Default tolerance for symmetry search, Å: loose enough for experimental CIFs whose
 #: coordinates are printed to four decimals (0.0001 of a 10 Å axis is 0.001 Å, and
 #: refined structures are rarely symmetric to better than about 0.01 Å).
-DEFAULT_SYMPREC = 1e-2
+DEFAULT_SYMMETRY_TOLERANCE = 1e-2
 
 #: Origin shifts tried when naming Wyckoff letters (see :func:`analyse`).
 _ORIGIN_SHIFTS = ((0, 0, 0), (0.5, 0.5, 0.5), (0.25, 0.25, 0.25), (0.75, 0.75, 0.75),
@@ -70,7 +70,7 @@ class SymmetryInfo:
     number : International Tables number (1-230).
     symbol : Hermann-Mauguin symbol as spglib writes it, e.g. ``"Fd-3m"``.
     hall_number : spglib's Hall number of the standard setting used.
-    symprec : the tolerance used, Å.
+    symmetry_tolerance : the tolerance used, Å.
     orbit_of : (N,) orbit index of every site.
     orbits : the orbits in order of first appearance.
     operations : number of symmetry operations found in the analysed cell.
@@ -80,7 +80,7 @@ class SymmetryInfo:
     number: int
     symbol: str
     hall_number: int
-    symprec: float
+    symmetry_tolerance: float
     orbit_of: np.ndarray
     orbits: tuple
     operations: int
@@ -92,7 +92,7 @@ class SymmetryInfo:
         return tuple(self.orbits[o].wyckoff for o in self.orbit_of)
 
 
-def _dataset(cell, frac, types, symprec, angle_tolerance=-1.0):
+def _dataset(cell, frac, types, symmetry_tolerance, angle_tolerance=-1.0):
     """spglib's dataset, or None where spglib finds none (its errors raised, not printed)."""
     import warnings
 
@@ -108,12 +108,12 @@ def _dataset(cell, frac, types, symprec, angle_tolerance=-1.0):
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", DeprecationWarning)
-            return spglib.get_symmetry_dataset((cell, frac, types), symprec=symprec, angle_tolerance=angle_tolerance)
+            return spglib.get_symmetry_dataset((cell, frac, types), symprec=symmetry_tolerance, angle_tolerance=angle_tolerance)
     except failure:
         return None
 
 
-def analyse(cell, frac_positions, types, symprec=DEFAULT_SYMPREC, angle_tolerance=-1.0) -> SymmetryInfo:
+def analyse(cell, frac_positions, types, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE, angle_tolerance=-1.0) -> SymmetryInfo:
     """Space group, Wyckoff letters and orbits of a periodic structure.
 
     Parameters
@@ -124,8 +124,8 @@ def analyse(cell, frac_positions, types, symprec=DEFAULT_SYMPREC, angle_toleranc
         Fractional coordinates.
     types : (N,) array_like of int
         Site types: equal integers mean the same kind of site.
-    symprec : float, optional
-        Distance tolerance, Å (default :data:`DEFAULT_SYMPREC`).
+    symmetry_tolerance : float, optional
+        Distance tolerance, Å (default :data:`DEFAULT_SYMMETRY_TOLERANCE`).
     angle_tolerance : float, optional
         Angle tolerance in degrees (-1: spglib's own choice).
 
@@ -151,13 +151,13 @@ def analyse(cell, frac_positions, types, symprec=DEFAULT_SYMPREC, angle_toleranc
     cell = np.ascontiguousarray(cell, dtype=np.float64)
     frac = np.ascontiguousarray(frac_positions, dtype=np.float64)
     types = np.ascontiguousarray(types, dtype=np.int64).reshape(-1)
-    if not (np.isfinite(symprec) and symprec > 0):
-        raise InputError(f"symmetry tolerance must be a positive length in Å, got {symprec!r}")
+    if not (np.isfinite(symmetry_tolerance) and symmetry_tolerance > 0):
+        raise InputError(f"symmetry tolerance must be a positive length in Å, got {symmetry_tolerance!r}")
     best = None
     for shift in _ORIGIN_SHIFTS:
-        data = _dataset(cell, frac + np.asarray(shift), types, symprec, angle_tolerance)
+        data = _dataset(cell, frac + np.asarray(shift), types, symmetry_tolerance, angle_tolerance)
         if data is None:
-            raise InputError(f"spglib found no symmetry at tolerance {symprec:g} Å "
+            raise InputError(f"spglib found no symmetry at tolerance {symmetry_tolerance:g} Å "
                              "(positions overlapping or the cell is degenerate?)")
         letters = list(data.wyckoffs)
         equivalent = np.asarray(data.equivalent_atoms)
@@ -185,11 +185,11 @@ def analyse(cell, frac_positions, types, symprec=DEFAULT_SYMPREC, angle_toleranc
                             multiplicity=multiplicity, site_symmetry=str(data.site_symmetry_symbols[members[0]])))
     orbit_of.setflags(write=False)
     return SymmetryInfo(number=int(data.number), symbol=str(data.international), hall_number=int(data.hall_number),
-                        symprec=float(symprec), orbit_of=orbit_of, orbits=tuple(orbits),
+                        symmetry_tolerance=float(symmetry_tolerance), orbit_of=orbit_of, orbits=tuple(orbits),
                         operations=int(len(data.rotations)), conventional_volume=conventional_volume)
 
 
-def symmetry_operations(cell, frac_positions, types, symprec=DEFAULT_SYMPREC):
+def symmetry_operations(cell, frac_positions, types, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE):
     """Space-group operations of a periodic structure as ``(rotations, translations)``: integer
     (M, 3, 3) matrices and (M, 3) vectors acting on fractional coordinates, ``f' = R f + t``; every
     operation that maps the structure (with its site types) onto itself in this cell, pure
@@ -202,11 +202,11 @@ def symmetry_operations(cell, frac_positions, types, symprec=DEFAULT_SYMPREC):
     cell = np.ascontiguousarray(cell, dtype=np.float64)
     frac = np.ascontiguousarray(frac_positions, dtype=np.float64)
     types = np.ascontiguousarray(types, dtype=np.int64).reshape(-1)
-    if not (np.isfinite(symprec) and symprec > 0):
-        raise InputError(f"symmetry tolerance must be a positive length in Å, got {symprec!r}")
-    data = _dataset(cell, frac, types, symprec)
+    if not (np.isfinite(symmetry_tolerance) and symmetry_tolerance > 0):
+        raise InputError(f"symmetry tolerance must be a positive length in Å, got {symmetry_tolerance!r}")
+    data = _dataset(cell, frac, types, symmetry_tolerance)
     if data is None:
-        raise InputError(f"spglib found no symmetry at tolerance {symprec:g} Å "
+        raise InputError(f"spglib found no symmetry at tolerance {symmetry_tolerance:g} Å "
                          "(positions overlapping or the cell is degenerate?)")
     return np.asarray(data.rotations, dtype=np.int64), np.asarray(data.translations, dtype=np.float64)
 
@@ -223,9 +223,9 @@ def site_types(crystal, by_charge=True) -> np.ndarray:
     return result
 
 
-def crystal_symmetry(crystal, symprec=DEFAULT_SYMPREC, by_charge=True) -> SymmetryInfo:
+def crystal_symmetry(crystal, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE, by_charge=True) -> SymmetryInfo:
     """:func:`analyse` for a :class:`~madelung.Crystal` (types from :func:`site_types`)."""
-    return analyse(crystal.cell, crystal.fractional_positions, site_types(crystal, by_charge), symprec)
+    return analyse(crystal.cell, crystal.fractional_positions, site_types(crystal, by_charge), symmetry_tolerance)
 
 
 #: Conventional-to-primitive transformations P (columns: primitive vectors in units of the
@@ -242,17 +242,17 @@ _CENTRING = {
 }
 
 
-def standard_cell(crystal, kind="conventional", symprec=DEFAULT_SYMPREC):
+def standard_cell(crystal, kind="conventional", symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE):
     """The crystal in spglib's standardized conventional or primitive cell.
 
     Charges, labels, occupancies and species follow their sites; positions are symmetrized
-    (idealized within ``symprec``) and the cell may be rotated to the standard orientation.
+    (idealized within ``symmetry_tolerance``) and the cell may be rotated to the standard orientation.
 
     Parameters
     ----------
     crystal : Crystal
     kind : ``"conventional"``, ``"primitive"`` or ``"input"`` (the crystal unchanged).
-    symprec : float, optional
+    symmetry_tolerance : float, optional
         Symmetry tolerance, Å.
 
     References
@@ -266,9 +266,9 @@ def standard_cell(crystal, kind="conventional", symprec=DEFAULT_SYMPREC):
         raise InputError(f"cell kind must be 'input', 'conventional' or 'primitive', got {kind!r}")
     types = site_types(crystal, by_charge=True)
     data = _dataset(np.ascontiguousarray(crystal.cell), np.ascontiguousarray(crystal.fractional_positions),
-                    types, symprec)
+                    types, symmetry_tolerance)
     if data is None:
-        raise InputError(f"{crystal.source or 'structure'}: spglib found no symmetry at tolerance {symprec:g} Å")
+        raise InputError(f"{crystal.source or 'structure'}: spglib found no symmetry at tolerance {symmetry_tolerance:g} Å")
     # one input site for every primitive-cell site
     to_primitive = np.asarray(data.mapping_to_primitive)
     source_of = {}

@@ -83,7 +83,7 @@ def test_calculator_takes_charges_from_atoms_or_refuses(fitted):
 def test_relaxation_from_expanded_cell_returns_to_fitted_volume(fitted):
     crystal, model = fitted
     expanded = scaled(crystal, 1.05 ** (1 / 3))              # 5 % larger volume
-    result = relax(expanded, model, cell=True, fmax=1e-4)
+    result = relax(expanded, model, cell=True, force_limit=1e-4)
     assert result.converged
     assert result.final_volume == pytest.approx(crystal.volume, rel=0.005)
     assert result.energy_gain > 0
@@ -94,7 +94,7 @@ def test_position_relaxation_removes_a_displacement(fitted):
     crystal, model = fitted
     positions = crystal.positions.copy()
     positions[0] += [0.1, -0.05, 0.07]
-    result = relax(crystal.replace(positions=positions), model, cell=False, fmax=1e-4)
+    result = relax(crystal.replace(positions=positions), model, cell=False, force_limit=1e-4)
     assert result.converged and result.energy_gain > 0
     assert result.final_volume == pytest.approx(crystal.volume, rel=1e-12)
     result.atoms.calc = RigidIonCalculator(model)
@@ -123,7 +123,7 @@ def test_cli_relax_and_eos(fitted, tmp_path, capsys):
     code = main(["relax", str(NACL), "--repulsion", str(tmp_path / "missing.json")])
     assert code == 2 and "missing.json" in capsys.readouterr().err
     code = main(["relax", str(strained), "--charge", "Na=1", "--charge", "Cl=-1", "--repulsion", str(params),
-                 "-o", str(out_file), "--steps", "1", "--overwrite"])
+                 "-o", str(out_file), "--max-steps", "1", "--overwrite"])
     assert code == 2 and "did not converge" in capsys.readouterr().err
 
 
@@ -133,7 +133,7 @@ def test_hypothetical_caesium_chloride_type_nacl_is_less_stable(fitted):
     crystal, model = fitted
     a = 3.3
     hypothetical = Crystal(np.eye(3) * a, [[0, 0, 0], [a / 2, a / 2, a / 2]], [1, -1], ["Na", "Cl"])
-    result = relax(hypothetical, model, cell=True, fmax=1e-4)
+    result = relax(hypothetical, model, cell=True, force_limit=1e-4)
     assert result.converged
     rock_salt = RigidIonCalculator(model)
     atoms = crystal.to_ase()

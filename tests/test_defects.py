@@ -13,7 +13,7 @@ from matplotlib.image import imread
 import madelung
 from madelung import Crystal, InputError, MadelungWarning
 from madelung.cli import main
-from madelung.analysis.defects import (defect_energy, find_interstitials, make_supercell, near_cubic_matrix,
+from madelung.analysis.defects import (defect_energy, find_interstitials, tile_supercell, near_cubic_matrix,
                                        potential_at, vacancy_ranking)
 from madelung.sums.geometry import plane_spacings
 from madelung.units import COULOMB_CONSTANT as K_E
@@ -95,7 +95,7 @@ def test_near_cubic_supercell_reaches_the_length_with_few_cells():
     # never more cells than the plain diagonal repeat that reaches the length
     diagonal = np.ceil(10.0 / plane_spacings(fcc.cell))
     assert round(abs(np.linalg.det(matrix))) <= np.prod(diagonal)
-    sc = make_supercell(fcc, min_length=10.0)
+    sc = tile_supercell(fcc, smallest_plane_spacing=10.0)
     assert len(sc.crystal) == 2 * sc.size
     # the energy per ion of a supercell is the parent's (supercell invariance)
     per_ion = madelung.ewald(sc.crystal).energy / len(sc.crystal)

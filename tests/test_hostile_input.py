@@ -101,7 +101,7 @@ def test_enormous_structures_are_refused_by_the_atom_limit(tmp_path):
 
 
 def test_bad_option_values_are_one_line_errors():
-    for argv in (["sites", str(STRUCTURES / "rocksalt-NaCl.cif"), "--symprec", "-1"],
+    for argv in (["sites", str(STRUCTURES / "rocksalt-NaCl.cif"), "--symmetry-tolerance", "-1"],
                  ["charges", str(STRUCTURES / "rocksalt-NaCl.cif"), "--method", "equilibrate", "--dielectric", "0"],
                  ["charges", str(STRUCTURES / "rocksalt-NaCl.cif"), "--mixing-denominator", "0"],
                  ["sites", str(STRUCTURES / "rocksalt-NaCl.cif"), "--max-atoms", "0"]):

@@ -13,6 +13,7 @@ from madelung.analysis.madelung_constants import madelung_constants
 from madelung.analysis.fitting import FitTarget, fit_repulsion
 from madelung.analysis.lattice_energy import born_exponent, born_lande_energy, kapustinskii_energy, lattice_energy
 from madelung.analysis.equation_of_state import equation_of_state
+from madelung.report.plots import write_equation_of_state_png
 from madelung.units import EV_TO_KJ_PER_MOL
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
@@ -134,7 +135,7 @@ def test_equation_of_state_recovers_fitted_bulk_modulus(tmp_path):
     assert eos.b0 == pytest.approx(BULK_MODULUS["NaCl"], rel=0.01)
     assert 3.0 < eos.b0_prime < 7.0                            # typical B' of alkali halides, fact of the trade
     png = tmp_path / "eos.png"
-    eos.plot(png)
+    write_equation_of_state_png(png, eos)
     image = imread(str(png))             # a 6 x 4.2 in figure at 120 dpi: 720 x 504 pixels, values in [0, 1]
     assert image.shape[:2] == (504, 720) and 0.0 <= image.min() and image.max() <= 1.0
     assert len(np.unique(image[..., :3].reshape(-1, 3), axis=0)) > 20       # points, curve and text drawn

@@ -105,7 +105,7 @@ def test_relaxed_cif_reads_back_with_the_same_charges(tmp_path, strained, repuls
 
 def test_unconverged_relaxation_writes_nothing_unless_asked(tmp_path, strained, repulsion):
     out = tmp_path / "relaxed.cif"
-    argv = ["relax", str(strained), "--repulsion", str(repulsion), "-o", str(out), "--steps", "1"]
+    argv = ["relax", str(strained), "--repulsion", str(repulsion), "-o", str(out), "--max-steps", "1"]
     code, _, err = run(argv)
     assert code == 2
     one_line(err, "did not converge", "nothing written")

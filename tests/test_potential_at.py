@@ -9,7 +9,7 @@ from hypothesis import given, settings, strategies as st
 
 import madelung
 from madelung import Crystal, InputError, MadelungWarning, potential_at
-from madelung.analysis.defects import gaussian_charge_density, potential_grid, write_cube
+from madelung.analysis.defects import gaussian_charge_density, potential_grid, write_gaussian_cube
 from madelung.units import COULOMB_CONSTANT as K_E
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
@@ -176,7 +176,7 @@ def test_cube_file_round_trip(tmp_path):
     crystal = _nacl()
     grid = potential_grid(crystal, 0.6, smearing=0.3)
     path = tmp_path / "nacl.cube"
-    write_cube(path, grid)
+    write_gaussian_cube(path, grid)
     data, atoms = read_cube_data(str(path))
     assert data.shape == grid.shape
     assert np.allclose(data, grid.values, rtol=1e-5, atol=1e-5)

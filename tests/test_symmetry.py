@@ -91,10 +91,10 @@ def test_tolerance_decides_whether_a_slightly_displaced_ion_keeps_the_symmetry()
     positions = np.array(crystal.positions)
     positions[0] += [0.003, 0.0, 0.0]          # 0.003 Å: below a CIF's usual precision
     moved = crystal.replace(positions=positions)
-    assert crystal_symmetry(moved, symprec=1e-2).number == 225
-    assert crystal_symmetry(moved, symprec=1e-4).number != 225
+    assert crystal_symmetry(moved, symmetry_tolerance=1e-2).number == 225
+    assert crystal_symmetry(moved, symmetry_tolerance=1e-4).number != 225
     with pytest.raises(InputError):
-        crystal_symmetry(moved, symprec=-1.0)
+        crystal_symmetry(moved, symmetry_tolerance=-1.0)
 
 
 @settings(max_examples=10, deadline=None)

@@ -93,8 +93,8 @@ class Relaxation:
     atoms : the relaxed ``ase.Atoms`` (charges as initial charges).
     initial_energy, final_energy : total model energy per cell, eV.
     initial_volume, final_volume : Å^3.
-    steps : optimiser steps taken.  converged : whether ``fmax`` was reached.
-    fmax : the force criterion, eV/Å (stress scaled to forces by the cell filter).
+    steps_taken : optimiser steps taken.  converged : whether ``force_limit`` was reached.
+    force_limit : the force criterion, eV/Å (stress scaled to forces by the cell filter).
     cell_relaxed : True when the cell was relaxed too.
     formula_units : Z of the cell.
     """
@@ -104,9 +104,9 @@ class Relaxation:
     final_energy: float
     initial_volume: float
     final_volume: float
-    steps: int
+    steps_taken: int
     converged: bool
-    fmax: float
+    force_limit: float
     cell_relaxed: bool
     formula_units: int
 
@@ -121,7 +121,7 @@ class Relaxation:
         return (self.final_volume - self.initial_volume) / self.initial_volume
 
 
-def relax(crystal, repulsion, cell=True, fmax=1e-4, steps=500, tol=1e-10, trajectory=None) -> Relaxation:
+def relax(crystal, repulsion, cell=True, force_limit=1e-4, max_steps=500, tol=1e-10, trajectory=None) -> Relaxation:
     """Relax ion positions (and the cell) of a crystal in the rigid-ion model with ASE's BFGS.
 
     Parameters
@@ -130,9 +130,9 @@ def relax(crystal, repulsion, cell=True, fmax=1e-4, steps=500, tol=1e-10, trajec
     repulsion : RepulsionModel or parameter-file path
     cell : bool
         Also relax the cell (through ``ase.filters.FrechetCellFilter``), default True.
-    fmax : float
+    force_limit : float
         Stop when every force (and scaled stress) component is below this, eV/Å.
-    steps : int
+    max_steps : int
         Most optimiser steps.
     tol : float
         Relative accuracy of the Ewald sums.
@@ -158,10 +158,10 @@ def relax(crystal, repulsion, cell=True, fmax=1e-4, steps=500, tol=1e-10, trajec
     initial_volume = atoms.get_volume()
     target = FrechetCellFilter(atoms) if cell else atoms
     optimiser = BFGS(target, logfile=None, trajectory=trajectory)
-    converged = bool(optimiser.run(fmax=fmax, steps=steps))
+    converged = bool(optimiser.run(fmax=force_limit, steps=max_steps))  # ASE's keyword names
     final_energy = atoms.get_potential_energy()
     relaxed = atoms.copy()
     relaxed.calc = None
     return Relaxation(relaxed, float(initial_energy), float(final_energy), float(initial_volume),
-                      float(atoms.get_volume()), int(optimiser.nsteps), converged, float(fmax), bool(cell),
+                      float(atoms.get_volume()), int(optimiser.nsteps), converged, float(force_limit), bool(cell),
                       crystal.formula_units)

@@ -28,7 +28,7 @@ The columns (units in the names: eV, V, e, Å):
     Range of the site Madelung constants ``M_i = -phi_i r0 / (k_e q_i)``.
 ``charge_min_e``, ``charge_max_e``, ``charge_mean_abs_e``, ``charge_rms_e``
     Charge statistics over the sites.
-``ewald_matrix_eig_000`` ... ``ewald_matrix_eig_{L-1}`` (L = :data:`SPECTRUM_LENGTH`)
+``ewald_matrix_spectrum_000`` ... ``ewald_matrix_spectrum_{L-1}`` (L = :data:`SPECTRUM_LENGTH`)
     Eigenvalues (eV) of the Ewald sum matrix defined below, sorted by decreasing absolute value,
     zero-padded to length L; a cell with more than L sites keeps its L largest in magnitude.
 ``ewald_matrix_note``
@@ -84,7 +84,7 @@ SPECTRUM_LENGTH = 40
 
 def spectrum_columns(length=SPECTRUM_LENGTH):
     """Names of the eigenvalue columns."""
-    return [f"ewald_matrix_eig_{k:03d}" for k in range(length)]
+    return [f"ewald_matrix_spectrum_{k:03d}" for k in range(length)]
 
 
 _SCALAR_COLUMNS = [
@@ -240,7 +240,7 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
     frac = crystal.fractional_positions
     table = [{"site": i, "label": crystal.labels[i], "species": crystal.species_label(i),
               "charge_e": float(q[i]), "potential_V": float(phi[i]),
-              "site_constant": float(constants.site[i]), "site_energy_eV": float(q[i] * phi[i]),
+              "site_constant": float(constants.site[i]), "q_phi_eV": float(q[i] * phi[i]),
               "x_frac": float(frac[i, 0]), "y_frac": float(frac[i, 1]), "z_frac": float(frac[i, 2])}
              for i in range(n)]
     return row, table
@@ -251,7 +251,7 @@ def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
 #: constant ``-phi_i r0 / (k_e q_i)`` (NaN for an uncharged site), ``q_i phi_i`` (eV; the
 #: energy sums half of these) and fractional coordinates.
 SITE_COLUMNS = {"site": "int", "label": "str", "species": "str", "charge_e": "float", "potential_V": "float",
-                "site_constant": "float", "site_energy_eV": "float", "x_frac": "float", "y_frac": "float",
+                "site_constant": "float", "q_phi_eV": "float", "x_frac": "float", "y_frac": "float",
                 "z_frac": "float"}
 
 

@@ -53,25 +53,6 @@ class EquationOfState:
     formula: str = ""
     extra: dict = field(default_factory=dict)
 
-    def plot(self, path):
-        """Write a PNG of the scan and the fitted curve (matplotlib's object API; no backend switch)."""
-        from matplotlib.figure import Figure
-
-        z = self.formula_units
-        fine = np.linspace(self.volumes.min(), self.volumes.max(), 200)
-        fit = birch_murnaghan(fine, self.e0, self.v0, self.b0 / EV_PER_A3_TO_GPA, self.b0_prime)
-        fig = Figure(figsize=(6, 4.2), dpi=120)
-        ax = fig.subplots()
-        ax.plot(fine / z, fit / z, "-", color="tab:blue", label="Birch–Murnaghan fit")
-        ax.plot(self.volumes / z, self.energies / z, "o", color="tab:red", label="rigid-ion model")
-        ax.axvline(self.v0 / z, color="grey", lw=0.8, ls="--")
-        ax.set_xlabel("volume per formula unit (Å³)")
-        ax.set_ylabel("total energy per formula unit (eV)")
-        ax.set_title(f"{self.formula}: V0 = {self.v0 / z:.3f} Å³, B0 = {self.b0:.1f} GPa, B0' = {self.b0_prime:.2f}")
-        ax.legend(frameon=False)
-        fig.tight_layout()
-        fig.savefig(path)
-
 
 def equation_of_state(crystal, repulsion, span=0.06, points=11, tol=1e-10) -> EquationOfState:
     """Energy–volume scan under homogeneous scaling and a third-order Birch–Murnaghan fit.

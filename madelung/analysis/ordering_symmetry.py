@@ -27,7 +27,7 @@ from ..errors import InputError
 from ..symmetry import symmetry_operations
 
 
-def site_permutations(cell, frac_positions, types, symprec):
+def site_permutations(cell, frac_positions, types, symmetry_tolerance):
     """The distinct site permutations induced by the structure's symmetry operations.
 
     Returns an (M, N) int64 array: row g maps site p to site ``perms[g, p]`` (the identity among
@@ -35,24 +35,24 @@ def site_permutations(cell, frac_positions, types, symprec):
     """
     cell = np.asarray(cell, dtype=np.float64)
     frac = np.asarray(frac_positions, dtype=np.float64)
-    rotations, translations = symmetry_operations(cell, frac, types, symprec)
+    rotations, translations = symmetry_operations(cell, frac, types, symmetry_tolerance)
     wrapped = frac - np.floor(frac)
     wrapped[wrapped >= 1.0] = 0.0
     tree = cKDTree(wrapped, boxsize=1.0 + 1e-12)
-    # a fractional tolerance no smaller than symprec along the longest axis
-    tolerance = 2.0 * symprec / float(np.min(np.linalg.norm(cell, axis=1)))
+    # a fractional tolerance no smaller than symmetry_tolerance along the longest axis
+    tolerance = 2.0 * symmetry_tolerance / float(np.min(np.linalg.norm(cell, axis=1)))
     images = np.einsum("mij,nj->mni", rotations, frac) + translations[:, None, :]
     images = images - np.floor(images)
     images[images >= 1.0] = 0.0
     distance, index = tree.query(images.reshape(-1, 3), distance_upper_bound=tolerance)
     if not np.all(np.isfinite(distance)):
-        raise InputError(f"a symmetry operation found by spglib at tolerance {symprec:g} Å maps a site onto no "
+        raise InputError(f"a symmetry operation found by spglib at tolerance {symmetry_tolerance:g} Å maps a site onto no "
                          "site; try a smaller symmetry tolerance")
     perms = index.reshape(len(rotations), len(frac)).astype(np.int64)
     types = np.asarray(types)
     for row in perms:
         if len(np.unique(row)) != len(row) or np.any(types[row] != types):
-            raise InputError(f"symmetry operations at tolerance {symprec:g} Å do not permute the sites cleanly; "
+            raise InputError(f"symmetry operations at tolerance {symmetry_tolerance:g} Å do not permute the sites cleanly; "
                              "try a smaller symmetry tolerance")
     perms = np.unique(perms, axis=0)
     return np.ascontiguousarray(perms)

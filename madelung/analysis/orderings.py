@@ -34,10 +34,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..crystal import Crystal
-from .defects import make_supercell
+from .defects import tile_supercell
 from ..errors import InputError
 from ..sums.matrix import coulomb_matrix, potentials_for_charge_sets
-from ..symmetry import DEFAULT_SYMPREC, crystal_symmetry
+from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE, crystal_symmetry
 from ..units import EV_TO_KJ_PER_MOL
 from . import _ordering_kernels as kernels
 from .ordering_search import run_enumeration, run_search
@@ -236,7 +236,7 @@ def _smallest_supercells(needed, limit=4):
 
 # ------------------------------------------------------------------ the problem
 def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False, tol=1e-10,
-                     symprec=DEFAULT_SYMPREC) -> OrderingProblem:
+                     symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE) -> OrderingProblem:
     """Set up the orderings of ``crystal``'s mixed and partly occupied sites in a supercell: the
     sublattices and their ion counts, the Coulomb matrix and the symmetry operations.
     Parameters as for :func:`rank_orderings`."""
@@ -247,7 +247,7 @@ def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False
     if not averaged:
         raise InputError(f"{where}no mixed or partly occupied sites: there is nothing to order")
     charges_by_site = _ion_charges(crystal, ion_charges)
-    sc = make_supercell(crystal, supercell)
+    sc = tile_supercell(crystal, supercell)
     big, n_parent, cells = sc.crystal, len(crystal), sc.size
 
     # sublattices: the averaged sites with the same label, mixture and ion charges
@@ -310,7 +310,7 @@ def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False
         types[i] = kinds.setdefault((big.species_label(i), round(float(big.charges[i]), 6)), len(kinds) + 1)
     for s, group in enumerate(members):
         types[group] = len(kinds) + 1 + s
-    perms = site_permutations(big.cell, big.fractional_positions, types, symprec)
+    perms = site_permutations(big.cell, big.fractional_positions, types, symmetry_tolerance)
     position = np.full(len(big), -1, dtype=np.int64)
     position[sites] = np.arange(len(sites))
     restricted = np.unique(position[perms[:, sites]], axis=0)
@@ -454,7 +454,7 @@ class OrderingRanking:
 
 def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="auto",
                    max_distinct=DEFAULT_MAX_DISTINCT, restarts=8, sweeps=50, seed=0, workers=1,
-                   scheduler=None, background=False, tol=1e-10, symprec=DEFAULT_SYMPREC) -> OrderingRanking:
+                   scheduler=None, background=False, tol=1e-10, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE) -> OrderingRanking:
     """Rank the orderings of a crystal's mixed and partly occupied sites in a supercell by their
     electrostatic energy.
 
@@ -488,7 +488,7 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
         (otherwise refused).
     tol : float
         Accuracy of the Coulomb matrix, as for :func:`madelung.ewald`.
-    symprec : float
+    symmetry_tolerance : float
         Symmetry tolerance, Å.
 
     Returns
@@ -514,7 +514,7 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
     if keep < 1:
         raise InputError(f"keep must be a positive whole number, got {keep}")
     problem = ordering_problem(crystal, supercell, ion_charges=ion_charges, background=background, tol=tol,
-                               symprec=symprec)
+                               symmetry_tolerance=symmetry_tolerance)
     total = problem.total_orderings
     n_ops = len(problem.inverse_ops)
     distinct = burnside_count(np.argsort(problem.inverse_ops, axis=1), problem.segments, problem.counts)
@@ -535,7 +535,7 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
     kept = []
     for r, row in enumerate(rows[:keep]):
         ordered = problem.crystal_of(row)
-        info = crystal_symmetry(ordered, symprec=symprec)
+        info = crystal_symmetry(ordered, symmetry_tolerance=symmetry_tolerance)
         per_unit = float(energies[r]) / problem.formula_units
         kept.append(Ordering(rank=r + 1, occupation=tuple(problem.species[int(c)][0] for c in row),
                              energy=float(energies[r]), energy_per_formula_unit=per_unit,

@@ -49,7 +49,7 @@ from .tasks import ScreenOptions, settings_text
 
 def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="file", charge_rules=None,
            tol=1e-8, workers=None, scheduler=None, timeout=None, resume=False, sites=None, write_db=False,
-           chunk_size=256, progress=True, spectrum_length=None, symprec=None, min_distance=0.5,
+           chunk_size=256, progress=True, spectrum_length=None, symmetry_tolerance=None, min_distance=0.5,
            max_atoms=None, occupancy="average", progress_every=10.0, allow_net_charge=False,
            overwrite=False) -> ScreenSummary:
     """Screen many structures and write one row each (see the module docstring).
@@ -97,7 +97,7 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     """
     from ..crystal import DEFAULT_MAX_ATOMS
     from ..analysis.descriptors import SPECTRUM_LENGTH
-    from ..symmetry import DEFAULT_SYMPREC
+    from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE
 
     if charges not in ("file", "auto", "equilibrate"):
         raise InputError(f"charges must be 'file', 'auto' or 'equilibrate', got {charges!r}")
@@ -111,7 +111,7 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     options = ScreenOptions(
         charges=charges, rules=rules, tol=float(tol),
         spectrum_length=SPECTRUM_LENGTH if spectrum_length is None else int(spectrum_length),
-        symprec=DEFAULT_SYMPREC if symprec is None else float(symprec), min_distance=float(min_distance),
+        symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE if symmetry_tolerance is None else float(symmetry_tolerance), min_distance=float(min_distance),
         max_atoms=DEFAULT_MAX_ATOMS if max_atoms is None else int(max_atoms), occupancy=occupancy,
         sites=bool(sites), allow_net_charge=bool(allow_net_charge))
     columns = table_columns(options.spectrum_length)

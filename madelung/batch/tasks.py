@@ -32,7 +32,7 @@ class ScreenOptions:
         ``"auto"`` they are kept as known oxidation states.
     tol : relative accuracy of the sums (default 1e-8).
     spectrum_length : length of the padded Ewald-sum-matrix spectrum.
-    symprec : symmetry tolerance, Å, for the space group and ``"auto"`` charges.
+    symmetry_tolerance : symmetry tolerance, Å, for the space group and ``"auto"`` charges.
     min_distance, max_atoms, occupancy : as for :meth:`madelung.Crystal.from_file`.
     sites : also return the per-site rows.
     """
@@ -41,7 +41,7 @@ class ScreenOptions:
     rules: tuple = ()
     tol: float = 1e-8
     spectrum_length: int = 40
-    symprec: float = 1e-2
+    symmetry_tolerance: float = 1e-2
     min_distance: float = 0.5
     max_atoms: int = 20000
     occupancy: str = "average"
@@ -101,15 +101,15 @@ def _read_atoms(task, options):
 def _charged_crystal(table, task, options):
     """The crystal of a task with charges as the options say, by the loader's own charge step."""
     return charge_table(table, options.charges, rules=dict(options.rules), source=task.source,
-                        symprec=options.symprec, min_distance=options.min_distance, occupancy=options.occupancy,
+                        symmetry_tolerance=options.symmetry_tolerance, min_distance=options.min_distance, occupancy=options.occupancy,
                         max_atoms=options.max_atoms, allow_net_charge=options.allow_net_charge).crystal
 
 
-def _space_group(crystal, symprec):
+def _space_group(crystal, symmetry_tolerance):
     from ..symmetry import _dataset, site_types
 
     data = _dataset(np.ascontiguousarray(crystal.cell), np.ascontiguousarray(crystal.fractional_positions),
-                    site_types(crystal), symprec)
+                    site_types(crystal), symmetry_tolerance)
     if data is None:
         return "", -1
     return str(data.international), int(data.number)
@@ -134,7 +134,7 @@ def failed_row(task, status, options, seconds=math.nan) -> dict:
 def settings_text(options) -> str:
     """The settings that change the numbers of a row, as the ``settings`` column holds them; a
     resumed run refuses a table whose rows were made with other settings."""
-    return (f"tol={options.tol!r};charges={_charges_from(options)};symprec={options.symprec!r};"
+    return (f"tol={options.tol!r};charges={_charges_from(options)};symmetry_tolerance={options.symmetry_tolerance!r};"
             f"occupancy={options.occupancy};spectrum={options.spectrum_length}")
 
 
@@ -170,7 +170,7 @@ def screen_task(task, options):
             t1 = time.perf_counter()
             read = t1 - started
             crystal = _charged_crystal(atoms, task, options)
-            group, number = _space_group(crystal, options.symprec)
+            group, number = _space_group(crystal, options.symmetry_tolerance)
             t2 = time.perf_counter()
             charged = t2 - t1
             result = describe(crystal, tol=options.tol, spectrum_length=options.spectrum_length,

@@ -59,7 +59,7 @@ from .. import elements
 from ..crystal import ion_text
 from ..errors import InputError
 from ..sums.matrix import potentials_for_charge_sets
-from ..symmetry import DEFAULT_SYMPREC, analyse
+from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE, analyse
 from . import bond_valence
 from .common_states import adjacent_pair, common_states, is_common
 from .common_states import known_states as all_known_states
@@ -255,7 +255,7 @@ def allowed_states(element, mixing_denominator=2, source=None, rare=False):
     return sorted(values)
 
 
-def site_groups(crystal, known_states=None, symprec=DEFAULT_SYMPREC):
+def site_groups(crystal, known_states=None, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE):
     """Orbits of the crystal, split where the given states differ. Returns (groups, SymmetryInfo)."""
     n = len(crystal)
     known = [None] * n if known_states is None else list(known_states)
@@ -274,7 +274,7 @@ def site_groups(crystal, known_states=None, symprec=DEFAULT_SYMPREC):
         entry = tuple(None if v is None or (isinstance(v, float) and math.isnan(v)) else float(v) for v in entry)
         fixed_per_site.append(entry)
         types[i] = keys.setdefault((crystal.species_label(i), entry), len(keys) + 1)
-    info = analyse(crystal.cell, crystal.fractional_positions, types, symprec)
+    info = analyse(crystal.cell, crystal.fractional_positions, types, symmetry_tolerance)
     groups = []
     for orbit in info.orbits:
         first = orbit.sites[0]
@@ -320,7 +320,7 @@ def _enumerate(options, target, limit):
     return found, truncated
 
 
-def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPREC, mixing_denominator=2,
+def assign_oxidation_states(crystal, *, known_states=None, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE, mixing_denominator=2,
                             max_candidates=DEFAULT_MAX_CANDIDATES, total_charge=0, tol=RANKING_TOL):
     """Charge-neutral oxidation states for every site, ranked; the best first.
 
@@ -331,7 +331,7 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
     known_states : sequence, optional
         Per site, a tuple with the state of each species or None where unknown (the loader,
         :mod:`madelung.io.read`, passes the file's states and the charge rules); these are kept.
-    symprec : float
+    symmetry_tolerance : float
         Symmetry tolerance for the orbits, Å.
     mixing_denominator : int
         Mixed-valence averages in steps of 1/this (1: integer states only; default 2).
@@ -361,7 +361,7 @@ def assign_oxidation_states(crystal, *, known_states=None, symprec=DEFAULT_SYMPR
         raise InputError(f"mixing denominator must be a whole number, got {mixing_denominator!r}") from None
     if mixing_denominator < 1:
         raise InputError(f"mixing denominator must be at least 1, got {mixing_denominator}")
-    groups, info = site_groups(crystal, known_states, symprec)
+    groups, info = site_groups(crystal, known_states, symmetry_tolerance)
     target = _as_fraction(total_charge)
     scorer = _Scorer(crystal, groups, tol)
 

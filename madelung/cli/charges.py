@@ -123,7 +123,7 @@ def _run_equilibrate(args):
     loaded = load(args.file, "equilibrate", total_charge=args.total_charge, kernel=args.kernel,
                   dielectric=args.dielectric, tol=args.tol, **_crystal_options(args))
     crystal, result = loaded.crystal, loaded.equilibration
-    symmetry = crystal_symmetry(crystal, symprec=args.symprec, by_charge=False)
+    symmetry = crystal_symmetry(crystal, symmetry_tolerance=args.symmetry_tolerance, by_charge=False)
     rows = []
     for orbit in symmetry.orbits:
         q = result.charges[list(orbit.sites)]

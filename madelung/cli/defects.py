@@ -36,7 +36,7 @@ def _add_map(sub):
 
 
 def _run_map(args):
-    from ..analysis.defects import plane_section, potential_grid, write_cube
+    from ..analysis.defects import plane_section, potential_grid, write_gaussian_cube
     from ..report.plots import write_plane_png
 
     prefix = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-potential"
@@ -46,7 +46,7 @@ def _run_map(args):
     grid = potential_grid(crystal, args.grid, smearing=args.smearing, tol=args.tol)
     section = plane_section(crystal, args.plane, args.offset, spacing=min(args.grid, 0.1),
                             smearing=args.smearing, tol=args.tol)
-    write_with(cube, lambda temporary: write_cube(temporary, grid))
+    write_with(cube, lambda temporary: write_gaussian_cube(temporary, grid))
     title = f"{crystal.formula}: potential on ({args.plane}) at offset {args.offset:g}"
     write_with(png, lambda temporary: write_plane_png(temporary, section, title=title), binary=True)
     values = np.asarray(grid.values)
@@ -175,17 +175,17 @@ def _run_defect(args):
         if args.vacancy or args.substitute or args.interstitial:
             raise InputError("--rank-vacancies ranks single vacancies; give it without other defects")
         ranking = vacancy_ranking(crystal, args.rank_vacancies, supercell=args.supercell,
-                                  min_length=args.min_length, tol=args.tol)
+                                  smallest_plane_spacing=args.smallest_plane_spacing, tol=args.tol)
         return _print_ranking(args, crystal, ranking)
     eps = _dielectric_from(args)
     result = defect_energy(crystal, vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
-                           supercell=args.supercell, min_length=args.min_length, tol=args.tol,
+                           supercell=args.supercell, smallest_plane_spacing=args.smallest_plane_spacing, tol=args.tol,
                            neighbour_radius=args.neighbour_radius, dielectric=eps)
     series = None
     if args.series:
         from ..analysis.defects import defect_series
 
-        series = defect_series(crystal, _series(args.series), supercell=args.supercell, min_length=args.min_length,
+        series = defect_series(crystal, _series(args.series), supercell=args.supercell, smallest_plane_spacing=args.smallest_plane_spacing,
                                vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
                                tol=args.tol)
     sc = result.supercell
@@ -320,7 +320,7 @@ def _add_correction(sub):
 
 def _run_correction(args):
     from ..io.read import read_structure
-    from ..analysis.defects import charged_cell_correction, correction_series, make_supercell, parse_supercell
+    from ..analysis.defects import charged_cell_correction, correction_series, tile_supercell, parse_supercell
 
     if (args.file is None) == (args.cell is None):
         raise InputError("give a structure file or --cell (one of them)")
@@ -332,10 +332,10 @@ def _run_correction(args):
         source = f"--cell {args.cell}"
     if args.supercell is not None:
         cell = parse_supercell(args.supercell) @ cell
-    elif args.min_length is not None:
+    elif args.smallest_plane_spacing is not None:
         from ..crystal import Crystal
 
-        cell = make_supercell(Crystal(cell, [[0, 0, 0]], [1.0]), min_length=args.min_length).crystal.cell
+        cell = tile_supercell(Crystal(cell, [[0, 0, 0]], [1.0]), smallest_plane_spacing=args.smallest_plane_spacing).crystal.cell
     eps = _dielectric_from(args)
     if eps is None:
         eps = np.eye(3)

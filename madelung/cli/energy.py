@@ -109,7 +109,7 @@ def _run_sites(args):
     from ..symmetry import crystal_symmetry
 
     crystal = load_crystal(args)
-    symmetry = crystal_symmetry(crystal, symprec=args.symprec)
+    symmetry = crystal_symmetry(crystal, symmetry_tolerance=args.symmetry_tolerance)
     # one row per atomic site: every atom a point charge here (polyatomic ions in energy/constant)
     constants = madelung_constants(crystal, tol=args.tol, method=args.method, polyatomic_ions="atoms")
     potentials = constants.ewald.potentials
@@ -121,7 +121,7 @@ def _run_sites(args):
                 "wyckoff": orbit.wyckoff, "multiplicity": orbit.multiplicity, "sites_in_cell": len(orbit.sites),
                 "charge_e": float(crystal.charges[i]), "potential_V": float(potentials[i]),
                 "site_constant": None if math.isnan(constants.site[i]) else float(constants.site[i]),
-                "site_energy_eV": float(crystal.charges[i] * potentials[i]),
+                "q_phi_eV": float(crystal.charges[i] * potentials[i]),
                 "averaged": crystal.is_averaged(i)}
 
     orbit_rows = []
@@ -133,7 +133,7 @@ def _run_sites(args):
     site_rows = [row(i, symmetry.orbits[symmetry.orbit_of[i]]) for i in range(len(crystal))]
     if args.json:
         _print_json({"file": args.file, "cell": args.cell, "space_group": symmetry.symbol,
-                     "space_group_number": symmetry.number, "symprec_angstrom": symmetry.symprec,
+                     "space_group_number": symmetry.number, "symprec_angstrom": symmetry.symmetry_tolerance,
                      "formula_units": z, "energy_per_formula_unit_eV": energy_per_fu,
                      "r0_angstrom": constants.r0, "orbits": orbit_rows, "sites": site_rows,
                      "site_constant_convention": "M_i = -phi_i r0 / (k_e q_i)",
@@ -142,7 +142,7 @@ def _run_sites(args):
     print(f"madelung sites  {args.file}")
     print("\n".join(_structure_lines(crystal)))
     print(f"  symmetry    {symmetry.symbol} (No. {symmetry.number}), {len(symmetry.orbits)} orbits, "
-          f"tolerance {symmetry.symprec:g} Å; cell: {args.cell}")
+          f"tolerance {symmetry.symmetry_tolerance:g} Å; cell: {args.cell}")
     print(f"  energy      {energy_per_fu:.8f} eV per formula unit {crystal.reduced_formula} "
           "(signed electrostatic energy)")
     print(f"  r0 (shortest cation–anion distance) {constants.r0:.5f} Å")
@@ -155,7 +155,7 @@ def _run_sites(args):
         count = r["index"] if args.all else r["sites_in_cell"]
         wyckoff = f"{r['multiplicity']}{r['wyckoff']}"
         print(f"  {count:>5}  {r['label']:<10} {r['element']:<12} {wyckoff:>7} {r['charge_e']:>+8.3f}  "
-              f"{r['potential_V']:>15.8f}  {m:>11}  {r['site_energy_eV']:>12.6f}")
+              f"{r['potential_V']:>15.8f}  {m:>11}  {r['q_phi_eV']:>12.6f}")
     print()
     print("  M_i = -phi_i r0 / (k_e q_i): the site potential in units of k_e q_i / r0 (positive = held by its "
           "surroundings); E = 1/2 sum q_i phi_i")

@@ -233,8 +233,8 @@ def _add_relax(sub):
     _common(parser)
     parser.add_argument("--repulsion", required=True, metavar="PARAMS.json", help="short-range parameter file")
     parser.add_argument("--positions-only", action="store_true", help="keep the cell fixed")
-    parser.add_argument("--fmax", type=float, default=1e-4, metavar="eV/Å", help="force criterion (default 1e-4)")
-    parser.add_argument("--steps", type=int, default=500, help="most optimiser steps (default 500)")
+    parser.add_argument("--force-limit", type=float, default=1e-4, metavar="eV/Å", help="force criterion (default 1e-4)")
+    parser.add_argument("--max-steps", type=int, default=500, help="most optimiser steps (default 500)")
     parser.add_argument("-o", "--output", metavar="OUT", help="relaxed structure (format from the extension; "
                         "default FILE stem + '-relaxed.cif'; a CIF carries the charges)")
     parser.add_argument("--write-unconverged", action="store_true",
@@ -268,18 +268,18 @@ def _run_relax(args):
     output = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-relaxed.cif"
     _check_outputs(args, output)
     crystal = load_crystal(args)
-    result = relax(crystal, args.repulsion, cell=not args.positions_only, fmax=args.fmax, steps=args.steps,
+    result = relax(crystal, args.repulsion, cell=not args.positions_only, force_limit=args.force_limit, max_steps=args.max_steps,
                    tol=args.tol)
     if not result.converged and not args.write_unconverged:
-        raise InputError(f"{args.file}: the relaxation did not converge in {result.steps} steps (fmax {args.fmax:g} "
-                         f"eV/Å); nothing written (raise --steps, loosen --fmax, or pass --write-unconverged)")
+        raise InputError(f"{args.file}: the relaxation did not converge in {result.steps_taken} steps (force limit {args.force_limit:g} "
+                         f"eV/Å); nothing written (raise --max-steps, loosen --force-limit, or pass --write-unconverged)")
     _write_structure(output, result.atoms, crystal)
     if not result.converged:
-        raise InputError(f"{args.file}: the relaxation did not converge in {result.steps} steps (fmax {args.fmax:g} "
+        raise InputError(f"{args.file}: the relaxation did not converge in {result.steps_taken} steps (force limit {args.force_limit:g} "
                          f"eV/Å); last structure written to {output}")
     z = result.formula_units
     if args.json:
-        _print_json({"file": args.file, "output": output, "converged": result.converged, "steps": result.steps,
+        _print_json({"file": args.file, "output": output, "converged": result.converged, "steps_taken": result.steps_taken,
                      "cell_relaxed": result.cell_relaxed, "initial_volume_angstrom3": result.initial_volume,
                      "final_volume_angstrom3": result.final_volume, "volume_change": result.volume_change,
                      "initial_energy_eV": result.initial_energy, "final_energy_eV": result.final_energy,
@@ -289,7 +289,7 @@ def _run_relax(args):
         return 0
     print(f"madelung relax  {args.file} -> {output}")
     print(f"  {'positions and cell' if result.cell_relaxed else 'positions'} relaxed with BFGS: "
-          f"{result.steps} steps, converged (fmax {result.fmax:g} eV/Å)")
+          f"{result.steps_taken} steps, converged (force limit {result.force_limit:g} eV/Å)")
     print(f"  volume      {result.initial_volume:.4f} -> {result.final_volume:.4f} Å^3 "
           f"({100 * result.volume_change:+.3f} %)")
     print(f"  energy      {result.initial_energy:.6f} -> {result.final_energy:.6f} eV per cell; gain "
@@ -314,12 +314,13 @@ def _add_eos(sub):
 
 def _run_eos(args):
     from ..analysis.equation_of_state import equation_of_state
+    from ..report.plots import write_equation_of_state_png
 
     _check_outputs(args, args.plot)
     crystal = load_crystal(args)
     eos = equation_of_state(crystal, args.repulsion, span=args.span, points=args.points, tol=args.tol)
     if args.plot:
-        write_with(args.plot, eos.plot, binary=True)
+        write_with(args.plot, lambda temporary: write_equation_of_state_png(temporary, eos), binary=True)
     z = eos.formula_units
     if args.json:
         _print_json({"file": args.file, "volumes_angstrom3": eos.volumes, "energies_eV": eos.energies,

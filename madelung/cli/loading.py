@@ -14,7 +14,7 @@ def load_crystal(args):
     from ..symmetry import standard_cell
 
     _structure_defaults(args)
-    return standard_cell(_load_charged(args), args.cell, symprec=args.symprec)
+    return standard_cell(_load_charged(args), args.cell, symmetry_tolerance=args.symmetry_tolerance)
 
 
 def _load_charged(args):

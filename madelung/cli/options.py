@@ -8,7 +8,7 @@ import numpy as np
 
 from ..crystal import DEFAULT_MAX_ATOMS
 from ..report.files import check_outputs
-from ..symmetry import DEFAULT_SYMPREC
+from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE
 
 #: Defaults of the shared options, one place. ``--tol``: relative accuracy of the sums; ``charges``,
 #: ``screen``, ``map`` and ``interstitials`` use the looser COARSE_TOL (they sum many candidates,
@@ -66,7 +66,7 @@ def _max_atoms_option(parser, help="refuse structures with more sites than this 
 
 
 def _symmetry_tolerance_option(parser, help="symmetry tolerance (default %(default)g Å, suits experimental CIFs)"):
-    parser.add_argument("--symprec", type=float, default=DEFAULT_SYMPREC, metavar="Å", help=help)
+    parser.add_argument("--symmetry-tolerance", type=float, default=DEFAULT_SYMMETRY_TOLERANCE, metavar="Å", help=help)
 
 
 def _charges_from_option(parser, help="where charges come from: the file (default), assigned oxidation states "
@@ -118,7 +118,7 @@ def _structure_options(parser, charges_from=True):
 def _structure_defaults(args):
     """Fill the structure options for commands whose parser does not declare them."""
     for name, value in (("min_distance", DEFAULT_MIN_DISTANCE), ("occupancy", "average"),
-                        ("max_atoms", DEFAULT_MAX_ATOMS), ("symprec", DEFAULT_SYMPREC), ("charges_from", "file"),
+                        ("max_atoms", DEFAULT_MAX_ATOMS), ("symmetry_tolerance", DEFAULT_SYMMETRY_TOLERANCE), ("charges_from", "file"),
                         ("cell", "input"),
                         ("block", None), ("allow_net_charge", False), ("charge", [])):
         if not hasattr(args, name):
@@ -130,7 +130,7 @@ def _crystal_options(args):
     """The loader's options from the command line (:func:`madelung.io.read.load`)."""
     _structure_defaults(args)
     return dict(block=args.block, min_distance=args.min_distance, occupancy=args.occupancy,
-                max_atoms=args.max_atoms, symprec=args.symprec, allow_net_charge=args.allow_net_charge,
+                max_atoms=args.max_atoms, symmetry_tolerance=args.symmetry_tolerance, allow_net_charge=args.allow_net_charge,
                 mixing_denominator=getattr(args, "mixing_denominator", 2))
 
 
@@ -144,7 +144,7 @@ def _supercell_options(parser):
     group = parser.add_mutually_exclusive_group()
     group.add_argument("--supercell", metavar="NxMxK",
                        help="supercell repeats, e.g. 3x3x3 (or nine integers, the rows of a matrix)")
-    group.add_argument("--min-length", type=float, metavar="Å",
+    group.add_argument("--smallest-plane-spacing", type=float, metavar="Å",
                        help="the smallest near-cubic supercell whose lattice-plane spacings all reach this length")
 
 

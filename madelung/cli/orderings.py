@@ -75,7 +75,7 @@ def _run_orderings(args):
                              ion_charges=_ion_charges_of(args, crystal), method=args.strategy,
                              max_distinct=args.max_distinct, restarts=args.restarts, sweeps=args.sweeps,
                              seed=args.seed, workers=args.workers, scheduler=args.scheduler,
-                             background=args.background, tol=args.tol, symprec=args.symprec)
+                             background=args.background, tol=args.tol, symmetry_tolerance=args.symmetry_tolerance)
     files = write_ranking(ranking, args.out, table_format=args.table, overwrite=args.overwrite)
     if args.json:
         _print_json({**ranking.to_dict(), "files": files})

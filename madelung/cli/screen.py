@@ -62,7 +62,7 @@ def _run_screen(args):
                      charge_rules=parse_charge_rules(args.charge), tol=args.tol, workers=args.workers,
                      scheduler=args.scheduler, timeout=args.timeout, resume=args.resume, sites=args.sites,
                      write_db=args.write_db, chunk_size=args.chunk, progress=not args.no_progress,
-                     spectrum_length=args.spectrum_length, symprec=args.symprec, min_distance=args.min_distance,
+                     spectrum_length=args.spectrum_length, symmetry_tolerance=args.symmetry_tolerance, min_distance=args.min_distance,
                      max_atoms=args.max_atoms, occupancy=args.occupancy, allow_net_charge=args.allow_net_charge,
                      overwrite=args.overwrite)
     code = _batch_code(summary.failed, summary.ok + summary.failed, f"structures ({summary.out})")

@@ -40,7 +40,7 @@ from ..charges.oxidation import OxidationAssignment
 from ..crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size,
                        default_labels, use_loader)
 from ..errors import InputError, MadelungWarning
-from ..symmetry import DEFAULT_SYMPREC
+from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE
 from .cif import SiteTable, block_sites, choose_block, cif_block_count, cif_blocks
 
 #: A file's net charge up to this fraction of sum |q| is taken as rounding of its occupancies
@@ -292,7 +292,7 @@ def _check_averaged(crystal, policy):
 
 
 def charge_table(table, charges="file", *, rules=None, source=None, min_distance=DEFAULT_MIN_DISTANCE,
-                 occupancy="average", max_atoms=None, symprec=DEFAULT_SYMPREC, mixing_denominator=2,
+                 occupancy="average", max_atoms=None, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE, mixing_denominator=2,
                  ignore_file_states=False, allow_net_charge=False, **charge_options) -> Loaded:
     """Decide the charges of a :class:`~madelung.io.cif.SiteTable` (see the module docstring)."""
     where = _where(source)
@@ -323,7 +323,7 @@ def charge_table(table, charges="file", *, rules=None, source=None, min_distance
     if charges == "auto":
         base = _crystal(table, zeros, None, source, min_distance, max_atoms)
         _check_averaged(base, occupancy)
-        assignment = assign_oxidation_states(base, known_states=known, symprec=symprec,
+        assignment = assign_oxidation_states(base, known_states=known, symmetry_tolerance=symmetry_tolerance,
                                              mixing_denominator=mixing_denominator, **charge_options)
         states = [None] * len(base)
         for group, values in zip(assignment.groups, assignment.best.states):
@@ -350,7 +350,7 @@ def charge_table(table, charges="file", *, rules=None, source=None, min_distance
 
 
 def load(source, charges="file", *, rules=None, block=None, format=None, name=None, min_distance=DEFAULT_MIN_DISTANCE,
-         occupancy="average", max_atoms=DEFAULT_MAX_ATOMS, symprec=DEFAULT_SYMPREC, mixing_denominator=2,
+         occupancy="average", max_atoms=DEFAULT_MAX_ATOMS, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE, mixing_denominator=2,
          ignore_file_states=False, allow_net_charge=False, **charge_options) -> Loaded:
     """Read a structure file (or take an ``ase.Atoms``) and decide its charges.
 
@@ -375,7 +375,7 @@ def load(source, charges="file", *, rules=None, block=None, format=None, name=No
         warning (the virtual-crystal average), or refuse the structure.
     max_atoms : int or None
         Refuse structures with more sites than this (None: no limit).
-    symprec, mixing_denominator, ignore_file_states : for ``charges="auto"``.
+    symmetry_tolerance, mixing_denominator, ignore_file_states : for ``charges="auto"``.
     allow_net_charge : bool
         Sum a cell the file leaves charged with a neutralizing background instead of refusing it.
     **charge_options
@@ -394,7 +394,7 @@ def load(source, charges="file", *, rules=None, block=None, format=None, name=No
         check_size(len(source), max_atoms, name)
         table = sites_from_atoms(source, name)
     return charge_table(table, charges, rules=rules, source=name, min_distance=min_distance, occupancy=occupancy,
-                        max_atoms=max_atoms, symprec=symprec, mixing_denominator=mixing_denominator,
+                        max_atoms=max_atoms, symmetry_tolerance=symmetry_tolerance, mixing_denominator=mixing_denominator,
                         ignore_file_states=ignore_file_states, allow_net_charge=allow_net_charge, **charge_options)
 
 

@@ -9,7 +9,9 @@ from __future__ import annotations
 import numpy as np
 from matplotlib.figure import Figure
 
+from ..analysis.equation_of_state import birch_murnaghan
 from ..errors import InputError
+from ..units import EV_PER_A3_TO_GPA
 
 
 def write_plane_png(path, section: PlaneSection, title=""):
@@ -78,3 +80,22 @@ def save_candidate_plot(rows, path, prototypes, elements_of):
     figure.tight_layout()
     figure.savefig(path)
     return path
+
+
+def write_equation_of_state_png(path, eos):
+    """PNG of an energy–volume scan and its Birch–Murnaghan fit
+    (:class:`~madelung.analysis.equation_of_state.EquationOfState`), per formula unit."""
+    z = eos.formula_units
+    fine = np.linspace(eos.volumes.min(), eos.volumes.max(), 200)
+    fit = birch_murnaghan(fine, eos.e0, eos.v0, eos.b0 / EV_PER_A3_TO_GPA, eos.b0_prime)
+    fig = Figure(figsize=(6, 4.2), dpi=120)
+    ax = fig.subplots()
+    ax.plot(fine / z, fit / z, "-", color="tab:blue", label="Birch–Murnaghan fit")
+    ax.plot(eos.volumes / z, eos.energies / z, "o", color="tab:red", label="rigid-ion model")
+    ax.axvline(eos.v0 / z, color="grey", lw=0.8, ls="--")
+    ax.set_xlabel("volume per formula unit (Å³)")
+    ax.set_ylabel("total energy per formula unit (eV)")
+    ax.set_title(f"{eos.formula}: V0 = {eos.v0 / z:.3f} Å³, B0 = {eos.b0:.1f} GPa, B0' = {eos.b0_prime:.2f}")
+    ax.legend(frameon=False)
+    fig.tight_layout()
+    fig.savefig(path)

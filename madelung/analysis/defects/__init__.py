@@ -4,7 +4,7 @@
 * :mod:`.grids` — :func:`potential_grid` on a regular grid over the cell, :func:`plane_section` on a
   lattice plane, and the cube writer (the PNG of a plane is drawn in :mod:`madelung.report.plots`);
 * :mod:`.interstitials` — :func:`find_interstitials`, candidate positions for a probe charge;
-* :mod:`.supercells` — :func:`make_supercell` and the near-cubic repeat matrix;
+* :mod:`.supercells` — :func:`tile_supercell` and the near-cubic repeat matrix;
 * :mod:`.energies` — :func:`defect_energy` for vacancies, substitutions and interstitials, and
   :func:`defect_series` over growing supercells (the derivation is in that module's docstring);
 * :mod:`.ranking` — :func:`vacancy_ranking` of the inequivalent sites of a species;
@@ -21,19 +21,19 @@ from .corrections import (ChargedCellCorrection, CorrectionSeries, charged_cell_
 from .energies import (DefectResult, DefectSeries, DefectSite, NeighbourChange, defect_energy, defect_series,
                        interstitial_energy, substitution_energy, vacancy_energy)
 from .grids import (PlaneSection, PotentialGrid, gaussian_charge_density, grid_fractional, grid_shape, parse_miller,
-                    plane_section, potential_grid, write_cube)
+                    plane_section, potential_grid, write_gaussian_cube)
 from .interstitials import (DEFAULT_PROBE_RADIUS, InterstitialSearch, InterstitialSite, equivalent_sites,
                             find_interstitials, ion_radii)
 from .points import ON_ION_DISTANCE, PointPotentials, potential_at
 from .ranking import VacancyRanking, VacancyRow, vacancy_ranking
-from .supercells import Supercell, make_supercell, near_cubic_matrix, parse_supercell
+from .supercells import Supercell, tile_supercell, near_cubic_matrix, parse_supercell
 
 __all__ = ["ChargedCellCorrection", "CorrectionSeries", "charged_cell_correction", "correction_series",
            "dielectric_tensor", "read_dielectric_tensor", "DefectResult", "DefectSeries", "DefectSite",
            "NeighbourChange", "defect_energy", "defect_series", "interstitial_energy", "substitution_energy",
            "vacancy_energy", "PlaneSection", "PotentialGrid", "gaussian_charge_density", "grid_fractional",
-           "grid_shape", "parse_miller", "plane_section", "potential_grid", "write_cube",
+           "grid_shape", "parse_miller", "plane_section", "potential_grid", "write_gaussian_cube",
            "DEFAULT_PROBE_RADIUS", "InterstitialSearch", "InterstitialSite", "equivalent_sites",
            "find_interstitials", "ion_radii", "ON_ION_DISTANCE", "PointPotentials", "potential_at",
-           "VacancyRanking", "VacancyRow", "vacancy_ranking", "Supercell", "make_supercell", "near_cubic_matrix",
+           "VacancyRanking", "VacancyRow", "vacancy_ranking", "Supercell", "tile_supercell", "near_cubic_matrix",
            "parse_supercell"]

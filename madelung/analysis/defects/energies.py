@@ -51,7 +51,7 @@ from ...sums.plan import NEUTRAL_TOLERANCE
 from .corrections import _series_repeats, charged_cell_correction
 from .interstitials import _distances_to_ions, _periodic_distance
 from .points import _where, ON_ION_DISTANCE, potential_at
-from .supercells import make_supercell, Supercell
+from .supercells import tile_supercell, Supercell
 
 @dataclass(frozen=True)
 class DefectSite:
@@ -213,7 +213,7 @@ def _species_charge(element, charge, crystal, what):
                      f"{states[0] if states else 1} (its common oxidation states are {list(states) or 'unknown'})")
 
 
-def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), supercell=None, min_length=None,
+def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), supercell=None, smallest_plane_spacing=None,
                   tol=1e-10, neighbour_radius=3.5, dielectric=None) -> DefectResult:
     """Unrelaxed electrostatic energy of point defects in a supercell, and the change of the site
     potentials round them.
@@ -231,7 +231,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
     interstitial : sequence of str
         ``"x,y,z=ELEMENT[:CHARGE]"`` with x, y, z fractional coordinates of the parent cell.
     supercell : str, int or (3, 3) ints, optional
-        Repeats such as ``"3x3x3"`` or a matrix; or give ``min_length`` (Å) for the smallest
+        Repeats such as ``"3x3x3"`` or a matrix; or give ``smallest_plane_spacing`` (Å) for the smallest
         near-cubic supercell whose plane spacings all reach it. Default: the cell itself.
     tol : float
         Accuracy of the Ewald sums.
@@ -263,7 +263,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
                                          [interstitial] if isinstance(interstitial, str) else list(interstitial))
     if not (vacancy or substitute or interstitial):
         raise InputError("no defect given: name a vacancy, a substitution or an interstitial")
-    sc = make_supercell(crystal, supercell, min_length)
+    sc = tile_supercell(crystal, supercell, smallest_plane_spacing)
     big = sc.crystal
     where = _where(crystal)
 
@@ -440,8 +440,8 @@ class DefectSeries:
     madelung_estimate: float
 
 
-def defect_series(crystal, repeats=(1, 2, 3), *, supercell=None, min_length=None, **defects) -> DefectSeries:
-    """:func:`defect_energy` in the supercells n x base (base from ``supercell`` / ``min_length``,
+def defect_series(crystal, repeats=(1, 2, 3), *, supercell=None, smallest_plane_spacing=None, **defects) -> DefectSeries:
+    """:func:`defect_energy` in the supercells n x base (base from ``supercell`` / ``smallest_plane_spacing``,
     default the cell), and the fit E(L) = E_dilute + a / L of the uncorrected energy changes.
 
     For a charged defect the supercell energy falls off as the image term, which is exactly a / L
@@ -453,7 +453,7 @@ def defect_series(crystal, repeats=(1, 2, 3), *, supercell=None, min_length=None
     G. Makov and M. C. Payne, Phys. Rev. B 51 (1995) 4014.
     """
     repeats = _series_repeats(repeats)
-    base = make_supercell(crystal, supercell, min_length).matrix
+    base = tile_supercell(crystal, supercell, smallest_plane_spacing).matrix
     defects.setdefault("neighbour_radius", 0.0)
     results = tuple(defect_energy(crystal, supercell=n * base, **defects) for n in repeats)
     lengths = np.array([r.supercell.crystal.volume ** (1.0 / 3.0) for r in results])

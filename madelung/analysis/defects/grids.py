@@ -237,7 +237,7 @@ def plane_section(crystal, plane="001", offset=0.5, *, spacing=0.1, smearing=0.3
                         smearing=float(smearing))
 
 
-def write_cube(path, grid: PotentialGrid):
+def write_gaussian_cube(path, grid: PotentialGrid):
     """Write a potential grid as a Gaussian cube file (values in V; positions converted by ASE)."""
     import ase.io
 

@@ -59,24 +59,24 @@ def _spglib_cell(crystal):
             np.array(types, dtype=int))
 
 
-def _symmetry_operations(crystal, symprec):
+def _symmetry_operations(crystal, symmetry_tolerance):
     import spglib
 
     with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
         warnings.simplefilter("ignore", DeprecationWarning)
-        data = spglib.get_symmetry(_spglib_cell(crystal), symprec=symprec)
+        data = spglib.get_symmetry(_spglib_cell(crystal), symprec=symmetry_tolerance)
     if data is None:
         return np.eye(3, dtype=int)[None], np.zeros((1, 3))
     return np.asarray(data["rotations"]), np.asarray(data["translations"])
 
 
-def equivalent_sites(crystal, symprec=1e-3):
+def equivalent_sites(crystal, symmetry_tolerance=1e-3):
     """For each ion, the index of the first ion symmetry-equivalent to it (spglib)."""
     import spglib
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DeprecationWarning)
-        dataset = spglib.get_symmetry_dataset(_spglib_cell(crystal), symprec=symprec)
+        dataset = spglib.get_symmetry_dataset(_spglib_cell(crystal), symprec=symmetry_tolerance)
     if dataset is None:
         return np.arange(len(crystal))
     return np.asarray(dataset.equivalent_atoms if hasattr(dataset, "equivalent_atoms")
@@ -248,7 +248,7 @@ def _refine(energy, minima, shape, cell, positions, radii, probe_radius, clearan
 
 
 def find_interstitials(crystal, probe=1.0, *, spacing=0.2, probe_radius=DEFAULT_PROBE_RADIUS, radii=None,
-                       clearance=0.75, tol=1e-8, symprec=1e-3, merge_distance=0.25, box=0.6):
+                       clearance=0.75, tol=1e-8, symmetry_tolerance=1e-3, merge_distance=0.25, box=0.6):
     """Candidate interstitial positions of a probe charge.
 
     The probe's energy is its charge times the crystal's potential plus a Born–Mayer contact
@@ -274,7 +274,7 @@ def find_interstitials(crystal, probe=1.0, *, spacing=0.2, probe_radius=DEFAULT_
         Minimum distance to every ion as a fraction of R_ion + R_probe (default 0.75).
     tol : float
         Accuracy of the potentials (default 1e-8).
-    symprec : float
+    symmetry_tolerance : float
         spglib tolerance, Å. merge_distance : positions closer than this are one site, Å.
     box : float
         Half-width of the refinement box around each grid minimum, Å.
@@ -321,7 +321,7 @@ def find_interstitials(crystal, probe=1.0, *, spacing=0.2, probe_radius=DEFAULT_
                                 clearance, box)
 
     # merge: duplicates and symmetry images
-    rotations, translations = _symmetry_operations(crystal, symprec)
+    rotations, translations = _symmetry_operations(crystal, symmetry_tolerance)
     entries = []
     if refined:
         refined = np.array(refined)

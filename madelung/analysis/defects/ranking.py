@@ -12,7 +12,7 @@ from ...sums.dispatch import ewald
 from .energies import defect_energy
 from .interstitials import equivalent_sites
 from .points import _where
-from .supercells import make_supercell, Supercell
+from .supercells import tile_supercell, Supercell
 
 @dataclass(frozen=True)
 class VacancyRow:
@@ -44,7 +44,7 @@ class VacancyRanking:
     error_estimate: float
 
 
-def vacancy_ranking(crystal, species="anions", *, supercell=None, min_length=None, tol=1e-10, symprec=1e-3):
+def vacancy_ranking(crystal, species="anions", *, supercell=None, smallest_plane_spacing=None, tol=1e-10, symmetry_tolerance=1e-3):
     """Rank the symmetry-inequivalent sites of a species by vacancy electrostatics.
 
     Parameters
@@ -52,9 +52,9 @@ def vacancy_ranking(crystal, species="anions", *, supercell=None, min_length=Non
     crystal : Crystal
     species : str
         ``"anions"``, ``"cations"``, an element symbol or a site label.
-    supercell, min_length : optional
+    supercell, smallest_plane_spacing : optional
         Also compute each vacancy directly in this supercell (neutralizing background).
-    tol, symprec : accuracy of the sums; spglib tolerance for equivalent sites.
+    tol, symmetry_tolerance : accuracy of the sums; spglib tolerance for equivalent sites.
 
     Returns
     -------
@@ -78,9 +78,9 @@ def vacancy_ranking(crystal, species="anions", *, supercell=None, min_length=Non
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", MadelungWarning)
         bulk = ewald(crystal, tol=tol)
-    equivalent = equivalent_sites(crystal, symprec)
+    equivalent = equivalent_sites(crystal, symmetry_tolerance)
     rows = []
-    sc = make_supercell(crystal, supercell, min_length) if (supercell is not None or min_length is not None) else None
+    sc = tile_supercell(crystal, supercell, smallest_plane_spacing) if (supercell is not None or smallest_plane_spacing is not None) else None
     for rep in dict.fromkeys(int(equivalent[i]) for i in np.flatnonzero(chosen)):
         q = float(charges[rep])
         phi = float(bulk.potentials[rep])

@@ -57,22 +57,22 @@ def parse_supercell(text):
     return matrix.astype(np.int64)
 
 
-def near_cubic_matrix(cell, min_length):
-    """The smallest supercell matrix whose lattice-plane spacings all reach ``min_length`` Å (so
+def near_cubic_matrix(cell, smallest_plane_spacing):
+    """The smallest supercell matrix whose lattice-plane spacings all reach ``smallest_plane_spacing`` Å (so
     every periodic image of a defect is at least that far away), preferring the most cubic shape."""
     cell = np.asarray(cell, float)
     try:
-        min_length = float(min_length)
+        smallest_plane_spacing = float(smallest_plane_spacing)
     except (TypeError, ValueError):
-        raise InputError(f"minimum supercell length must be a number of Å, got {min_length!r}") from None
-    if not (math.isfinite(min_length) and min_length > 0):
-        raise InputError(f"minimum supercell length must be positive, got {min_length!r}")
+        raise InputError(f"minimum supercell length must be a number of Å, got {smallest_plane_spacing!r}") from None
+    if not (math.isfinite(smallest_plane_spacing) and smallest_plane_spacing > 0):
+        raise InputError(f"minimum supercell length must be positive, got {smallest_plane_spacing!r}")
     spacing = plane_spacings(cell)
-    best = np.diag(np.maximum(1, np.ceil(min_length / spacing - 1e-9)).astype(np.int64))
+    best = np.diag(np.maximum(1, np.ceil(smallest_plane_spacing / spacing - 1e-9)).astype(np.int64))
     best_key = (round(abs(np.linalg.det(best))), 0.0)
     deltas = np.array(np.meshgrid(*[[-1, 0, 1]] * 9, indexing="ij")).reshape(9, -1).T.reshape(-1, 3, 3)
     for scale in np.linspace(1.0, 1.6, 13):
-        ideal = np.round(scale * min_length * np.linalg.inv(cell)).astype(np.int64)
+        ideal = np.round(scale * smallest_plane_spacing * np.linalg.inv(cell)).astype(np.int64)
         matrices = ideal[None] + deltas
         dets = np.round(np.linalg.det(matrices.astype(float))).astype(np.int64)
         ok = (dets > 0) & (dets <= best_key[0])
@@ -84,7 +84,7 @@ def near_cubic_matrix(cell, min_length):
         spacings = np.stack([volumes / np.linalg.norm(np.cross(cells[:, (a + 1) % 3], cells[:, (a + 2) % 3]), axis=1)
                              for a in range(3)], axis=1)
         shortest = spacings.min(axis=1)
-        reach = shortest >= min_length - 1e-9
+        reach = shortest >= smallest_plane_spacing - 1e-9
         if not reach.any():
             continue
         cubicness = -shortest[reach] / volumes[reach] ** (1.0 / 3.0)
@@ -95,17 +95,17 @@ def near_cubic_matrix(cell, min_length):
     return best
 
 
-def make_supercell(crystal, supercell=None, min_length=None) -> Supercell:
+def tile_supercell(crystal, supercell=None, smallest_plane_spacing=None) -> Supercell:
     """Build a supercell from a repeat spec (``"3x3x3"``, an int, a 3x3 matrix) or the smallest
-    near-cubic one with all plane spacings at least ``min_length`` Å."""
-    if supercell is not None and min_length is not None:
+    near-cubic one with all plane spacings at least ``smallest_plane_spacing`` Å."""
+    if supercell is not None and smallest_plane_spacing is not None:
         raise InputError("give either a supercell (e.g. 3x3x3) or a minimum length, not both")
-    if supercell is None and min_length is None:
+    if supercell is None and smallest_plane_spacing is None:
         matrix = np.eye(3, dtype=np.int64)
     elif supercell is not None:
         matrix = parse_supercell(supercell)
     else:
-        matrix = near_cubic_matrix(crystal.cell, min_length)
+        matrix = near_cubic_matrix(crystal.cell, smallest_plane_spacing)
     if round(np.linalg.det(matrix)) * len(crystal) > 200000:
         raise InputError(f"supercell of {round(np.linalg.det(matrix))} cells is too large")
     if np.count_nonzero(matrix - np.diag(np.diag(matrix))) == 0:
