@@ -23,27 +23,21 @@ def rattled_rock_salt(repeats, displacement=0.05, seed=0, a=5.64):
     return madelung.Crystal.from_ase(atoms, charges)
 
 
+def best_time(function, repeat=3, clock=time.perf_counter):
+    """Best time of ``repeat`` calls (s, wall clock by default) and the last result."""
+    best = np.inf
+    result = None
+    for _ in range(repeat):
+        started = clock()
+        result = function()
+        best = min(best, clock() - started)
+    return best, result
+
+
 def best_cpu(function, repeat=3):
     """Best process (CPU) time of ``repeat`` calls (s) and the last result: less disturbed than
     wall time by other work on a shared machine."""
-    best = np.inf
-    result = None
-    for _ in range(repeat):
-        started = time.process_time()
-        result = function()
-        best = min(best, time.process_time() - started)
-    return best, result
-
-
-def best_time(function, repeat=3):
-    """Best wall time of ``repeat`` calls (s) and the last result."""
-    best = np.inf
-    result = None
-    for _ in range(repeat):
-        started = time.perf_counter()
-        result = function()
-        best = min(best, time.perf_counter() - started)
-    return best, result
+    return best_time(function, repeat, clock=time.process_time)
 
 
 def fit_exponent(sizes, times):
