@@ -29,7 +29,7 @@ from .analysis.orderings import OrderingRanking, rank_orderings  # noqa: E402
 from .io.read import Loaded, load, read_crystal  # noqa: E402  (also registers Crystal.from_file / from_ase)
 
 __all__ = ["Crystal", "load", "read_crystal", "Loaded", "ewald", "EwaldResult", "EwaldParameters", "SumPlan",
-           "plan_for", "madelung_constants",
+           "plan_for", "METHODS", "madelung_constants",
            "MadelungConstants", "describe", "InputError", "MadelungError", "MadelungWarning",
            "potential_at", "potential_grid", "find_interstitials", "defect_energy", "vacancy_ranking",
            "charged_cell_correction", "correction_series",

@@ -68,7 +68,7 @@ def embedding_report(result) -> str:
              f"  point charges     {len(r.charges)} out to {r.field_radius:g} Å; {int(fitted.sum())} fitted in the "
              f"outer {r.fitted_thickness:g} Å (largest change {np.max(np.abs(change)) if len(change) else 0:.4f} e)",
              f"  whole array       net charge {r.net_charge:.2e} e, dipole {np.linalg.norm(r.dipole):.2e} e·Å",
-             f"  potential zero    " + ("Ewald convention (cell average of the periodic potential is zero)"
+             "  potential zero    " + ("Ewald convention (cell average of the periodic potential is zero)"
                                        if r.offset_mode == "ewald" else
                                        f"fitted constant: embedded = periodic + {r.offset:+.6f} V"),
              "  residual, embedded minus periodic potential (mV):",

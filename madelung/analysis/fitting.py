@@ -18,7 +18,7 @@ from ..sums.dispatch import ewald
 from ..sums.shortrange import (DEFAULT_CUTOFF, DEFAULT_SWITCH_WIDTH, FORMS, PairPotential, RepulsionModel,
                                shortrange)
 from ..units import EV_PER_A3_TO_GPA
-from .lattice_energy import born_exponent, bulk_modulus, scaled
+from .lattice_energy import born_exponent, scaled
 
 # ---------------------------------------------------------------- fitting
 @dataclass(frozen=True)

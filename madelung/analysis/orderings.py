@@ -41,7 +41,7 @@ from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE, crystal_symmetry
 from ..units import EV_TO_KJ_PER_MOL
 from . import _ordering_kernels as kernels
 from .ordering_search import run_enumeration, run_search
-from .ordering_symmetry import burnside_count, canonical_form, inverse_permutations, multinomial, site_permutations
+from .ordering_symmetry import burnside_count, inverse_permutations, multinomial, site_permutations
 
 #: Enumerate when there are at most this many symmetry-distinct orderings (Burnside's count); else search.
 DEFAULT_MAX_DISTINCT = 10**7

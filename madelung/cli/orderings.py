@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import warnings
 
-from ..analysis.embedding_files import check_output_folder
 from ..errors import InputError
 from .loading import _ion_charges_of
 from .options import (

@@ -14,7 +14,7 @@ from ..errors import InputError
 from ..units import EV_PER_A3_TO_GPA
 
 
-def write_plane_png(path, section: PlaneSection, title=""):
+def write_plane_png(path, section, title=""):
     """Heat map of a plane section (:class:`~madelung.analysis.defects.PlaneSection`) with the ions
     in the plane marked, written as a PNG."""
 

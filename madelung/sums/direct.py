@@ -112,13 +112,6 @@ class EwaldResult:
                                "k_vectors": self.params.k_vectors, **self.params.extra}}
 
 
-def _as_crystal_arrays(crystal):
-    cell = np.ascontiguousarray(crystal.cell, dtype=np.float64)
-    positions = np.ascontiguousarray(crystal.positions, dtype=np.float64)
-    charges = np.ascontiguousarray(crystal.charges, dtype=np.float64)
-    return cell, positions, charges
-
-
 def shortest_distance(crystal) -> float:
     """Shortest interionic distance of a crystal (images included), Å."""
     return plan_module.shortest_distance(crystal.cell, crystal.positions)
