@@ -175,18 +175,15 @@ def _terms_per_ion(choice, sums, volume, method):
     return real + (4.0 / 3.0) * math.pi * choice.reciprocal_cutoff ** 3 * volume / (8.0 * math.pi ** 3)
 
 
-def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order, decided=None):
+def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order):
     """``(engine, its choice, predicted seconds of each engine)`` for an energy error ``target``.
 
     With ``method="auto"`` the direct sum is tuned first; the mesh only when the direct sum is
-    predicted to take at least AUTO_DIRECT_BELOW_SECONDS. ``decided``: predictions of an earlier
-    call whose engine choice is kept (the second, rounding-aware call must not flip engines).
+    predicted to take at least AUTO_DIRECT_BELOW_SECONDS. Engines not considered predict None.
     """
     k_e = COULOMB_CONSTANT
     predicted = {"direct": None, "mesh": None}
     direct = mesh_choice = None
-    if decided is not None:
-        method = "mesh" if decided["mesh"] is not None and decided["mesh"] < decided["direct"] else "direct"
     if method in ("auto", "direct"):
         direct = tuning.choose_direct(target, sums, volume, d_min, k_e, alpha=alpha)
         predicted["direct"] = 1e-9 * direct.predicted_ns
@@ -197,8 +194,6 @@ def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order, de
         predicted["mesh"] = 1e-9 * mesh_choice.predicted_ns
     if method == "auto":
         method = "mesh" if predicted["mesh"] is not None and predicted["mesh"] < predicted["direct"] else "direct"
-    if decided is not None:
-        predicted = {name: decided[name] if predicted[name] is None else predicted[name] for name in predicted}
     return method, (mesh_choice if method == "mesh" else direct), predicted
 
 
@@ -260,8 +255,9 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
         raise InputError(f"tol {tol:g} is below what double precision can resolve for this sum; "
                          f"the smallest meaningful tol here is about {smallest:.1g}")
     if rounding > ROUNDING_SHARE * target:
-        method, choice, predicted = _choose(method, target - rounding, sums, volume, lengths, d_min, alpha, mesh,
-                                            order, predicted if chosen_by == "auto" else None)
+        # tuned again for what rounding leaves, with the engine already chosen
+        method, choice, retuned = _choose(method, target - rounding, sums, volume, lengths, d_min, alpha, mesh, order)
+        predicted[method] = retuned[method]
     if method == "direct":
         reciprocal_cutoff, recip_error, shape, spline = choice.reciprocal_cutoff, choice.reciprocal_error, None, None
     else:
