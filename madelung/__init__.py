@@ -5,7 +5,7 @@ converged to an accuracy you state. Point charges are a model: with formal charg
 electrostatic energies overstate what a real, partly covalent solid holds.
 """
 
-from .crystal import Crystal
+from .structure.crystal import Crystal
 from .errors import InputError, MadelungError, MadelungWarning
 from .sums.direct import EwaldParameters, EwaldResult
 from .sums.dispatch import ewald

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .crystal import Crystal
+from .structure.crystal import Crystal
 from .analysis.defects import potential_at
 from .sums.direct import ewald_direct
 from .sums.matrix import coulomb_matrix

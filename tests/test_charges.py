@@ -14,7 +14,7 @@ from madelung.charges import assign_oxidation_states, bond_valence_sums, equilib
 from madelung.charges.bond_valence import R0
 from madelung.cli import main
 from madelung.io.read import read_structure
-from madelung.symmetry import crystal_symmetry, standard_cell
+from madelung.structure.symmetry import crystal_symmetry, standard_cell
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
 

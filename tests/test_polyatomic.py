@@ -227,7 +227,7 @@ def _born_haber_brucite():
     """Lattice enthalpy of Mg(OH)2 by the Born–Haber cycle, kJ/mol: dHf(Mg(OH)2, s) = -924.5 (NBS
     tables, from memory), dHf(Mg, g) = 147.1 (from memory), dHf(OH-, g) = -143.5 (from memory),
     Mg ionisation energies from the periodic-table library (mendeleev, NIST values)."""
-    from madelung.elements import ionisation_energies
+    from madelung.structure.elements import ionisation_energies
 
     ie = ionisation_energies("Mg")
     return 147.1 + (ie[1] + ie[2]) * EV_TO_KJ_PER_MOL + 2 * (-143.5) + 924.5

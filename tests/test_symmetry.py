@@ -10,7 +10,7 @@ from hypothesis import given, settings, strategies as st
 
 from madelung import Crystal, InputError, ewald
 from madelung.cli import main
-from madelung.symmetry import analyse, crystal_symmetry, standard_cell
+from madelung.structure.symmetry import analyse, crystal_symmetry, standard_cell
 
 STRUCTURES = Path(__file__).resolve().parent.parent / "structures"
 

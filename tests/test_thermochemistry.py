@@ -65,7 +65,7 @@ def test_covalent_character_flag():
     # AgCl, kJ/mol, from memory (NBS/CRC tables): formation -127.0, atomisation of Ag 284.9; the silver
     # halides are the classic case where the cycle exceeds the ionic model (fact of the trade)
     agcl = born_haber_cycle("AgCl", -127.0, {"Ag": 284.9}, {"Cl": 242.6})
-    from madelung.elements import shannon_radius
+    from madelung.structure.elements import shannon_radius
     from madelung.analysis.lattice_energy import kapustinskii_energy
     from madelung.units import EV_TO_KJ_PER_MOL
 

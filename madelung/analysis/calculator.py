@@ -19,9 +19,10 @@ import numpy as np
 from ase.calculators.calculator import Calculator, all_changes
 
 from ..errors import InputError
-from ..crystal import Crystal
+from ..structure.crystal import Crystal
 from ..sums.dispatch import ewald
 from ..sums.shortrange import load_repulsion, shortrange
+from ..defaults import SUM_TOL
 
 
 class RigidIonCalculator(Calculator):
@@ -49,7 +50,7 @@ class RigidIonCalculator(Calculator):
     implemented_properties = ["energy", "free_energy", "forces", "stress"]
     default_parameters = {"tol": 1e-10}
 
-    def __init__(self, repulsion, charges=None, tol=1e-10, **kwargs):
+    def __init__(self, repulsion, charges=None, tol=SUM_TOL, **kwargs):
         super().__init__(**kwargs)
         self.repulsion = load_repulsion(repulsion)
         self.charges = charges
@@ -121,7 +122,7 @@ class Relaxation:
         return (self.final_volume - self.initial_volume) / self.initial_volume
 
 
-def relax(crystal, repulsion, cell=True, force_limit=1e-4, max_steps=500, tol=1e-10, trajectory=None) -> Relaxation:
+def relax(crystal, repulsion, cell=True, force_limit=1e-4, max_steps=500, tol=SUM_TOL, trajectory=None) -> Relaxation:
     """Relax ion positions (and the cell) of a crystal in the rigid-ion model with ASE's BFGS.
 
     Parameters

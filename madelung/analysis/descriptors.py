@@ -73,13 +73,12 @@ import numpy as np
 
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
-from ..crystal import Crystal
+from ..structure.crystal import Crystal
 from ..sums.matrix import coulomb_matrix, MAX_MATRIX_SITES
 from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from .madelung_constants import madelung_constants
+from ..defaults import SCREENING_TOL, SPECTRUM_LENGTH
 
-#: Length of the padded Ewald-sum-matrix spectrum (the screening benchmark's cells have up to 40 sites).
-SPECTRUM_LENGTH = 40
 
 
 def spectrum_columns(length=SPECTRUM_LENGTH):
@@ -114,7 +113,7 @@ def column_types(length=SPECTRUM_LENGTH) -> dict:
 COLUMNS = tuple(column_types())
 
 
-def ewald_sum_matrix(crystal, tol=1e-8, d_min=None):
+def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None):
     """The Ewald sum matrix ``X[i, j] = q_i q_j J[i, j]`` (eV) defined in the module docstring.
 
     References
@@ -126,7 +125,7 @@ def ewald_sum_matrix(crystal, tol=1e-8, d_min=None):
     return q[:, None] * coulomb * q[None, :]
 
 
-def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=1e-8, d_min=None):
+def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None):
     """Eigenvalues of :func:`ewald_sum_matrix` sorted by decreasing magnitude, zero-padded to ``length``.
 
     Returns ``(values, note)``: ``note`` is ``""``, says that the spectrum was truncated to the
@@ -153,7 +152,7 @@ def _stats(values):
     return (float(np.min(values)), float(np.mean(values)), float(np.max(values)))
 
 
-def describe(crystal, tol=1e-8, spectrum_length=SPECTRUM_LENGTH, sites=False):
+def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=False):
     """Electrostatic descriptors of a neutral crystal: one flat row (see the module docstring).
 
     Parameters

@@ -41,13 +41,14 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import solve_triangular
 
-from ..crystal import Crystal
+from ..structure.crystal import Crystal
 from .defects import ON_ION_DISTANCE, potential_at
 from ..errors import InputError, MadelungWarning
 from ..sums.plan import NEUTRAL_TOLERANCE
 from ..units import COULOMB_CONSTANT
 from . import _embedding_kernels as kernels
 from .cluster import array_ions, boundary_cations, clear_of_ions, resolve_center, shortest_cation_anion, sphere_grid
+from ..defaults import SUM_TOL
 
 #: By default the grid filling the cluster sphere has about this many points (the misfit is a
 #: smooth, harmonic function inside the sphere, so a coarse grid pins it down), with a step of at
@@ -258,7 +259,7 @@ def _array_potentials(points, positions, charges):
 
 
 def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness=None,
-              grid_spacing=None, offset="ewald", groups=None, tol=1e-10, warn=True) -> Embedding:
+              grid_spacing=None, offset="ewald", groups=None, tol=SUM_TOL, warn=True) -> Embedding:
     """A cluster of whole ions and a fitted point-charge field reproducing the crystal's potential.
 
     Parameters

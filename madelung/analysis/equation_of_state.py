@@ -15,6 +15,7 @@ from ..errors import InputError
 from ..sums.shortrange import load_repulsion
 from ..units import EV_PER_A3_TO_GPA
 from .lattice_energy import scaled, total_terms
+from ..defaults import SUM_TOL
 
 # ---------------------------------------------------------------- equation of state
 def birch_murnaghan(volume, e0, v0, b0, b0_prime):
@@ -54,7 +55,7 @@ class EquationOfState:
     extra: dict = field(default_factory=dict)
 
 
-def equation_of_state(crystal, repulsion, span=0.06, points=11, tol=1e-10) -> EquationOfState:
+def equation_of_state(crystal, repulsion, span=0.06, points=11, tol=SUM_TOL) -> EquationOfState:
     """Energy–volume scan under homogeneous scaling and a third-order Birch–Murnaghan fit.
 
     Parameters

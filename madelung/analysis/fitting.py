@@ -12,13 +12,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..crystal import Crystal
+from ..structure.crystal import Crystal
 from ..errors import InputError
 from ..sums.dispatch import ewald
 from ..sums.shortrange import (DEFAULT_CUTOFF, DEFAULT_SWITCH_WIDTH, FORMS, PairPotential, RepulsionModel,
                                shortrange)
 from ..units import EV_PER_A3_TO_GPA
 from .lattice_energy import born_exponent, scaled
+from ..defaults import SUM_TOL
 
 # ---------------------------------------------------------------- fitting
 @dataclass(frozen=True)
@@ -124,7 +125,7 @@ def _species_pairs(crystals):
 
 def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), start=None,
                   cutoff=None, switch_width=None, pressure_sigma=1e-3, force_sigma=1e-4,
-                  tol=1e-10, max_evaluations=200) -> FitResult:
+                  tol=SUM_TOL, max_evaluations=200) -> FitResult:
     """Fit short-range parameters so that the observed structures are stationary.
 
     The conditions are: zero stress of every target (pressure and the other components, GPa),

@@ -19,12 +19,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..elements import shannon_radius
+from ..structure.elements import shannon_radius
 from ..errors import InputError
 from ..sums.dispatch import ewald
 from ..sums.shortrange import load_repulsion, shortrange
 from ..units import COULOMB_CONSTANT, EV_PER_A3_TO_GPA, EV_TO_KJ_PER_MOL, kj_per_mol_to_ev
 from .madelung_constants import madelung_constants
+from ..defaults import SUM_TOL
 
 #: Kapustinskii's constant, 1.2025e-4 J m mol^-1, in kJ/mol Å; and his d = 0.345 Å
 #: (A. F. Kapustinskii, Q. Rev. Chem. Soc. 10 (1956) 283).
@@ -214,7 +215,7 @@ class LatticeEnergy:
         return {k: v / self.formula_units for k, v in self.per_cell().items()}
 
 
-def closed_forms(crystal, model=None, tol=1e-10, ewald_result=None) -> ClosedForms:
+def closed_forms(crystal, model=None, tol=SUM_TOL, ewald_result=None) -> ClosedForms:
     """Born–Landé, Born–Mayer and Kapustinskii lattice energies of a crystal with one cation and
     one anion kind, using the computed Madelung constant (handbook convention) and r0.
     ``ewald_result``: the crystal's Ewald sum if already done.
@@ -269,12 +270,12 @@ def closed_forms(crystal, model=None, tol=1e-10, ewald_result=None) -> ClosedFor
         rho_source=rho_source, kapustinskii=kap, radii=radii, notes=notes)
 
 
-def total_terms(crystal, model, tol=1e-10, forces=False, stress=False):
+def total_terms(crystal, model, tol=SUM_TOL, forces=False, stress=False):
     """Coulomb (Ewald) and short-range results of one crystal: ``(EwaldResult, ShortRangeResult)``."""
     return ewald(crystal, tol=tol, forces=forces, stress=stress), shortrange(crystal, model, forces, stress)
 
 
-def lattice_energy(crystal, repulsion, tol=1e-10, with_closed_forms=True) -> LatticeEnergy:
+def lattice_energy(crystal, repulsion, tol=SUM_TOL, with_closed_forms=True) -> LatticeEnergy:
     """Lattice energy of a crystal: Coulomb (Ewald) plus the short-range terms of ``repulsion``.
 
     Parameters
@@ -313,7 +314,7 @@ def scaled(crystal, factor):
     return crystal.replace(cell=crystal.cell * factor, positions=crystal.positions * factor)
 
 
-def bulk_modulus(crystal, repulsion, tol=1e-10, step=0.002) -> float:
+def bulk_modulus(crystal, repulsion, tol=SUM_TOL, step=0.002) -> float:
     """Bulk modulus of the model at the given structure under homogeneous strain, GPa:
     ``B = -dP / d ln V`` by central differences of the pressure (ions kept at fixed fractional
     coordinates, which is exact for structures without free coordinates such as rock salt).

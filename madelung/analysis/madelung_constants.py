@@ -45,6 +45,7 @@ from ..errors import InputError
 from ..sums.geometry import neighbour_pairs
 from ..units import COULOMB_CONSTANT
 from ..sums.dispatch import ewald
+from ..defaults import SUM_TOL
 
 CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
 
@@ -155,7 +156,7 @@ def _common_factor(charges):
     return numerator / denominator
 
 
-def madelung_constants(crystal, tol=1e-10, method="auto", ewald_result=None,
+def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
                        polyatomic_ions="centre") -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 

@@ -3,7 +3,7 @@ Burnside's count of symmetry-distinct orderings, and the canonical (orbit-minimu
 
 Two orderings are the same crystal when an operation of the disordered supercell (rotations,
 screw axes, glides and the pure translations of the parent lattice inside the supercell) maps
-one onto the other. The operations come from spglib (:func:`madelung.symmetry.symmetry_operations`)
+one onto the other. The operations come from spglib (:func:`madelung.structure.symmetry.symmetry_operations`)
 with the sites typed by what they hold, so an operation never mixes sublattices.
 
 References
@@ -24,7 +24,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from ..errors import InputError
-from ..symmetry import symmetry_operations
+from ..structure.symmetry import symmetry_operations
 
 
 def site_permutations(cell, frac_positions, types, symmetry_tolerance):

@@ -33,15 +33,16 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..crystal import Crystal
+from ..structure.crystal import Crystal
 from .defects import tile_supercell
 from ..errors import InputError
 from ..sums.matrix import coulomb_matrix, potentials_for_charge_sets
-from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE, crystal_symmetry
+from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE, crystal_symmetry
 from ..units import EV_TO_KJ_PER_MOL
 from . import _ordering_kernels as kernels
 from .ordering_search import run_enumeration, run_search
 from .ordering_symmetry import burnside_count, inverse_permutations, multinomial, site_permutations
+from ..defaults import SUM_TOL
 
 #: Enumerate when there are at most this many symmetry-distinct orderings (Burnside's count); else search.
 DEFAULT_MAX_DISTINCT = 10**7
@@ -235,7 +236,7 @@ def _smallest_supercells(needed, limit=4):
 
 
 # ------------------------------------------------------------------ the problem
-def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False, tol=1e-10,
+def ordering_problem(crystal, supercell=1, *, ion_charges=None, background=False, tol=SUM_TOL,
                      symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE) -> OrderingProblem:
     """Set up the orderings of ``crystal``'s mixed and partly occupied sites in a supercell: the
     sublattices and their ion counts, the Coulomb matrix and the symmetry operations.
@@ -454,7 +455,7 @@ class OrderingRanking:
 
 def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="auto",
                    max_distinct=DEFAULT_MAX_DISTINCT, restarts=8, sweeps=50, seed=0, workers=1,
-                   scheduler=None, background=False, tol=1e-10, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE) -> OrderingRanking:
+                   scheduler=None, background=False, tol=SUM_TOL, symmetry_tolerance=DEFAULT_SYMMETRY_TOLERANCE) -> OrderingRanking:
     """Rank the orderings of a crystal's mixed and partly occupied sites in a supercell by their
     electrostatic energy.
 

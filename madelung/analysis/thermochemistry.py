@@ -48,7 +48,7 @@ from dataclasses import dataclass
 
 from ..errors import InputError
 from ..units import EV_TO_KJ_PER_MOL
-from ..elements import common_oxidation_states, electron_affinity as library_affinity, ionisation_energies
+from ..structure.elements import common_oxidation_states, electron_affinity as library_affinity, ionisation_energies
 
 #: A model lattice energy this far below the cycle value (fraction) is flagged as covalent character.
 #: A rule of thumb: rigid-ion and Kapustinskii values of clearly ionic alkali halides fall within

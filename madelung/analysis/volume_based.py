@@ -45,7 +45,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
-from ..elements import shannon_radius
+from ..structure.elements import shannon_radius
 from ..errors import InputError
 from .lattice_energy import kapustinskii_energy
 from ..units import EV_TO_KJ_PER_MOL

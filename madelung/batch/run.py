@@ -45,10 +45,11 @@ from .inputs import _is_database, _is_glob, count_tasks, iter_tasks
 from .progress import Progress, ScreenSummary
 from .tables import TableLock, TableWriter, _write_back, site_table_columns, table_columns
 from .tasks import ScreenOptions, settings_text
+from ..defaults import SCREENING_TOL
 
 
 def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="file", charge_rules=None,
-           tol=1e-8, workers=None, scheduler=None, timeout=None, resume=False, sites=None, write_db=False,
+           tol=SCREENING_TOL, workers=None, scheduler=None, timeout=None, resume=False, sites=None, write_db=False,
            chunk_size=256, progress=True, spectrum_length=None, symmetry_tolerance=None, min_distance=0.5,
            max_atoms=None, occupancy="average", progress_every=10.0, allow_net_charge=False,
            overwrite=False) -> ScreenSummary:
@@ -95,9 +96,9 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     -------
     ScreenSummary
     """
-    from ..crystal import DEFAULT_MAX_ATOMS
+    from ..structure.crystal import DEFAULT_MAX_ATOMS
     from ..analysis.descriptors import SPECTRUM_LENGTH
-    from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE
+    from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE
 
     if charges not in ("file", "auto", "equilibrate"):
         raise InputError(f"charges must be 'file', 'auto' or 'equilibrate', got {charges!r}")

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..crystal import check_size
+from ..structure.crystal import check_size
 from ..errors import InputError
 from ..io.read import charge_table
 from ..io.read import read_sites
@@ -106,7 +106,7 @@ def _charged_crystal(table, task, options):
 
 
 def _space_group(crystal, symmetry_tolerance):
-    from ..symmetry import _dataset, site_types
+    from ..structure.symmetry import _dataset, site_types
 
     data = _dataset(np.ascontiguousarray(crystal.cell), np.ascontiguousarray(crystal.fractional_positions),
                     site_types(crystal), symmetry_tolerance)

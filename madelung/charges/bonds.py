@@ -7,7 +7,7 @@ Two sites are bonded when
 * both elements are non-metals or metalloids (:data:`GROUP_FORMING`), or the pair is one of the
   metal–ligand pairs named by the caller (the polyatomic-ion table names Al–Cl for AlCl4-), and
 * their distance is at most ``r_a + r_b + tolerance``, with r the single-bond covalent radii of
-  Cordero et al. (through :func:`madelung.elements.covalent_radius`) and ``tolerance`` 0.40 Å by
+  Cordero et al. (through :func:`madelung.structure.elements.covalent_radius`) and ``tolerance`` 0.40 Å by
   default (:data:`DEFAULT_BOND_TOLERANCE`).
 
 Metals bond to nothing else: their contacts with anions are ionic, and the covalent-radius sum
@@ -34,7 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .. import elements
+from ..structure import elements
 from ..errors import InputError
 from ..sums.geometry import neighbour_pairs, plane_spacings
 

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-from .. import elements
+from ..structure import elements
 from ..errors import InputError
 
 #: Common oxidation states in ionic solids, from memory of Greenwood & Earnshaw (1997).

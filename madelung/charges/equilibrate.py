@@ -15,7 +15,7 @@ chi_i + J_i q_i + sum_j C_ij q_j equal to one value mu: one linear system,
 Element parameters (Mulliken): chi = (I + A) / 2 and J = I - A from the first ionisation energy
 I and the electron affinity A (R. S. Mulliken, J. Chem. Phys. 2 (1934) 782; the pair chi, J is
 the one Rappé and Goddard start from). I and A come from the periodic-table library
-(:mod:`madelung.elements`); an element without a bound anion gets A = 0.
+(:mod:`madelung.structure.elements`); an element without a bound anion gets A = 0.
 
 Interaction kernels
 -------------------
@@ -63,11 +63,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import erf
 
-from .. import elements
+from ..structure import elements
 from ..errors import InputError, MadelungWarning
 from ..units import COULOMB_CONSTANT
 from .bonds import bonded_pairs
 from ..sums.matrix import coulomb_matrix, screened_pairs
+from ..defaults import SCREENING_TOL
 
 KERNELS = ("gaussian", "point")
 
@@ -118,7 +119,7 @@ def mulliken_parameters(element):
 
 
 def equilibrate(crystal, total_charge=0.0, kernel="gaussian", parameters=None, dielectric=DEFAULT_DIELECTRIC,
-                tol=1e-8):
+                tol=SCREENING_TOL):
     """Charge equilibration in the periodic cell.
 
     Parameters

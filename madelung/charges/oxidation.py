@@ -55,11 +55,11 @@ from fractions import Fraction
 
 import numpy as np
 
-from .. import elements
-from ..crystal import ion_text
+from ..structure import elements
+from ..structure.crystal import ion_text
 from ..errors import InputError
 from ..sums.matrix import potentials_for_charge_sets
-from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE, analyse
+from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE, analyse
 from . import bond_valence
 from .common_states import adjacent_pair, common_states, is_common
 from .common_states import known_states as all_known_states

@@ -57,6 +57,7 @@ from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 from .bonds import DEFAULT_BOND_TOLERANCE, bonded_groups, bonded_pairs
 from .equilibrate import equilibrate_group, sign_warnings
 from .ion_table import METAL_LIGANDS, composition_of, match
+from ..defaults import SUM_TOL
 
 #: Ways of placing an ion's charge (see the module docstring).
 CHARGE_RULES = ("centre", "formal", "equilibrated")
@@ -358,7 +359,7 @@ class InterionicEnergy:
         }
 
 
-def interionic_energy(crystal, rule="centre", tol=1e-10, method="auto", found=None,
+def interionic_energy(crystal, rule="centre", tol=SUM_TOL, method="auto", found=None,
                       tolerance=DEFAULT_BOND_TOLERANCE) -> InterionicEnergy:
     """Inter-ion electrostatic energy of a crystal holding polyatomic ions.
 

@@ -116,7 +116,7 @@ def _run_charges(args):
 
 def _run_equilibrate(args):
     from ..io.read import load
-    from ..symmetry import crystal_symmetry
+    from ..structure.symmetry import crystal_symmetry
 
     if args.charge:
         raise InputError(f"{args.file}: --charge cannot be combined with --method equilibrate")

@@ -333,7 +333,7 @@ def _run_correction(args):
     if args.supercell is not None:
         cell = parse_supercell(args.supercell) @ cell
     elif args.smallest_plane_spacing is not None:
-        from ..crystal import Crystal
+        from ..structure.crystal import Crystal
 
         cell = tile_supercell(Crystal(cell, [[0, 0, 0]], [1.0]), smallest_plane_spacing=args.smallest_plane_spacing).crystal.cell
     eps = _dielectric_from(args)

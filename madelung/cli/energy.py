@@ -106,7 +106,7 @@ def _add_sites(sub):
 
 def _run_sites(args):
     from ..analysis.madelung_constants import madelung_constants
-    from ..symmetry import crystal_symmetry
+    from ..structure.symmetry import crystal_symmetry
 
     crystal = load_crystal(args)
     symmetry = crystal_symmetry(crystal, symmetry_tolerance=args.symmetry_tolerance)

@@ -183,7 +183,7 @@ def _run_cycle(args):
     elif args.repulsion:
         raise InputError("cycle: --repulsion needs --structure FILE for the model lattice energy")
     if kapustinskii is None:
-        from ..elements import shannon_radius
+        from ..structure.elements import shannon_radius
         from ..analysis.lattice_energy import kapustinskii_energy
 
         (m, zm, a), (x, zx, b) = cycle.cation, cycle.anion

@@ -11,7 +11,7 @@ from .text import parse_charge_rules
 
 def load_crystal(args):
     """The crystal named on the command line, with its charges, in the cell asked for."""
-    from ..symmetry import standard_cell
+    from ..structure.symmetry import standard_cell
 
     _structure_defaults(args)
     return standard_cell(_load_charged(args), args.cell, symmetry_tolerance=args.symmetry_tolerance)

@@ -6,17 +6,18 @@ import argparse
 
 import numpy as np
 
-from ..crystal import DEFAULT_MAX_ATOMS
+from ..structure.crystal import DEFAULT_MAX_ATOMS
+from ..defaults import MIN_DISTANCE, SCREENING_TOL, SUM_TOL
 from ..report.files import check_outputs
-from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE
+from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE
 
 #: Defaults of the shared options, one place. ``--tol``: relative accuracy of the sums; ``charges``,
 #: ``screen``, ``map`` and ``interstitials`` use the looser COARSE_TOL (they sum many candidates,
 #: structures or grid points, and need far less to rank or draw them), every other command DEFAULT_TOL.
-DEFAULT_TOL = 1e-10
-COARSE_TOL = 1e-8
+DEFAULT_TOL = SUM_TOL
+COARSE_TOL = SCREENING_TOL
 #: ``--min-distance``: ions closer than this (Å) are refused.
-DEFAULT_MIN_DISTANCE = 0.5
+DEFAULT_MIN_DISTANCE = MIN_DISTANCE
 CHARGES_FROM = ("file", "auto", "equilibrate")
 
 

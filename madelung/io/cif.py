@@ -30,7 +30,7 @@ from ase.data import chemical_symbols
 from ase.io.cif import parse_cif
 from scipy.spatial import cKDTree
 
-from ..crystal import ion_text
+from ..structure.crystal import ion_text
 from ..errors import InputError, MadelungWarning
 
 #: Rows (and symmetry images) closer than this, Å, are one site.

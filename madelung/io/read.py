@@ -34,13 +34,13 @@ from typing import Mapping
 import ase.io
 import numpy as np
 
-from ..bounds import precheck_file
+from ..structure.bounds import precheck_file
 from ..charges import EquilibrationResult, assign_oxidation_states, equilibrate
 from ..charges.oxidation import OxidationAssignment
-from ..crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size,
+from ..structure.crystal import (CHARGE_SOURCES, DEFAULT_MAX_ATOMS, DEFAULT_MIN_DISTANCE, Crystal, check_size,
                        default_labels, use_loader)
 from ..errors import InputError, MadelungWarning
-from ..symmetry import DEFAULT_SYMMETRY_TOLERANCE
+from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE
 from .cif import SiteTable, block_sites, choose_block, cif_block_count, cif_blocks
 
 #: A file's net charge up to this fraction of sum |q| is taken as rounding of its occupancies

@@ -2,5 +2,5 @@
 
 Import what you need from its modules (``madelung.sums.plan``, ``.direct``, ``.mesh``,
 ``.matrix``, ``.geometry``, ``.shortrange``); the package imports nothing itself, so the
-structure checks (``madelung.bounds``) can use the geometry without loading the engines.
+structure checks (``madelung.structure.bounds``) can use the geometry without loading the engines.
 """

@@ -26,6 +26,7 @@ from .geometry import thread_budget
 from ..units import COULOMB_CONSTANT
 from ._kernels import kernels
 from . import plan as plan_module
+from ..defaults import SUM_TOL
 
 @dataclass(frozen=True)
 class EwaldParameters:
@@ -242,7 +243,7 @@ def run_direct(crystal, plan, forces=False, stress=False) -> EwaldResult:
         background=bool(background), n_atoms=len(charges), seconds=time.perf_counter() - started, plan=plan)
 
 
-def ewald_direct(crystal, tol=1e-10, forces=False, stress=False, alpha=None, d_min=None) -> EwaldResult:
+def ewald_direct(crystal, tol=SUM_TOL, forces=False, stress=False, alpha=None, d_min=None) -> EwaldResult:
     """Ewald sum with cutoffs chosen for relative energy error ``tol`` (the direct engine).
 
     See :func:`madelung.ewald` for the parameters.

@@ -1,13 +1,14 @@
 """The one entry point of the Ewald sum: plan once, then run the engine the plan chose."""
 
-from ..crystal import Crystal
+from ..structure.crystal import Crystal
 from ..errors import InputError
 from .direct import run_direct
 from .mesh import run_mesh
 from .plan import plan_for
+from ..defaults import SUM_TOL
 
 
-def ewald(crystal, tol=1e-10, forces=False, stress=False, alpha=None, method="auto"):
+def ewald(crystal, tol=SUM_TOL, forces=False, stress=False, alpha=None, method="auto"):
     """Electrostatic energy, site potentials and optionally forces and stress of a crystal.
 
     Parameters

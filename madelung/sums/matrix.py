@@ -25,12 +25,13 @@ from ..units import COULOMB_CONSTANT
 from ._kernels import kernels
 from .plan import plan_sum
 from .tuning import ChargeSums
+from ..defaults import SUM_TOL
 
 #: Largest number of sites for which a full N x N Coulomb matrix is built.
 MAX_MATRIX_SITES = 600
 
 
-def potentials_for_charge_sets(cell, positions, charge_sets, tol=1e-10, d_min=None):
+def potentials_for_charge_sets(cell, positions, charge_sets, tol=SUM_TOL, d_min=None):
     """Ewald site potentials (V) of several charge sets on the same sites.
 
     Parameters
@@ -95,7 +96,7 @@ def screened_pairs(cell, positions, types, alpha_by_type, r_cut):
     return out
 
 
-def coulomb_matrix(cell, positions, tol=1e-10, d_min=None):
+def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None):
     """The periodic Coulomb interaction matrix of point charges, V per e.
 
     Parameters

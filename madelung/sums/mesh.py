@@ -59,6 +59,7 @@ from . import tuning
 from . import plan as plan_module
 from .direct import EwaldResult, assemble, params_of, real_space_part, symmetric, warn_if_charged
 from .tuning import ChargeSums
+from ..defaults import SUM_TOL
 
 #: The subsample check runs when its predicted time is below this share of the predicted sum;
 #: it compares CHECK_SAMPLE ions. Otherwise the proxy-cell check runs with PROXY_IONS ions.
@@ -286,7 +287,7 @@ def _refined(shape, excess, order):
     return tuple(int(scipy.fft.next_fast_len(int(math.ceil(k * grow)), real=True)) for k in shape)
 
 
-def ewald_mesh(crystal, tol=1e-10, forces=False, stress=False, alpha=None, mesh=None, order=None,
+def ewald_mesh(crystal, tol=SUM_TOL, forces=False, stress=False, alpha=None, mesh=None, order=None,
                check="auto", d_min=None) -> EwaldResult:
     """Smooth particle-mesh Ewald sum with parameters chosen for relative energy error ``tol``.
 

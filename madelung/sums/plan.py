@@ -26,7 +26,7 @@ from functools import cached_property
 
 import numpy as np
 
-from ..bounds import check_mesh
+from ..structure.bounds import check_mesh
 from ..errors import InputError
 from .geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT

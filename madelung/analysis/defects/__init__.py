@@ -26,7 +26,7 @@ from .interstitials import (DEFAULT_PROBE_RADIUS, InterstitialSearch, Interstiti
                             find_interstitials, ion_radii)
 from .points import ON_ION_DISTANCE, PointPotentials, potential_at
 from .ranking import VacancyRanking, VacancyRow, vacancy_ranking
-from .supercells import Supercell, tile_supercell, near_cubic_matrix, parse_supercell
+from ...structure.supercells import Supercell, tile_supercell, near_cubic_matrix, parse_supercell
 
 __all__ = ["ChargedCellCorrection", "CorrectionSeries", "charged_cell_correction", "correction_series",
            "dielectric_tensor", "read_dielectric_tensor", "DefectResult", "DefectSeries", "DefectSite",

@@ -17,13 +17,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...crystal import Crystal
+from ...structure.crystal import Crystal
 from ...errors import InputError
 from ...sums._kernels import point_kernels
 from ...sums.geometry import plane_spacings, reduced_basis
 from ...sums.plan import plan_sum, reciprocal_vectors
 from ...units import COULOMB_CONSTANT
-from .supercells import Supercell
+from ...structure.supercells import Supercell
+from ...defaults import SUM_TOL
 
 @dataclass(frozen=True)
 class ChargedCellCorrection:
@@ -109,7 +110,7 @@ def read_dielectric_tensor(path):
     return dielectric_tensor(numbers, source=path)
 
 
-def charged_cell_correction(cell, charge, dielectric=1.0, *, tol=1e-10) -> ChargedCellCorrection:
+def charged_cell_correction(cell, charge, dielectric=1.0, *, tol=SUM_TOL) -> ChargedCellCorrection:
     """Image correction of a point charge in a periodic cell with a scalar or tensor dielectric constant.
 
     Parameters
@@ -235,7 +236,7 @@ class CorrectionSeries:
     spread: float
 
 
-def correction_series(cell, charge, dielectric=1.0, repeats=(1, 2, 3, 4), *, tol=1e-10) -> CorrectionSeries:
+def correction_series(cell, charge, dielectric=1.0, repeats=(1, 2, 3, 4), *, tol=SUM_TOL) -> CorrectionSeries:
     """:func:`charged_cell_correction` for the cells n x ``cell`` (n in ``repeats``), with the 1/L fit.
 
     References

@@ -42,8 +42,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...crystal import Crystal
-from ...elements import common_oxidation_states, is_element
+from ...structure.crystal import Crystal
+from ...structure.elements import common_oxidation_states, is_element
 from ...errors import InputError, MadelungWarning
 from ...sums.dispatch import ewald
 from ...sums.geometry import wrapped_fractional
@@ -51,7 +51,8 @@ from ...sums.plan import NEUTRAL_TOLERANCE
 from .corrections import _series_repeats, charged_cell_correction
 from .interstitials import _distances_to_ions, _periodic_distance
 from .points import _where, ON_ION_DISTANCE, potential_at
-from .supercells import tile_supercell, Supercell
+from ...structure.supercells import tile_supercell, Supercell
+from ...defaults import SUM_TOL
 
 @dataclass(frozen=True)
 class DefectSite:
@@ -214,7 +215,7 @@ def _species_charge(element, charge, crystal, what):
 
 
 def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), supercell=None, smallest_plane_spacing=None,
-                  tol=1e-10, neighbour_radius=3.5, dielectric=None) -> DefectResult:
+                  tol=SUM_TOL, neighbour_radius=3.5, dielectric=None) -> DefectResult:
     """Unrelaxed electrostatic energy of point defects in a supercell, and the change of the site
     potentials round them.
 

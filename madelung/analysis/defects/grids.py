@@ -8,11 +8,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...crystal import Crystal
+from ...structure.crystal import Crystal
 from ...errors import InputError
 from ...sums.direct import EwaldParameters
 from ...sums.geometry import plane_spacings, wrapped_fractional
 from .points import _as_points, _PointSum, potential_at
+from ...defaults import SCREENING_TOL
 
 @dataclass(frozen=True)
 class PotentialGrid:
@@ -70,7 +71,7 @@ def grid_fractional(shape):
     return np.stack([f0.ravel(), f1.ravel(), f2.ravel()], axis=1)
 
 
-def potential_grid(crystal, spacing=0.2, *, shape=None, smearing=0.3, tol=1e-8, alpha=None, chunk=200000):
+def potential_grid(crystal, spacing=0.2, *, shape=None, smearing=0.3, tol=SCREENING_TOL, alpha=None, chunk=200000):
     """The potential of a crystal on a regular grid over its cell.
 
     Parameters
@@ -202,7 +203,7 @@ def _in_plane_vectors(cell, miller):
     raise InputError(f"cannot find two lattice vectors in the plane {miller}")
 
 
-def plane_section(crystal, plane="001", offset=0.5, *, spacing=0.1, smearing=0.3, tol=1e-8, thickness=0.5):
+def plane_section(crystal, plane="001", offset=0.5, *, spacing=0.1, smearing=0.3, tol=SCREENING_TOL, thickness=0.5):
     """The potential on the lattice plane h f1 + k f2 + l f3 = offset, sampled on a mesh of
     step ``spacing`` Å over the parallelogram of its two shortest in-plane lattice vectors."""
     miller = parse_miller(plane) if not isinstance(plane, tuple) else plane

@@ -9,12 +9,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...elements import shannon_radius
+from ...structure.elements import shannon_radius
 from ...errors import InputError
 from ...sums._kernels import point_kernels
 from ...sums.geometry import build_bins, EXAMINED_PAIR_NS, thread_budget, wrapped_fractional
 from .grids import grid_fractional, grid_shape
 from .points import _point_bins, _PointSum, _where
+from ...defaults import SCREENING_TOL, SYMMETRY_TOLERANCE
 
 #: Born–Mayer contact term of the interstitial probe: E = b exp((R_ion + R_probe - d) / rho).
 #: b = 0.338e-19 J = 0.211 eV and rho = 0.33 Å are the Tosi–Fumi values for the alkali halides
@@ -70,7 +71,7 @@ def _symmetry_operations(crystal, symmetry_tolerance):
     return np.asarray(data["rotations"]), np.asarray(data["translations"])
 
 
-def equivalent_sites(crystal, symmetry_tolerance=1e-3):
+def equivalent_sites(crystal, symmetry_tolerance=SYMMETRY_TOLERANCE):
     """For each ion, the index of the first ion symmetry-equivalent to it (spglib)."""
     import spglib
 
@@ -248,7 +249,7 @@ def _refine(energy, minima, shape, cell, positions, radii, probe_radius, clearan
 
 
 def find_interstitials(crystal, probe=1.0, *, spacing=0.2, probe_radius=DEFAULT_PROBE_RADIUS, radii=None,
-                       clearance=0.75, tol=1e-8, symmetry_tolerance=1e-3, merge_distance=0.25, box=0.6):
+                       clearance=0.75, tol=SCREENING_TOL, symmetry_tolerance=SYMMETRY_TOLERANCE, merge_distance=0.25, box=0.6):
     """Candidate interstitial positions of a probe charge.
 
     The probe's energy is its charge times the crystal's potential plus a Born–Mayer contact

@@ -14,13 +14,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...crystal import Crystal
+from ...structure.crystal import Crystal
 from ...errors import InputError, MadelungWarning
 from ...sums._kernels import kernels, point_kernels
 from ...sums.direct import EwaldParameters
 from ...sums.geometry import EXAMINED_PAIR_NS, plane_spacings, thread_budget, wrapped_fractional
 from ...sums.plan import plan_for
 from ...units import COULOMB_CONSTANT
+from ...defaults import SUM_TOL
 
 #: A point nearer than this to an ion (Å) sits on it.
 ON_ION_DISTANCE = 1e-4
@@ -78,7 +79,7 @@ def _point_bins(bins, points):
 class _PointSum:
     """The Ewald sum of one crystal prepared once (bins, structure factors) for many point queries."""
 
-    def __init__(self, crystal, tol=1e-10, smearing=0.0, alpha=None, warn=True):
+    def __init__(self, crystal, tol=SUM_TOL, smearing=0.0, alpha=None, warn=True):
         if not isinstance(crystal, Crystal):
             raise InputError(f"a madelung.Crystal is needed, got {type(crystal).__name__}")
         smearing = float(smearing)
@@ -226,7 +227,7 @@ def _as_points(points, name="points"):
     return np.ascontiguousarray(array)
 
 
-def potential_at(crystal, points, *, tol=1e-10, field=False, exclude=None, smearing=0.0, alpha=None):
+def potential_at(crystal, points, *, tol=SUM_TOL, field=False, exclude=None, smearing=0.0, alpha=None):
     """Electrostatic potential (and optionally field) of a periodic crystal at any Cartesian points.
 
     Parameters

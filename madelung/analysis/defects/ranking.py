@@ -12,7 +12,8 @@ from ...sums.dispatch import ewald
 from .energies import defect_energy
 from .interstitials import equivalent_sites
 from .points import _where
-from .supercells import tile_supercell, Supercell
+from ...structure.supercells import tile_supercell, Supercell
+from ...defaults import SUM_TOL, SYMMETRY_TOLERANCE
 
 @dataclass(frozen=True)
 class VacancyRow:
@@ -44,7 +45,7 @@ class VacancyRanking:
     error_estimate: float
 
 
-def vacancy_ranking(crystal, species="anions", *, supercell=None, smallest_plane_spacing=None, tol=1e-10, symmetry_tolerance=1e-3):
+def vacancy_ranking(crystal, species="anions", *, supercell=None, smallest_plane_spacing=None, tol=SUM_TOL, symmetry_tolerance=SYMMETRY_TOLERANCE):
     """Rank the symmetry-inequivalent sites of a species by vacancy electrostatics.
 
     Parameters

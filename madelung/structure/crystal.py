@@ -17,16 +17,17 @@ from typing import Mapping
 import numpy as np
 
 from .bounds import COINCIDENT_DISTANCE, check_cell, check_charges
-from .errors import InputError
+from ..defaults import MAX_ATOMS, MIN_DISTANCE
+from ..errors import InputError
 
 #: Ions closer than this (Å) are refused as overlapping unless told otherwise.
-DEFAULT_MIN_DISTANCE = 0.5
+DEFAULT_MIN_DISTANCE = MIN_DISTANCE
 
 #: Structure files with more sites than this are refused before any sum is attempted (memory and
 #: time grow with the number of sites); raise it with ``max_atoms=`` or ``--max-atoms``. The
 #: engines handle a million ions; crystals built in Python from arrays or ``ase.Atoms`` have no
 #: limit unless one is given.
-DEFAULT_MAX_ATOMS = 2_000_000
+DEFAULT_MAX_ATOMS = MAX_ATOMS
 
 #: Largest site charge (e) a crystal accepts: far above any ion, small enough that sums of
 #: squares over millions of sites stay finite.
@@ -300,12 +301,12 @@ class Crystal:
     def nearest_distances(self):
         """Shortest distance from every ion to any other ion (images included) and to any ion of
         opposite charge sign (``inf`` where there is none). Returns ``(to_any, to_opposite, partner)``."""
-        from .sums.geometry import nearest_neighbour_distances
+        from ..sums.geometry import nearest_neighbour_distances
 
         return nearest_neighbour_distances(self.cell, self.positions, self.charges)
 
     def _check_overlaps(self):
-        from .sums.geometry import closest_pair_within
+        from ..sums.geometry import closest_pair_within
 
         limit = max(self.min_distance, COINCIDENT_DISTANCE)   # coincident ions: always refused
         pair = closest_pair_within(self.cell, self.positions, limit)

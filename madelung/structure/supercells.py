@@ -8,9 +8,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ...crystal import Crystal
-from ...errors import InputError
-from ...sums.geometry import plane_spacings
+from .crystal import Crystal
+from ..errors import InputError
+from .lattice import plane_spacings
 
 @dataclass(frozen=True)
 class Supercell:

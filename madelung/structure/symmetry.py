@@ -20,12 +20,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import InputError
+from ..defaults import SYMMETRY_TOLERANCE
+from ..errors import InputError
 
 #: Default tolerance for symmetry search, Å: loose enough for experimental CIFs whose
 #: coordinates are printed to four decimals (0.0001 of a 10 Å axis is 0.001 Å, and
 #: refined structures are rarely symmetric to better than about 0.01 Å).
-DEFAULT_SYMMETRY_TOLERANCE = 1e-2
+DEFAULT_SYMMETRY_TOLERANCE = SYMMETRY_TOLERANCE
 
 #: Origin shifts tried when naming Wyckoff letters (see :func:`analyse`).
 _ORIGIN_SHIFTS = ((0, 0, 0), (0.5, 0.5, 0.5), (0.25, 0.25, 0.25), (0.75, 0.75, 0.75),

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-from .errors import InputError
+from ..errors import InputError
 
 
 @lru_cache(maxsize=None)

@@ -19,8 +19,8 @@ import re
 
 import numpy as np
 
-from .errors import InputError
-from .sums.geometry import plane_spacings, reduced_basis
+from ..errors import InputError
+from .lattice import plane_spacings, reduced_basis
 
 #: Longest lattice vector accepted, Å (a micrometre; real periodic models stay far below).
 MAX_CELL_LENGTH = 1.0e4
