@@ -205,48 +205,100 @@ def cutoffs_for(alpha, real_target, recip_target, sums, volume, k_e):
     return np.maximum(x / alpha, r_min), np.maximum(2.0 * alpha * y, k_min)
 
 
+def _direct_cost_coefficients(n_atoms, volume):
+    """``(real, reciprocal, fixed)`` with the predicted direct cost ``real r_c^3 + reciprocal k_c^3 + fixed`` (ns)."""
+    density = n_atoms / volume
+    real = REAL_PAIR_COST * n_atoms * (4.0 / 3.0) * math.pi * density
+    reciprocal = RECIPROCAL_TERM_COST * n_atoms * (4.0 / 3.0) * math.pi * volume / (16.0 * math.pi ** 3)
+    return real, reciprocal, STENCIL_COST * STENCIL_BINS * n_atoms
+
+
 def direct_cost_ns(r_cut, k_cut, n_atoms, volume):
     """Predicted cost of one energy + potentials + forces evaluation, ns of one thread."""
-    density = n_atoms / volume
-    real_pairs = n_atoms * (4.0 / 3.0) * math.pi * np.asarray(r_cut) ** 3 * density
-    k_vectors = (4.0 / 3.0) * math.pi * np.asarray(k_cut) ** 3 * volume / (16.0 * math.pi ** 3)
-    return (REAL_PAIR_COST * real_pairs + STENCIL_COST * STENCIL_BINS * n_atoms
-            + RECIPROCAL_TERM_COST * n_atoms * k_vectors)
+    real, reciprocal, fixed = _direct_cost_coefficients(n_atoms, volume)
+    return real * np.asarray(r_cut) ** 3 + reciprocal * np.asarray(k_cut) ** 3 + fixed
 
 
-_COARSE_ALPHAS = np.geomspace(0.1, 10.0, 21)
-_FINE_ALPHAS = np.geomspace(0.8, 1.25, 11)
+def _tail_root(level, power=1.5):
+    """Scalar :func:`_solve_gaussian_tail`: x >= 1 with x^2 + power ln x = level, by Newton."""
+    if level <= 1.0:
+        return 1.0
+    x = math.sqrt(max(level - 0.5 * power * math.log(level), 1.0))   # ln x ~ ln(level) / 2
+    for _ in range(12):
+        step = (x * x + power * math.log(x) - level) / (2.0 * x + power / x)
+        x = max(x - step, 1.0)
+        if abs(step) < 1e-11 * x:
+            break
+    return x
 
 
 def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
     """Splitting parameter and cutoffs of the direct sum for an energy error ``target`` (eV).
 
-    The error shares are half the target each, times :data:`SAFETY`. Without a given ``alpha``
-    the predicted cost is minimised over alpha: a coarse logarithmic scan and one refinement
-    around the best, each cutoff a closed-form Newton solve (no bisection).
+    The error shares are half the target each, times :data:`SAFETY`. With x = alpha r_c and
+    y = k_c / (2 alpha) from the Newton solves of the error estimates (module notes), the cost
+    ``c_r (x / alpha)^3 + c_k (2 alpha y)^3`` is least where ``d cost / d ln alpha = 0``::
+
+        alpha^6 = c_r x^3 (1 + e_x) / (8 c_k y^3 (1 - e_y)),   e_z = 1 / (2 (2 z^2 + 1.5))
+
+        (e_z = -d ln z / d ln alpha, small since z depends on alpha only through ln alpha),
+
+    solved by fixed-point iteration (a few steps: the right side hardly depends on alpha). The
+    smallest cutoffs (MIN_REAL_NEIGHBOURS, MIN_K_VECTORS) put kinks into the cost; where one
+    binds at that alpha, the optimum lies at the alpha where it starts to bind, also found by
+    one more Newton solve, and the cheapest of the (up to) three is taken. All of it scalar
+    arithmetic: no scan over alpha.
 
     References
     ----------
     A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351.
     """
     share = 0.5 * target * SAFETY
+    density = sums.n_atoms / volume
+    r_min = (3.0 * MIN_REAL_NEIGHBOURS / (4.0 * math.pi * density)) ** (1.0 / 3.0)
+    k_min = (MIN_K_VECTORS * 12.0 * math.pi ** 2 / volume) ** (1.0 / 3.0)
+    real_level = math.log(_real_prefactor(sums, volume, k_e) / share)
+    recip_level = math.log(_recip_prefactor(sums, volume, k_e) / share)
+    c_real, c_recip, fixed = _direct_cost_coefficients(sums.n_atoms, volume)
 
-    def evaluate(alphas):
-        r_cut, k_cut = cutoffs_for(alphas, share, share, sums, volume, k_e)
-        return r_cut, k_cut, direct_cost_ns(r_cut, k_cut, sums.n_atoms, volume)
+    def x_of(a):
+        return _tail_root(real_level - 0.5 * math.log(a))
+
+    def y_of(a):
+        return _tail_root(recip_level - 0.5 * math.log(a))
+
+    def cutoffs(a):
+        return max(x_of(a) / a, r_min), max(2.0 * a * y_of(a), k_min)
+
+    def stationary(a):
+        x, y = x_of(a), y_of(a)
+        e_x, e_y = 0.5 / (2.0 * x * x + 1.5), 0.5 / (2.0 * y * y + 1.5)
+        return (c_real * x ** 3 * (1.0 + e_x) / (8.0 * c_recip * y ** 3 * (1.0 - e_y))) ** (1.0 / 6.0)
 
     if alpha is not None:
-        alphas = np.array([alpha])
+        candidates = [float(alpha)]
     else:
-        centre = math.sqrt(math.pi) * (sums.n_atoms / volume ** 2) ** (1.0 / 6.0)
-        alphas = centre * _COARSE_ALPHAS
-        r_cut, k_cut, cost = evaluate(alphas)
-        alphas = alphas[int(np.argmin(cost))] * _FINE_ALPHAS
-    r_cut, k_cut, cost = evaluate(alphas)
-    best = int(np.argmin(cost))
-    a, r, k = float(alphas[best]), float(r_cut[best]), float(k_cut[best])
+        best = math.sqrt(math.pi) * (sums.n_atoms / volume ** 2) ** (1.0 / 6.0)
+        for _ in range(50):
+            best, previous = stationary(best), best
+            if abs(best - previous) <= 1e-9 * previous:
+                break
+        candidates = [best]
+        # where a smallest cutoff binds, the alpha at which it starts to: x / alpha = r_min gives
+        # x^2 + 2 ln x = level_r + ln(r_min) / 2, and 2 alpha y = k_min gives y^2 + ln y = level_k - ln(k_min / 2) / 2
+        if x_of(best) / best < r_min:
+            candidates.append(_tail_root(real_level + 0.5 * math.log(r_min), 2.0) / r_min)
+        if 2.0 * best * y_of(best) < k_min:
+            candidates.append(0.5 * k_min / _tail_root(recip_level - 0.5 * math.log(0.5 * k_min), 1.0))
+    best = None
+    for a in candidates:
+        r, k = cutoffs(a)
+        cost = c_real * r ** 3 + c_recip * k ** 3 + fixed
+        if best is None or cost < best[3]:
+            best = (a, r, k, cost)
+    a, r, k, cost = best
     return DirectChoice(a, r, k, float(real_space_error(a, r, sums, volume, k_e)) / SAFETY,
-                        float(reciprocal_space_error(a, k, sums, volume, k_e)) / SAFETY, float(cost[best]))
+                        float(reciprocal_space_error(a, k, sums, volume, k_e)) / SAFETY, float(cost))
 
 
 def mesh_error(alpha, steps, order, sums, k_e):
