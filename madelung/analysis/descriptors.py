@@ -74,7 +74,7 @@ import numpy as np
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 from ..structure.crystal import Crystal
-from ..sums.matrix import coulomb_matrix, MAX_MATRIX_SITES
+from ..sums.matrix import blas_budget, coulomb_matrix, site_plan, MAX_MATRIX_SITES
 from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from .madelung_constants import madelung_constants
 from ..defaults import SCREENING_TOL, SPECTRUM_LENGTH
@@ -113,19 +113,20 @@ def column_types(length=SPECTRUM_LENGTH) -> dict:
 COLUMNS = tuple(column_types())
 
 
-def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None):
-    """The Ewald sum matrix ``X[i, j] = q_i q_j J[i, j]`` (eV) defined in the module docstring.
+def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None):
+    """The Ewald sum matrix ``X[i, j] = q_i q_j J[i, j]`` (eV) defined in the module docstring
+    (``plan``: the crystal's :func:`madelung.sums.matrix.site_plan`, if made already).
 
     References
     ----------
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
     q = np.asarray(crystal.charges, dtype=float)
-    coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min)
+    coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min, plan=plan)
     return q[:, None] * coulomb * q[None, :]
 
 
-def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None):
+def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None, plan=None):
     """Eigenvalues of :func:`ewald_sum_matrix` sorted by decreasing magnitude, zero-padded to ``length``.
 
     Returns ``(values, note)``: ``note`` is ``""``, says that the spectrum was truncated to the
@@ -137,7 +138,9 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_
     if n > MAX_MATRIX_SITES:
         out[:] = np.nan
         return out, f"not computed: {n} sites, more than the Coulomb-matrix limit of {MAX_MATRIX_SITES}"
-    values = np.linalg.eigvalsh(ewald_sum_matrix(crystal, tol=tol, d_min=d_min))
+    matrix = ewald_sum_matrix(crystal, tol=tol, d_min=d_min, plan=plan)
+    with blas_budget(float(n) ** 3):
+        values = np.linalg.eigvalsh(matrix)
     # decreasing magnitude; ties (degenerate pairs +x, -x) broken by sign so the order is unique
     values = values[np.lexsort((-values, -np.abs(np.round(values, 10))))]
     kept = min(n, length)
@@ -194,11 +197,15 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
     found = find_polyatomic_ions(crystal)
     if found.found:
         crystal = centred_crystal(crystal, found)
-    constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms")
+    n = len(crystal)
+    # one plan of the sites, tuned for unit charges on every site: the Coulomb matrix of the
+    # spectrum needs it, and it is at least as accurate for the crystal's own charges, so the
+    # energy and the Madelung constants run on it too (bins and k-vectors built once)
+    plan = site_plan(crystal.cell, crystal.positions, tol=tol) if spectrum_length and n <= MAX_MATRIX_SITES else None
+    constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan)
     result = constants.ewald
     q = np.asarray(crystal.charges, dtype=float)
     phi = np.asarray(result.potentials)
-    n = len(crystal)
     z = constants.formula_units
     row = {
         "n_atoms": n, "formula": crystal.formula, "reduced_formula": crystal.reduced_formula, "formula_units": z,
@@ -229,7 +236,7 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
     if spectrum_length:
         # the shortest distance, known from the sum's energy scale k_e sum(q^2) / d_min
         d_min = COULOMB_CONSTANT * float(np.dot(q, q)) / result.energy_scale
-        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol, d_min=d_min)
+        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol, d_min=d_min, plan=plan)
         row.update(zip(spectrum_columns(spectrum_length), (float(v) for v in values)))
     else:
         note = "not computed: spectrum length 0"

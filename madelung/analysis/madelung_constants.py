@@ -44,6 +44,7 @@ from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from ..errors import InputError
 from ..sums.geometry import neighbour_pairs
 from ..units import COULOMB_CONSTANT
+from ..sums.direct import run_direct
 from ..sums.dispatch import ewald
 from ..defaults import SUM_TOL
 
@@ -55,11 +56,13 @@ CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
 FIRST_SHELL_FACTOR = 1.2
 
 
-def mean_first_shell_distance(crystal) -> float:
-    """Mean cation–anion distance over every cation's first shell of anions, Å."""
+def mean_first_shell_distance(crystal, to_opposite=None) -> float:
+    """Mean cation–anion distance over every cation's first shell of anions, Å (``to_opposite``:
+    each ion's nearest distance to an ion of opposite sign, if known; see ``Crystal.nearest_distances``)."""
     charges = np.asarray(crystal.charges)
     cations = np.flatnonzero(charges > 0)
-    _, to_opposite, _ = crystal.nearest_distances()
+    if to_opposite is None:
+        _, to_opposite, _ = crystal.nearest_distances()
     reach = FIRST_SHELL_FACTOR * float(np.max(to_opposite[cations])) * (1 + 1e-9)
     owner, partner, distance = neighbour_pairs(crystal.cell, crystal.positions, reach, sites=cations)
     anion = charges[partner] < 0
@@ -157,7 +160,7 @@ def _common_factor(charges):
 
 
 def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
-                       polyatomic_ions="centre") -> MadelungConstants:
+                       polyatomic_ions="centre", plan=None) -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 
     Parameters
@@ -171,6 +174,11 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     ewald_result : EwaldResult, optional
         The sum of this very crystal if it has been done already (it is not done again; the
         crystal is then taken as given, without looking for polyatomic ions).
+    plan : SumPlan, optional
+        A direct-sum plan of these very sites made already (e.g. for the Coulomb matrix,
+        :func:`madelung.sums.matrix.site_plan`): the sum reuses its layout when that meets ``tol``
+        for these charges (:meth:`~madelung.sums.plan.SumPlan.with_charges`), else plans anew.
+        The crystal is then taken as given, as with ``ewald_result``.
     polyatomic_ions : {"centre", "atoms"}
         "centre" (default, as the command line): covalently bonded polyatomic ions (carbonate,
         sulfate, hydroxide, ammonium, ...; :mod:`madelung.charges.polyatomic`) count as one charge
@@ -189,7 +197,7 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     if polyatomic_ions not in ("centre", "atoms"):
         raise InputError(f"polyatomic_ions must be 'centre' or 'atoms', got {polyatomic_ions!r}")
     ions = ""
-    if polyatomic_ions == "centre" and ewald_result is None:
+    if polyatomic_ions == "centre" and ewald_result is None and plan is None:
         found = find_polyatomic_ions(crystal)
         if found.found:
             crystal, ions = centred_crystal(crystal, found), found.summary()
@@ -197,7 +205,13 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     where = f"{crystal.source}: " if crystal.source else ""
     if not (np.any(charges > 0) and np.any(charges < 0)):
         raise InputError(f"{where}a Madelung constant needs both cations and anions")
-    result = ewald(crystal, tol=tol, method=method) if ewald_result is None else ewald_result
+    result = ewald_result
+    if result is None and plan is not None:
+        charged = plan.with_charges(charges)
+        if charged.tol <= tol and charged.error_estimate <= charged.target:
+            result = run_direct(crystal, charged)
+    if result is None:
+        result = ewald(crystal, tol=tol, method=method)
     if result.background:
         raise InputError(f"{where}the cell carries a net charge of {result.net_charge:+.6g} e; "
                          "Madelung constants are defined for neutral crystals")
@@ -239,7 +253,7 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     with np.errstate(divide="ignore", invalid="ignore"):
         site = np.where(charges != 0, -result.potentials * r0 / (k_e * charges), np.nan)
     error = result.error_estimate / z * r0 / k_e
-    r0_mean = mean_first_shell_distance(crystal)
+    r0_mean = mean_first_shell_distance(crystal, to_opposite)
     return MadelungConstants(
         polyatomic_ions=ions, r0_mean_first_shell=r0_mean, charges_left_in_mean_first_shell=m_in * r0_mean / r0,
         handbook_mean_first_shell=None if handbook is None else handbook * r0_mean / r0,

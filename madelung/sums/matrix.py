@@ -16,8 +16,10 @@ N^2 and N times the number of k-vectors, so we refuse more than :data:`MAX_MATRI
 from __future__ import annotations
 
 import math
+from contextlib import contextmanager
 
 import numpy as np
+from threadpoolctl import ThreadpoolController
 
 from ..errors import InputError
 from .geometry import neighbour_pairs, thread_budget
@@ -29,6 +31,27 @@ from ..defaults import SUM_TOL
 
 #: Largest number of sites for which a full N x N Coulomb matrix is built.
 MAX_MATRIX_SITES = 600
+
+#: Matrix products and eigenvalue problems below this many multiply-adds run on one BLAS thread.
+#: OpenBLAS splits a 40 x 1150 x 40 product over its threads; on a machine shared with other work
+#: the sleeping threads wake late and the product takes 10-60 ms instead of 0.2 ms
+#: (benchmarks/per_call.py measured it: the Coulomb matrix of a 40-ion cell, median 14 ms on two
+#: threads against 1.8 ms on one).
+SERIAL_BLAS_BELOW_FLOPS = 5e7
+
+_BLAS = []
+
+
+@contextmanager
+def blas_budget(flops):
+    """Run the BLAS/LAPACK calls inside on one thread when they are small (``flops`` multiply-adds)."""
+    if flops >= SERIAL_BLAS_BELOW_FLOPS:
+        yield
+        return
+    if not _BLAS:   # finding the loaded BLAS libraries takes ~0.5 ms: once per process
+        _BLAS.append(ThreadpoolController().select(user_api="blas"))
+    with _BLAS[0].limit(limits=1):
+        yield
 
 
 def potentials_for_charge_sets(cell, positions, charge_sets, tol=SUM_TOL, d_min=None):
@@ -91,12 +114,19 @@ def screened_pairs(cell, positions, types, alpha_by_type, r_cut):
                                                np.ascontiguousarray(positions, dtype=np.float64), r_cut)
     types = np.asarray(types, dtype=np.int64)
     alpha = np.asarray(alpha_by_type, dtype=np.float64)[types[owner], types[partner]]
-    out = np.zeros((n, n))
-    np.add.at(out, (owner, partner), erfc(alpha * distance) / distance)
-    return out
+    return np.bincount(owner * n + partner, weights=erfc(alpha * distance) / distance, minlength=n * n).reshape(n, n)
 
 
-def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None):
+def site_plan(cell, positions, tol=SUM_TOL, d_min=None):
+    """The direct-sum plan of the sites for unit charges on every site: the one the Coulomb matrix
+    runs with (its :meth:`~madelung.sums.plan.SumPlan.with_charges` serves any charges on these
+    sites at least as accurately, see there)."""
+    n = len(positions)
+    return plan_sum(cell, positions, sums=ChargeSums(n, float(n), float(n), float(n)), tol=tol, method="direct",
+                    d_min=d_min)
+
+
+def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     """The periodic Coulomb interaction matrix of point charges, V per e.
 
     Parameters
@@ -104,6 +134,7 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None):
     cell, positions : lattice vectors (rows) and Cartesian positions, Å.
     tol : accuracy as for :func:`potentials_for_charge_sets` (for unit charges on every site).
     d_min : shortest interionic distance, Å (computed if not given).
+    plan : the :func:`site_plan` of these sites, if made already (``tol`` and ``d_min`` are then its own).
 
     Returns
     -------
@@ -125,14 +156,17 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None):
     n = len(positions)
     if n > MAX_MATRIX_SITES:
         raise InputError(f"a full Coulomb matrix of {n} sites is more than the limit of {MAX_MATRIX_SITES}")
-    plan = plan_sum(cell, positions, sums=ChargeSums(n, float(n), float(n), float(n)), tol=tol, method="direct",
-                    d_min=d_min)
+    if plan is None:
+        plan = site_plan(cell, positions, tol=tol, d_min=d_min)
+    elif plan.method != "direct" or plan.n_atoms != n:
+        raise ValueError(f"the Coulomb matrix of {n} sites needs a direct-sum plan of those sites")
     a = plan.alpha
     real = screened_pairs(plan.cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), plan.real_cutoff)
     ks = plan.kspace
     phase = positions @ ks.kvectors.T                    # (N, M)
-    cos, sin = np.cos(phase), np.sin(phase)
-    recip = (cos * ks.weights) @ cos.T + (sin * ks.weights) @ sin.T
+    waves = np.concatenate([np.cos(phase), np.sin(phase)], axis=1)
+    with blas_budget(2.0 * n * n * len(ks.weights)):
+        recip = (waves * np.concatenate([ks.weights, ks.weights])) @ waves.T
     matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (plan.volume * a * a)
     matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
     return matrix

@@ -21,7 +21,7 @@ basis_change @ user_cell``) records the relation.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 
 import numpy as np
@@ -46,6 +46,54 @@ AUTO_DIRECT_BELOW_SECONDS = 0.015
 #: Share of the target first set aside for rounding (see :func:`plan_sum`).
 ROUNDING_SHARE = 1e-3
 
+#: Recent direct-sum plans of small cells, by everything they were built from: the same sums
+#: asked again (a crystal's energy, then its Madelung constants, its descriptors; a calculator
+#: asked for energy and forces) reuse the plan with its bins and k-vectors instead of searching,
+#: tuning and tabulating again. Larger cells spend their time in the sums, not in the plan.
+_PLANS = {}
+_PLANS_KEEP = 16
+PLAN_REUSE_MAX_ATOMS = 2048
+
+
+#: Half-space boxes of Miller indices by their extent (a plan's k-vectors for any cell of that
+#: extent are a subset); kept for the most recent extents up to a size.
+_HALF_BOXES = {}
+_HALF_BOXES_KEEP = 16
+_HALF_BOX_MAX_ENTRIES = 200_000
+
+
+def _half_space_box(hmax):
+    """``(hkl int64, hkl float64)``: the Miller indices with |h_a| <= hmax_a, of each pair h, -h the
+    one whose first non-zero index is positive, in a fixed order."""
+    key = (int(hmax[0]), int(hmax[1]), int(hmax[2]))
+    found = _HALF_BOXES.get(key)
+    if found is not None:
+        return found
+    h, k, l = np.meshgrid(np.arange(0, key[0] + 1), np.arange(-key[1], key[1] + 1),
+                          np.arange(-key[2], key[2] + 1), indexing="ij")
+    hkl = np.stack([h.ravel(), k.ravel(), l.ravel()], axis=1)
+    half = (hkl[:, 0] > 0) | ((hkl[:, 0] == 0) & ((hkl[:, 1] > 0) | ((hkl[:, 1] == 0) & (hkl[:, 2] > 0))))
+    hkl = np.ascontiguousarray(hkl[half].astype(np.int64))
+    found = (hkl, hkl.astype(np.float64))
+    for array in found:
+        array.setflags(write=False)
+    if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
+        if len(_HALF_BOXES) >= _HALF_BOXES_KEEP:
+            _HALF_BOXES.pop(next(iter(_HALF_BOXES)))
+        _HALF_BOXES[key] = found
+    return found
+
+
+def _reciprocal_table(cell, k_cut):
+    """``(hkl, k, hmax, k^2)`` of :func:`reciprocal_vectors`, with the squared lengths (1/Å^2)."""
+    recip = 2.0 * math.pi * np.linalg.inv(cell).T  # rows b_i with a_i . b_j = 2 pi delta_ij
+    hmax = np.floor(k_cut * np.sqrt(np.einsum("ij,ij->i", cell, cell)) / (2.0 * math.pi)).astype(np.int64)
+    hkl, box = _half_space_box(hmax)
+    kv = box @ recip
+    k2 = np.einsum("ij,ij->i", kv, kv)
+    keep = k2 <= k_cut * k_cut
+    return np.ascontiguousarray(hkl[keep]), np.ascontiguousarray(kv[keep]), hmax, np.ascontiguousarray(k2[keep])
+
 
 def reciprocal_vectors(cell, k_cut):
     """Half-space reciprocal vectors with 0 < |k| <= k_cut.
@@ -53,16 +101,8 @@ def reciprocal_vectors(cell, k_cut):
     Returns ``(hkl (M, 3) int64, k (M, 3) 1/Å, hmax (3,) int64)``; of each pair k, -k only the
     one with the first non-zero Miller index positive is kept.
     """
-    recip = 2.0 * math.pi * np.linalg.inv(cell).T  # rows b_i with a_i . b_j = 2 pi delta_ij
-    hmax = np.floor(k_cut * np.linalg.norm(cell, axis=1) / (2.0 * math.pi)).astype(np.int64)
-    h, k, l = np.meshgrid(np.arange(0, hmax[0] + 1), np.arange(-hmax[1], hmax[1] + 1),
-                          np.arange(-hmax[2], hmax[2] + 1), indexing="ij")
-    hkl = np.stack([h.ravel(), k.ravel(), l.ravel()], axis=1)
-    half = (hkl[:, 0] > 0) | ((hkl[:, 0] == 0) & ((hkl[:, 1] > 0) | ((hkl[:, 1] == 0) & (hkl[:, 2] > 0))))
-    hkl = hkl[half]
-    kv = hkl @ recip
-    hkl = np.ascontiguousarray(hkl[np.einsum("ij,ij->i", kv, kv) <= k_cut * k_cut].astype(np.int64))
-    return hkl, np.ascontiguousarray(hkl @ recip), hmax
+    hkl, kv, hmax, _ = _reciprocal_table(np.asarray(cell, dtype=np.float64), k_cut)
+    return hkl, kv, hmax
 
 
 @dataclass(frozen=True)
@@ -145,8 +185,7 @@ class SumPlan:
     @cached_property
     def kspace(self) -> KSpace:
         """Reciprocal vectors within the direct sum's cutoff and their weights (built once)."""
-        hkl, kvectors, hmax = reciprocal_vectors(self.cell, self.reciprocal_cutoff)
-        k2 = np.einsum("ij,ij->i", kvectors, kvectors)
+        hkl, kvectors, hmax, k2 = _reciprocal_table(self.cell, self.reciprocal_cutoff)
         weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / self.volume)
                                        * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
         return KSpace(hkl, kvectors, hmax, k2, weights)
@@ -154,6 +193,41 @@ class SumPlan:
     @property
     def predicted_ns(self) -> float:
         return 1e9 * self.predicted_seconds[self.method]
+
+    def with_charges(self, charges) -> "SumPlan":
+        """This direct-sum layout (splitting parameter, cutoffs, bins, k-vectors, built once and
+        shared) for other charges on the same sites, with their energy scale, background and
+        error estimates (Kolafa–Perram, as in :func:`madelung.sums.tuning.choose_direct`).
+
+        The layout was tuned for ``self.sums``; it holds the contract for the new charges when
+        ``error_estimate <= target`` of the returned plan. A layout tuned for unit charges on every
+        site (the Coulomb matrix) always does for a neutral set: both error estimates over the
+        target scale as mean|q| / q_rms <= 1 relative to unit charges.
+
+        References
+        ----------
+        A. Kolafa and J. W. Perram, Mol. Simul. 9 (1992) 351.
+        """
+        if self.method != "direct":
+            raise ValueError("only a direct-sum plan can be reused for other charges")
+        sums = ChargeSums.of(charges)
+        if sums.n_atoms != self.n_atoms or sums.square_sum <= 0:
+            raise InputError(f"{sums.n_atoms} charges (not all zero) are needed for the {self.n_atoms} sites of the plan")
+        k_e = COULOMB_CONSTANT
+        scale = k_e * sums.square_sum / self.d_min
+        safety = tuning.SAFETY
+        plan = replace(
+            self, sums=sums, energy_scale=scale,
+            background=bool(abs(sums.net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(sums.square_sum))),
+            real_error=float(tuning.real_space_error(self.alpha, self.real_cutoff, sums, self.volume, k_e)) / safety,
+            reciprocal_error=float(tuning.reciprocal_space_error(self.alpha, self.reciprocal_cutoff, sums,
+                                                                 self.volume, k_e)) / safety,
+            rounding_error=float(tuning.rounding_error(scale, _terms_per_ion(self, sums, self.volume, "direct"))),
+            predicted_seconds=dict(self.predicted_seconds), extra=dict(self.extra))
+        for name in ("bins", "kspace"):   # built once, for the sites; the charges do not enter
+            if name in self.__dict__:
+                plan.__dict__[name] = self.__dict__[name]
+        return plan
 
     def to_dict(self) -> dict:
         return {"method": self.method, "chosen_by": self.chosen_by, "tol": self.tol,
@@ -232,6 +306,33 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     if sums is None:
         sums = ChargeSums.of(charges)
+    key = None
+    if mesh is None and order is None and len(positions) <= PLAN_REUSE_MAX_ATOMS:
+        key = (user_cell.tobytes(), positions.shape, positions.tobytes(), sums, tol, method, alpha,
+               None if d_min is None else float(d_min))
+        found = _PLANS.get(key)
+        if found is not None:
+            return found
+        user_cell, positions = _frozen_copy(user_cell), _frozen_copy(positions)
+    plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min)
+    if key is not None and plan.method == "direct":
+        if len(_PLANS) >= _PLANS_KEEP:
+            _PLANS.pop(next(iter(_PLANS)))
+        _PLANS[key] = plan
+    return plan
+
+
+def _frozen_copy(array):
+    """The array itself if it cannot change, else a read-only copy (a kept plan must not follow
+    later edits of the caller's array)."""
+    if array.flags.writeable:
+        array = array.copy()
+        array.setflags(write=False)
+    return array
+
+
+def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min) -> SumPlan:
+    """:func:`plan_sum` once its arguments are checked: reduce, search, tune, estimate."""
     if sums.square_sum <= 0:
         raise InputError("all charges are zero; there is no electrostatic energy to compute")
     reduced, change = reduced_basis(user_cell)
