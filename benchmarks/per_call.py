@@ -1,24 +1,41 @@
 """Per-call time of small cells: madelung.ewald and madelung.describe against the NumPy baseline.
 
-Energy, potentials and forces at tol 1e-8, one thread, best CPU time of many calls (the sums
-of small cells are dominated by what happens around the kernels: planning, bins, k-vectors).
-The baseline is the vectorised NumPy/SciPy Ewald sum of benchmarks/baseline_numpy.py, measured
-in the same run; both results are checked against each other.
+Energy, potentials and forces at tol 1e-8, one thread (Numba and BLAS), best CPU time of many
+calls. The sums of small cells are dominated by what happens around the kernels (planning, bins,
+k-vectors), and a plan is kept for the same cell, positions and charges asked again, so two
+times are given for ours: the same crystal again (the plan reused) and a new crystal each call
+(the same cell with its ions moved by ~0.01 Å: everything planned anew, as in a relaxation or a
+screening run). The baseline is the vectorised NumPy/SciPy Ewald sum of
+benchmarks/baseline_numpy.py, measured in the same run; both results are checked against each
+other. A second table splits one call on a new crystal into its stages, a third gives
+describe, and the last the 4096-ion rattled rock salt with the default method (where the time
+goes: the plan, and the engine's own functions by CPU time).
 
-    python benchmarks/per_call.py
+    python benchmarks/per_call.py                 # about a minute on a quiet machine
+    python benchmarks/per_call.py --no-large      # small cells only
 """
 
+import argparse
+import cProfile
 import os
+import pstats
 import sys
+import time
 
 import numba
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 sys.path.insert(0, ".")
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import madelung  # noqa: E402
+from madelung.sums.direct import run_direct  # noqa: E402
+from madelung.sums.geometry import shortest_distance  # noqa: E402
+from madelung.sums.plan import plan_for  # noqa: E402
 from baseline_numpy import numpy_ewald  # noqa: E402
-from common import STRUCTURES, best_cpu, print_table  # noqa: E402
+from common import STRUCTURES, best_cpu, print_table, rattled_rock_salt  # noqa: E402
+
+TOL = 1e-8
 
 
 def cases():
@@ -30,23 +47,119 @@ def cases():
             "SrTiO3 2x2x2 (40 ions)": perovskite}
 
 
-def main():
-    numba.set_num_threads(1)
-    rows = []
+def moved_copies(crystal, count, seed=0, displacement=0.01):
+    """``count`` copies of the crystal with every ion moved at random (Å): new plans each time."""
+    rng = np.random.default_rng(seed)
+    return [crystal.replace(positions=crystal.positions + rng.normal(0.0, displacement, crystal.positions.shape))
+            for _ in range(count)]
+
+
+def best_over(function, crystals):
+    """Best CPU time (s) of ``function(crystal)`` over the crystals, one call each."""
+    best = np.inf
+    for crystal in crystals:
+        started = time.process_time()
+        function(crystal)
+        best = min(best, time.process_time() - started)
+    return best
+
+
+def stages(crystals):
+    """Best CPU time (s) of each stage of one call on a new crystal (each stage's best over the crystals)."""
+    best = {"shortest distance": np.inf, "tuning, rest of plan": np.inf, "bins": np.inf, "k-vectors": np.inf,
+            "sums (kernels, assembly)": np.inf}
+    clock = time.process_time
+    for crystal in crystals:
+        t0 = clock()
+        d_min = shortest_distance(crystal.cell, crystal.positions)
+        t1 = clock()
+        plan = plan_for(crystal, TOL, d_min=d_min)
+        t2 = clock()
+        plan.bins
+        t3 = clock()
+        plan.kspace
+        t4 = clock()
+        run_direct(crystal, plan, forces=True)
+        t5 = clock()
+        for name, seconds in zip(best, (t1 - t0, t2 - t1, t3 - t2, t4 - t3, t5 - t4)):
+            best[name] = min(best[name], seconds)
+    return best
+
+
+def small_cells():
+    rows, stage_rows, describe_rows = [], [], []
     for name, crystal in cases().items():
-        ours = madelung.ewald(crystal, tol=1e-8, forces=True)
-        base = numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=1e-8, forces=True)
-        energy = base[0] if isinstance(base, tuple) else base["energy"]
-        agree = abs(ours.energy - energy) / ours.energy_scale
-        t_ours, _ = best_cpu(lambda: madelung.ewald(crystal, tol=1e-8, forces=True), repeat=30)
-        t_base, _ = best_cpu(lambda: numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=1e-8,
-                                              forces=True), repeat=10)
+        ours = madelung.ewald(crystal, tol=TOL, forces=True)
+        base = numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=TOL, forces=True)
+        agree = abs(ours.energy - base["energy"]) / ours.energy_scale
+        moved = moved_copies(crystal, 200)
+        t_same, _ = best_cpu(lambda: madelung.ewald(crystal, tol=TOL, forces=True), repeat=200)
+        t_new = best_over(lambda c: madelung.ewald(c, tol=TOL, forces=True), moved)
+        t_base, _ = best_cpu(lambda: numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=TOL,
+                                                 forces=True), repeat=20)
+        rows.append([name, ours.params.k_vectors, f"{1e3 * t_same:.3f}", f"{1e3 * t_new:.3f}", f"{1e3 * t_base:.3f}",
+                     f"{t_base / t_same:.1f}x", f"{t_base / t_new:.1f}x", f"{agree:.1e}"])
+        split = stages(moved_copies(crystal, 200, seed=1))
+        stage_rows.append([name] + [f"{1e6 * s:.0f}" for s in split.values()] + [f"{1e6 * sum(split.values()):.0f}"])
         madelung.describe(crystal)
-        t_describe, _ = best_cpu(lambda: madelung.describe(crystal), repeat=10)
-        rows.append([name, f"{1e3 * t_ours:.3f}", f"{1e3 * t_base:.3f}", f"{t_base / t_ours:.1f}x",
-                     f"{1e3 * t_describe:.2f}", f"{t_base / t_describe:.2f}x", f"{agree:.1e}"])
-    print_table(["case", "ewald ms", "NumPy ms", "speed-up", "describe ms", "NumPy/describe", "|dE|/E_scale"],
-                rows, title="per call, one thread, CPU time, tol 1e-8, with forces")
+        d_same, _ = best_cpu(lambda: madelung.describe(crystal), repeat=30)
+        d_new = best_over(madelung.describe, moved_copies(crystal, 30, seed=2))
+        describe_rows.append([name, f"{1e3 * d_same:.2f}", f"{1e3 * d_new:.2f}", f"{1e3 * t_base:.3f}",
+                              f"{t_base / d_new:.2f}x"])
+    print_table(["case", "k-vectors", "ours same ms", "ours new ms", "NumPy ms", "NumPy/same", "NumPy/new",
+                 "|dE|/E_scale"], rows,
+                title=f"madelung.ewald per call, one thread, CPU time, tol {TOL:g}, energy + potentials + forces "
+                      "(same: the same crystal again; new: ions moved, planned anew)")
+    print()
+    print_table(["case"] + list(split) + ["sum"], stage_rows,
+                title="one call on a new crystal by stage, µs of CPU (each the best of 200 new crystals)")
+    print()
+    print_table(["case", "describe same ms", "describe new ms", "NumPy energy ms", "NumPy/describe new"],
+                describe_rows, title="madelung.describe per structure (energy, Madelung constants, site "
+                                     "potentials, Coulomb-matrix spectrum) against the baseline's bare energy")
+
+
+def large_cell():
+    crystal = rattled_rock_salt(8)
+    n = len(crystal)
+    result = madelung.ewald(crystal, tol=TOL, forces=True)
+    t_ours, result = best_cpu(lambda: madelung.ewald(crystal, tol=TOL, forces=True), repeat=3)
+    t_plan, plan = best_cpu(lambda: plan_for(crystal, TOL), repeat=3)
+    started = time.process_time()
+    base = numpy_ewald(crystal.cell, crystal.positions, crystal.charges, tol=TOL, forces=True)
+    t_base = time.process_time() - started
+    reference = madelung.ewald(crystal, tol=1e-12, method="direct").energy
+    print_table(["case", "method ran", "ours s", "plan s", "NumPy s", "NumPy/ours", "ours |dE|/E_scale",
+                 "NumPy |dE|/E_scale"],
+                [[f"rattled rock salt ({n} ions)", result.params.method, f"{t_ours:.4f}", f"{t_plan:.4f}",
+                  f"{t_base:.3f}", f"{t_base / t_ours:.1f}x",
+                  f"{abs(result.energy - reference) / result.energy_scale:.1e}",
+                  f"{abs(base['energy'] - reference) / result.energy_scale:.1e}"]],
+                title=f"default method, one thread, CPU time, tol {TOL:g}, energy + potentials + forces "
+                      "(reference: the direct engine at tol 1e-12)")
+    profile = cProfile.Profile()
+    profile.enable()
+    madelung.ewald(crystal, tol=TOL, forces=True)
+    profile.disable()
+    stats = pstats.Stats(profile).stats
+    top = sorted(((tottime, func) for func, (_, _, tottime, _, _) in stats.items()), reverse=True)[:8]
+    total = sum(tottime for _, _, tottime, _, _ in stats.values())
+    print()
+    print_table(["function (own time)", "ms", "share"],
+                [[f"{os.path.basename(f[0])}:{f[2]}", f"{1e3 * t:.1f}", f"{100 * t / total:.0f} %"] for t, f in top],
+                title=f"where one call of {n} ions spends its time (cProfile, {1e3 * total:.1f} ms in all)")
+
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--no-large", action="store_true", help="leave out the 4096-ion case")
+    args = parser.parse_args()
+    numba.set_num_threads(1)
+    with threadpool_limits(1):
+        small_cells()
+        if not args.no_large:
+            print()
+            large_cell()
 
 
 if __name__ == "__main__":

@@ -147,8 +147,9 @@ class MadelungConstants:
 
 def _common_factor(charges):
     """Highest common factor Z of the charges (a rational value), or None if there is none."""
-    values = [Fraction(float(abs(q))).limit_denominator(1000) for q in charges if q != 0]
-    if not values or any(abs(float(v) - abs(q)) > 1e-9 for v, q in zip(values, [q for q in charges if q != 0])):
+    magnitudes = [float(q) for q in np.unique(np.abs(np.asarray(charges, dtype=float))) if q != 0]
+    values = [Fraction(q).limit_denominator(1000) for q in magnitudes]   # each distinct charge once
+    if not values or any(abs(float(v) - q) > 1e-9 for v, q in zip(values, magnitudes)):
         return None
     numerator = 0
     denominator = 1

@@ -334,7 +334,7 @@ def mesh_steps(lengths, shape):
 def mesh_cost_ns(r_cut, shape, order, n_atoms, volume):
     """Predicted cost of one mesh evaluation with forces, ns of one thread: the real-space part as
     in the direct engine, two B-spline passes over order^3 points per ion, two FFTs, the mesh work."""
-    points = float(np.prod(shape))
+    points = float(math.prod(shape))
     return (direct_cost_ns(r_cut, 0.0, n_atoms, volume)
             + SPLINE_POINT_NS * 2.0 * n_atoms * order ** 3
             + FFT_POINT_LOG_NS * 2.0 * points * math.log2(max(points, 2.0))
