@@ -51,15 +51,25 @@ ROUNDING_SHARE = 1e-3
 #: asked for energy and forces) reuse the plan with its bins and k-vectors instead of searching,
 #: tuning and tabulating again. Larger cells spend their time in the sums, not in the plan.
 _PLANS = {}
-_PLANS_KEEP = 16
-PLAN_REUSE_MAX_ATOMS = 2048
+_PLANS_KEEP = 8
+PLAN_REUSE_MAX_ATOMS = 600
+
+
+def _remember(store, keep, key, value):
+    """Put ``key: value`` into a small store, dropping the oldest entries beyond ``keep``."""
+    try:
+        while len(store) >= keep:
+            store.pop(next(iter(store)), None)
+    except (RuntimeError, StopIteration):   # another thread changed the store meanwhile: keep one more
+        pass
+    store[key] = value
 
 
 #: Half-space boxes of Miller indices by their extent (a plan's k-vectors for any cell of that
 #: extent are a subset); kept for the most recent extents up to a size.
 _HALF_BOXES = {}
-_HALF_BOXES_KEEP = 16
-_HALF_BOX_MAX_ENTRIES = 200_000
+_HALF_BOXES_KEEP = 8
+_HALF_BOX_MAX_ENTRIES = 50_000
 
 
 def _half_space_box(hmax):
@@ -78,9 +88,7 @@ def _half_space_box(hmax):
     for array in found:
         array.setflags(write=False)
     if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
-        if len(_HALF_BOXES) >= _HALF_BOXES_KEEP:
-            _HALF_BOXES.pop(next(iter(_HALF_BOXES)))
-        _HALF_BOXES[key] = found
+        _remember(_HALF_BOXES, _HALF_BOXES_KEEP, key, found)
     return found
 
 
@@ -316,9 +324,7 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
         user_cell, positions = _frozen_copy(user_cell), _frozen_copy(positions)
     plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min)
     if key is not None and plan.method == "direct":
-        if len(_PLANS) >= _PLANS_KEEP:
-            _PLANS.pop(next(iter(_PLANS)))
-        _PLANS[key] = plan
+        _remember(_PLANS, _PLANS_KEEP, key, plan)
     return plan
 
 
