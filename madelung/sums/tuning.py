@@ -247,7 +247,8 @@ def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
     smallest cutoffs (MIN_REAL_NEIGHBOURS, MIN_K_VECTORS) put kinks into the cost; where one
     binds at that alpha, the optimum lies at the alpha where it starts to bind, also found by
     one more Newton solve, and the cheapest of the (up to) three is taken. All of it scalar
-    arithmetic: no scan over alpha.
+    arithmetic: no scan over alpha. ``d_min`` does not enter (the plan keeps choices by the
+    other arguments).
 
     References
     ----------
