@@ -200,9 +200,13 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
     n = len(crystal)
     # one plan of the sites, tuned for unit charges on every site: the Coulomb matrix of the
     # spectrum needs it, and it is at least as accurate for the crystal's own charges, so the
-    # energy and the Madelung constants run on it too (bins and k-vectors built once)
-    plan = site_plan(crystal.cell, crystal.positions, tol=tol) if spectrum_length and n <= MAX_MATRIX_SITES else None
-    constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan)
+    # energy and the Madelung constants run on it too (bins and k-vectors built once); the
+    # nearest distances the constants need give the plan its shortest distance
+    nearest = crystal.nearest_distances()
+    plan = None
+    if spectrum_length and n <= MAX_MATRIX_SITES:
+        plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=float(np.min(nearest[0])))
+    constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan, nearest=nearest)
     result = constants.ewald
     q = np.asarray(crystal.charges, dtype=float)
     phi = np.asarray(result.potentials)

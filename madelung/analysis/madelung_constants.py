@@ -161,7 +161,7 @@ def _common_factor(charges):
 
 
 def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
-                       polyatomic_ions="centre", plan=None) -> MadelungConstants:
+                       polyatomic_ions="centre", plan=None, nearest=None) -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 
     Parameters
@@ -180,6 +180,8 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
         :func:`madelung.sums.matrix.site_plan`): the sum reuses its layout when that meets ``tol``
         for these charges (:meth:`~madelung.sums.plan.SumPlan.with_charges`), else plans anew.
         The crystal is then taken as given, as with ``ewald_result``.
+    nearest : tuple, optional
+        ``crystal.nearest_distances()`` of this very crystal, if found already.
     polyatomic_ions : {"centre", "atoms"}
         "centre" (default, as the command line): covalently bonded polyatomic ions (carbonate,
         sulfate, hydroxide, ammonium, ...; :mod:`madelung.charges.polyatomic`) count as one charge
@@ -216,7 +218,7 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     if result.background:
         raise InputError(f"{where}the cell carries a net charge of {result.net_charge:+.6g} e; "
                          "Madelung constants are defined for neutral crystals")
-    _, to_opposite, _ = crystal.nearest_distances()
+    _, to_opposite, _ = crystal.nearest_distances() if nearest is None else nearest
     r0 = float(np.min(to_opposite))
     k_e = COULOMB_CONSTANT
     z = crystal.formula_units

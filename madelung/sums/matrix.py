@@ -146,7 +146,8 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     Real space: :func:`screened_pairs` (pairs from the shared neighbour machinery) with the Ewald
     splitting parameter; reciprocal space:
     ``sum_k 2 w(k) cos(k . (r_i - r_j))`` from the same half-space k-vectors and weights as
-    the direct sum, as one matrix product of the phase factors.
+    the direct sum, as one matrix product ``X X^T`` of the weighted phase factors
+    ``sqrt(w) cos(k . r)``, ``sqrt(w) sin(k . r)`` (the weights are positive).
 
     References
     ----------
@@ -163,10 +164,15 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     a = plan.alpha
     real = screened_pairs(plan.cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), plan.real_cutoff)
     ks = plan.kspace
-    phase = positions @ ks.kvectors.T                    # (N, M)
-    waves = np.concatenate([np.cos(phase), np.sin(phase)], axis=1)
+    # sqrt(w(k)) exp(i k . r_j) for every site and k-vector, as products of one table of
+    # exp(2 pi i h f_a) per lattice direction (fewer exponentials than one per site and k-vector)
+    waves = np.sqrt(ks.weights).astype(complex)
+    for axis in range(3):
+        table = np.exp(2j * math.pi * np.outer(plan.frac[:, axis], np.arange(-ks.hmax[axis], ks.hmax[axis] + 1)))
+        waves = waves * table[:, ks.hkl[:, axis] + ks.hmax[axis]]
+    waves = np.concatenate([waves.real, waves.imag], axis=1)
     with blas_budget(2.0 * n * n * len(ks.weights)):
-        recip = (waves * np.concatenate([ks.weights, ks.weights])) @ waves.T
+        recip = waves @ waves.T     # sum_k w(k) cos(k . (r_i - r_j)), twice over the half space
     matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (plan.volume * a * a)
     matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
     return matrix
