@@ -9,6 +9,13 @@ reciprocal vectors with their weights. Every driver takes a plan: the direct and
 the Coulomb matrix, potentials at many charge sets and at arbitrary points, the dielectric-tensor
 correction. Nothing else tunes.
 
+Reuse. A plan depends on the cell, the positions, the charge sums and the options only, so the
+plans of small cells are kept by exactly those (the same crystal summed again reuses its plan,
+bins and k-vectors); the truncation target is rounded down to quarter-octave steps so that the
+same cell with its ions moved keeps its tuning and k-vector table; and a direct plan serves other
+charges on the same sites (:meth:`SumPlan.with_charges`, used by the descriptors for the energy,
+the Madelung constants and the Coulomb matrix of one structure).
+
 Reduced basis. The lattice is rewritten in its Niggli-reduced basis (spglib; Křivý & Gruber,
 Acta Cryst. A32 (1976) 297), made right-handed. A unimodular change of basis leaves the lattice,
 the Cartesian positions, and so every energy, potential, force and stress unchanged; in the
