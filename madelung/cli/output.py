@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import json
 import re
 import sys
 
 import numpy as np
 
-from ..errors import MadelungError
+from ..report.serialize import NonFiniteResult, write_json
 from ..units import EV_TO_KJ_PER_MOL
 
 
@@ -41,18 +40,8 @@ def _fmt(value, digits=6):
 
 
 def _print_json(data):
-    def default(obj):
-        if isinstance(obj, np.ndarray):
-            return obj.tolist()
-        if isinstance(obj, (np.floating, np.integer)):
-            return obj.item()
-        raise TypeError(type(obj).__name__)
-
-    try:
-        text = json.dumps(data, indent=2, default=default, allow_nan=False)
-    except ValueError:
-        raise NonFiniteResult("a result is not a finite number (NaN or infinity); nothing printed") from None
-    print(text)
+    """Print a command's result as JSON through the one serializer (:mod:`madelung.report.serialize`)."""
+    write_json(data)
 
 
 def _structure_lines(crystal):
@@ -189,10 +178,6 @@ def _volume_based_lines(vb, kapustinskii=True):
                      f"{radii}")
     lines += [f"      ({note})" for note in vb.notes]
     return lines
-
-
-class NonFiniteResult(MadelungError):
-    """A result came out NaN or infinite: our fault, reported as an internal error, never printed."""
 
 
 class _FiniteOutput:
