@@ -168,9 +168,9 @@ def screen_task(task, options):
             group, number = _space_group(crystal, options.symmetry_tolerance)
             t2 = time.perf_counter()
             charged = t2 - t1
-            result = describe(crystal, tol=options.tol, spectrum_length=options.spectrum_length,
-                              sites=options.sites)
-            descriptors, sites = result if options.sites else (result, [])
+            description = describe(crystal, tol=options.tol, spectrum_length=options.spectrum_length,
+                                   sites=options.sites)
+            descriptors, sites = description.to_dict(), [dict(site) for site in description.sites or ()]
             summed = time.perf_counter() - t2
             status = "ok"
         except InputError as exc:

@@ -187,7 +187,7 @@ def _run_constant(args):
     crystal, found = _ions_as_units(args, load_crystal(args))
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
     if args.json:
-        _print_json({"file": args.file, **c.as_dict(),
+        _print_json({"file": args.file, **c.to_dict(),
                      **({"polyatomic_ions": found.to_dict()} if found is not None else {})})
         return 0
     print(f"madelung constant  {args.file}")
@@ -235,7 +235,7 @@ def _constant_table(args, files):
         try:
             crystal, found = _ions_as_units(args, load_crystal(args))
             c = madelung_constants(crystal, tol=args.tol, method=args.method)
-            rows.append({"file": name, "status": "ok", **c.as_dict(),
+            rows.append({"file": name, "status": "ok", **c.to_dict(),
                          **({"polyatomic_ions": found.summary()} if found is not None else {})})
         except InputError as exc:
             rows.append({"file": name, "status": str(exc)})
