@@ -48,6 +48,7 @@ from dataclasses import dataclass
 
 from ..errors import InputError
 from ..units import EV_TO_KJ_PER_MOL
+from .lattice_energy import LATTICE_SIGN
 from ..structure.elements import common_oxidation_states, electron_affinity as library_affinity, ionisation_energies
 
 #: A model lattice energy this far below the cycle value (fraction) is flagged as covalent character.
@@ -78,6 +79,10 @@ class CycleStep:
     value: float
     source: str
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the step in words, its enthalpy kJ/mol, where the value came from."""
+        return {"step": self.text, "kJ_per_mol": self.value, "source": self.source}
+
 
 @dataclass(frozen=True)
 class BornHaberCycle:
@@ -106,6 +111,13 @@ class BornHaberCycle:
         difference = self.lattice_energy - float(model_lattice_energy)
         fraction = difference / self.lattice_energy
         return difference, fraction, bool(fraction > threshold)
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the compound, the steps, the cycle's lattice energy and the gas-phase electron
+        transfer (kJ/mol per formula unit) and the sign convention."""
+        return {"compound": self.compound, "steps": [step.to_dict() for step in self.steps],
+                "lattice_energy_kJ_per_mol": self.lattice_energy,
+                "electron_transfer_kJ_per_mol": self.electron_transfer, "sign_convention": LATTICE_SIGN}
 
 
 def _as_list(value, name):

@@ -124,13 +124,13 @@ def _run_equilibrate(args):
                   dielectric=args.dielectric, tol=args.tol, **_crystal_options(args))
     crystal, result = loaded.crystal, loaded.equilibration
     symmetry = crystal_symmetry(crystal, symmetry_tolerance=args.symmetry_tolerance, by_charge=False)
+    means, spreads = symmetry.orbit_means(result.charges)
     rows = []
-    for orbit in symmetry.orbits:
-        q = result.charges[list(orbit.sites)]
+    for orbit, mean, spread in zip(symmetry.orbits, means, spreads):
         i = orbit.representative
         rows.append({"label": crystal.labels[i], "species": crystal.species_label(i), "wyckoff": orbit.wyckoff,
                      "multiplicity": orbit.multiplicity, "sites_in_cell": len(orbit.sites),
-                     "charge_e": float(q.mean()), "charge_spread_e": float(np.ptp(q)),
+                     "charge_e": float(mean), "charge_spread_e": float(spread),
                      "electronegativity_eV": float(result.electronegativity[i]),
                      "hardness_eV": float(result.hardness[i])})
     if args.json:
