@@ -24,6 +24,11 @@ class Supercell:
         """Parent cells in the supercell."""
         return int(round(abs(np.linalg.det(self.matrix))))
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the repeats in words, the matrix, the parent cells, the ions and the volume Å^3."""
+        return {"supercell": self.describe(), "matrix": np.asarray(self.matrix).tolist(), "size": self.size,
+                "ions": len(self.crystal), "volume_angstrom3": self.crystal.volume}
+
     def describe(self) -> str:
         m = self.matrix
         if np.count_nonzero(m - np.diag(np.diag(m))) == 0:

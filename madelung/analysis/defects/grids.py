@@ -44,6 +44,16 @@ class PotentialGrid:
         """(n1*n2*n3, 3) fractional coordinates of the grid points, in the order of ``values.ravel()``."""
         return grid_fractional(self.shape)
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the grid's shape, cell Å, steps Å, smearing Å, the values V (nested n1 x n2 x n3),
+        their range and mean V, the sum's parameters and the error estimate V."""
+        values = np.asarray(self.values)
+        return {"grid_shape": list(self.shape), "cell_angstrom": np.asarray(self.cell).tolist(),
+                "grid_step_angstrom": np.asarray(self.spacing).tolist(), "smearing_angstrom": self.smearing,
+                "potential_min_V": float(values.min()), "potential_max_V": float(values.max()),
+                "potential_mean_V": float(values.mean()), "values_V": values.tolist(),
+                "parameters": self.params.to_dict(), "error_estimate_V": self.error_estimate}
+
     def cartesian_points(self):
         return self.fractional_points() @ self.cell
 
@@ -169,6 +179,16 @@ class PlaneSection:
     values: np.ndarray
     atoms: tuple
     smearing: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the plane (Miller indices, offset), its origin and in-plane vectors Å, the values
+        V (n_u x n_v) and their range, the ions in the plane (s, t, label, charge e, distance Å)."""
+        return {"plane": list(self.miller), "offset": self.offset, "origin_angstrom": np.asarray(self.origin).tolist(),
+                "u_angstrom": np.asarray(self.u).tolist(), "v_angstrom": np.asarray(self.v).tolist(),
+                "plane_min_V": float(np.min(self.values)), "plane_max_V": float(np.max(self.values)),
+                "values_V": np.asarray(self.values).tolist(), "smearing_angstrom": self.smearing,
+                "ions_in_plane": [{"label": label, "s": s, "t": t, "charge_e": q, "distance_angstrom": d}
+                                  for s, t, label, q, d in self.atoms]}
 
 
 def _miller_indices(plane):
