@@ -153,7 +153,7 @@ def test_refusals():
 
 def test_command_line_end_to_end(tmp_path, capsys):
     out = tmp_path / "li"
-    assert main(["orderings", LICOO2, "--supercell", (2, 2, 1), "--keep", "4", "--out", str(out), "--json"]) == 0
+    assert main(["orderings", LICOO2, "--supercell", "2x2x1", "--keep", "4", "--out", str(out), "--json"]) == 0
     report = json.loads(capsys.readouterr().out)
     assert report["method"] == "enumeration" and report["distinct_orderings_found"] == report[
         "distinct_orderings_burnside"]
@@ -169,7 +169,7 @@ def test_command_line_end_to_end(tmp_path, capsys):
         assert back.net_charge == pytest.approx(0, abs=1e-9)
         assert madelung.ewald(back).energy == pytest.approx(entry["energy_eV"], abs=1e-7)
     before = os.path.getmtime(report["files"]["cif"][0])
-    assert main(["orderings", LICOO2, "--supercell", (2, 2, 1), "--out", str(out)]) == 2
+    assert main(["orderings", LICOO2, "--supercell", "2x2x1", "--out", str(out)]) == 2
     assert "not empty" in capsys.readouterr().err
     assert os.path.getmtime(report["files"]["cif"][0]) == before
     assert main(["orderings", LICOO2, "--out", str(tmp_path / "odd")]) == 2
