@@ -8,6 +8,7 @@ import os
 
 import numpy as np
 
+from ..analysis.lattice_energy import pressure_from_stress
 from ..analysis.madelung_constants import CONVENTION_TEXT
 from ..errors import InputError
 from ..units import EV_TO_KJ_PER_MOL
@@ -32,7 +33,6 @@ def _add_energy(sub):
 
 
 def _run_energy(args):
-    from ..analysis.lattice_energy import pressure_from_stress
     from ..sums.dispatch import ewald
 
     crystal = load_crystal(args)

@@ -7,6 +7,7 @@ import os
 
 import numpy as np
 
+from ..analysis.lattice_energy import kapustinskii_of_ions
 from ..errors import InputError
 from ..report.files import cif_text
 from ..report.files import write_text
@@ -138,7 +139,6 @@ def _add_cycle(sub):
 
 
 def _run_cycle(args):
-    from ..analysis.lattice_energy import kapustinskii_of_ions
     from ..analysis.thermochemistry import born_haber_cycle, read_cycle_file
 
     data = read_cycle_file(args.input) if args.input else {}
