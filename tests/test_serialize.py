@@ -86,3 +86,26 @@ def test_orbit_means_average_symmetry_equivalent_sites():
         assert mean == pytest.approx(members.mean()) and spread < 1e-6   # equivalent sites, equal potentials
     with pytest.raises(madelung.InputError, match="one value per site"):
         symmetry.orbit_means(potentials[:-1])
+
+
+def test_candidate_plot_is_a_real_image(tmp_path):
+    """The demo's scatter plot decodes as a PNG of the figure's size with points drawn (the rows are
+    invented, as the demo's candidates are)."""
+    from matplotlib.image import imread
+
+    from madelung.report.plots import save_candidate_plot
+
+    rows = [{"prototype": p, "reduced_formula": f, "anion_potential_mean_V": phi, "energy_per_atom_eV": e}
+            for p, f, phi, e in (("perovskite", "SrTiO3", -20.1, -12.3), ("spinel", "MgAl2O4", -25.4, -14.0),
+                                 ("layered-rocksalt", "LiCoO2", -22.0, -10.8), ("perovskite", "KMgF3", -9.5, -4.1))]
+    path = tmp_path / "candidates.png"
+    save_candidate_plot(rows, str(path), ("perovskite", "spinel", "layered-rocksalt"),
+                        lambda formula: {"O"} if "O" in formula else {"F"})
+    image = imread(str(path))
+    # Figure(figsize=(7.5, 5.0), dpi=120) saved whole: 900 x 600 pixels, RGBA values in [0, 1]
+    assert image.shape[:2] == (600, 900) and image.shape[2] in (3, 4)
+    assert 0.0 <= image.min() and image.max() <= 1.0
+    assert len(np.unique(image[..., :3].reshape(-1, 3), axis=0)) > 20      # markers, text and grid drawn
+    # the spinel colour (#c4572b) of the scatter is present
+    spinel = np.array([0xc4, 0x57, 0x2b]) / 255
+    assert np.any(np.all(np.abs(image[..., :3] - spinel) < 2 / 255, axis=-1))

@@ -88,3 +88,24 @@ def test_supercell_cell_matches_the_tiling():
     assert np.allclose(spaced, tile_supercell(crystal, smallest_plane_spacing=7.0).crystal.cell)
     with pytest.raises(InputError, match="not both"):
         supercell_cell(crystal.cell, (2, 2, 2), 7.0)
+
+
+def test_correction_command_with_a_supercell_and_no_charge(capsys):
+    import json
+
+    from madelung.cli import main
+
+    # a 2x2x2 supercell of a 5 Å cube is a 10 Å cube: the image correction of q = 1 is
+    # alpha_M k_e / (2 L) with alpha_M = 2.8372974794806 (simple cubic, Makov & Payne 1995)
+    assert main(["correction", "--cell", "5", "--supercell", "2x2x2", "--charge", "1", "--series", "1,2",
+                 "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert np.allclose(data["cell_angstrom"], 10 * np.eye(3)) and data["volume_angstrom3"] == pytest.approx(1000)
+    assert data["effective_constant"] == pytest.approx(2.8372974794806, abs=1e-7)
+    assert [entry["repeat"] for entry in data["series"]] == [1, 2]
+    # no charge: no correction, and the effective constant is undefined (null), not a NaN crash
+    assert main(["correction", "--cell", "5", "--charge", "0", "--series", "1,2", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["correction_eV"] == 0 and data["effective_constant"] is None
+    assert main(["correction", "--cell", "5", "--supercell", "2x2", "--charge", "1"]) == 2
+    assert "supercell '2x2'" in capsys.readouterr().err
