@@ -85,6 +85,30 @@ class CycleStep:
 
 
 @dataclass(frozen=True)
+class CycleComparison:
+    """A model's lattice energy beside the Born–Haber cycle's (:meth:`BornHaberCycle.compare`).
+
+    Attributes
+    ----------
+    model : the model's lattice energy, kJ/mol (positive).
+    difference : cycle - model, kJ/mol.  fraction : difference / cycle value.
+    covalent_character : True when the model falls more than ``threshold`` (a fraction) below the
+        cycle: binding beyond point charges.
+    """
+
+    model: float
+    difference: float
+    fraction: float
+    covalent_character: bool
+    threshold: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready, kJ/mol per formula unit."""
+        return {"lattice_energy_kJ_per_mol": self.model, "cycle_minus_model_kJ_per_mol": self.difference,
+                "relative": self.fraction, "covalent_character": self.covalent_character}
+
+
+@dataclass(frozen=True)
 class BornHaberCycle:
     """A Born–Haber cycle.
 
@@ -105,12 +129,14 @@ class BornHaberCycle:
     lattice_energy: float
     electron_transfer: float
 
-    def compare(self, model_lattice_energy, threshold=COVALENT_THRESHOLD):
-        """Difference cycle - model (kJ/mol), its fraction of the cycle value, and whether it flags
-        covalent character (model more than ``threshold``, default 8 %, below the cycle)."""
-        difference = self.lattice_energy - float(model_lattice_energy)
+    def compare(self, model_lattice_energy, threshold=COVALENT_THRESHOLD) -> "CycleComparison":
+        """The cycle beside a model's lattice energy (kJ/mol): their difference, its fraction of the
+        cycle value, and whether it flags covalent character (model more than ``threshold``, default
+        8 %, below the cycle)."""
+        model = float(model_lattice_energy)
+        difference = self.lattice_energy - model
         fraction = difference / self.lattice_energy
-        return difference, fraction, bool(fraction > threshold)
+        return CycleComparison(model, difference, fraction, bool(fraction > threshold), float(threshold))
 
     def to_dict(self) -> dict:
         """JSON-ready: the compound, the steps, the cycle's lattice energy and the gas-phase electron

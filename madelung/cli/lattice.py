@@ -185,12 +185,9 @@ def _run_cycle(args):
     comparisons = {}
     for name, value in (("rigid-ion model", model), ("Kapustinskii", kapustinskii)):
         if value is not None:
-            comparisons[name] = (value, *cycle.compare(value, args.covalent_threshold))
+            comparisons[name] = cycle.compare(value, args.covalent_threshold)
     if args.json:
-        _print_json({**cycle.to_dict(),
-                     "comparisons": {k: {"lattice_energy_kJ_per_mol": v[0], "cycle_minus_model_kJ_per_mol": v[1],
-                                         "relative": v[2], "covalent_character": v[3]}
-                                     for k, v in comparisons.items()}})
+        _print_json({**cycle.to_dict(), "comparisons": comparisons})
         return 0
     print(f"madelung cycle  {cycle.compound}   (kJ/mol per formula unit)")
     for s in cycle.steps:
@@ -198,7 +195,8 @@ def _run_cycle(args):
     print(f"      {'':<66} {'-' * 11}")
     print(f"      {'cycle lattice energy (solid -> gaseous ions)':<66} {cycle.lattice_energy:+11.2f}")
     print(f"  gas-phase electron transfer alone (ionisation + attachment) {cycle.electron_transfer:+.2f} kJ/mol")
-    for name, (value, difference, fraction, covalent) in comparisons.items():
+    for name, c in comparisons.items():
+        value, difference, fraction, covalent = c.model, c.difference, c.fraction, c.covalent_character
         limit = 100 * args.covalent_threshold
         verdict = (f"cycle exceeds the ionic model by more than {limit:g} %: binding beyond point charges, "
                    "covalent character likely" if covalent else
