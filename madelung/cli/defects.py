@@ -183,8 +183,8 @@ def _run_defect(args):
     if repeats:
         from ..analysis.defects import defect_series
 
-        series = defect_series(crystal, repeats, supercell=supercell, smallest_plane_spacing=args.smallest_plane_spacing,
-                               **defects, tol=args.tol)
+        series = defect_series(crystal, repeats, supercell=supercell,
+                               smallest_plane_spacing=args.smallest_plane_spacing, **defects, tol=args.tol)
     sc = result.supercell
     background_text = result.compensation
     if args.json:

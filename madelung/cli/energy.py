@@ -15,7 +15,8 @@ from ..units import EV_TO_KJ_PER_MOL
 from .loading import _ions_as_units, _polyatomic_ions, load_crystal
 from .options import _common, _polyatomic_option
 from .output import (
-    MODEL_NOTE, RIGID_ION_NOTE, RULE_TEXT, _accuracy_lines, _batch_code, _ewald_json, _fmt, _lattice_lines, _print_json, _structure_lines, _volume_based, _volume_based_lines)
+    MODEL_NOTE, RIGID_ION_NOTE, RULE_TEXT, _accuracy_lines, _batch_code, _ewald_json, _fmt, _lattice_lines,
+    _print_json, _structure_lines, _volume_based, _volume_based_lines)
 
 
 def _add_energy(sub):

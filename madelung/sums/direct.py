@@ -56,7 +56,8 @@ class EwaldParameters:
         """JSON-ready: the engine, alpha 1/Å, cutoffs (Å, 1/Å), terms summed, and the engine's extras."""
         return {"method": self.method, "alpha_per_angstrom": self.alpha, "real_cutoff_angstrom": self.real_cutoff,
                 "reciprocal_cutoff_per_angstrom": self.reciprocal_cutoff, "real_space_pairs": self.real_space_pairs,
-                "k_vectors": self.k_vectors, **{k: list(v) if isinstance(v, tuple) else v for k, v in self.extra.items()}}
+                "k_vectors": self.k_vectors,
+                **{k: list(v) if isinstance(v, tuple) else v for k, v in self.extra.items()}}
 
 
 @dataclass(frozen=True)

@@ -126,7 +126,8 @@ class InterstitialSite:
 
     def to_dict(self) -> dict:
         """JSON-ready; position Å, potential V, energies eV, distance Å."""
-        return {"fractional": np.asarray(self.fractional).tolist(), "position_angstrom": np.asarray(self.position).tolist(),
+        return {"fractional": np.asarray(self.fractional).tolist(),
+                "position_angstrom": np.asarray(self.position).tolist(),
                 "potential_V": self.potential, "electrostatic_energy_eV": self.electrostatic_energy,
                 "contact_energy_eV": self.contact_energy, "total_energy_eV": self.total_energy,
                 "nearest_ion": self.nearest_label, "nearest_distance_angstrom": self.nearest_distance,
