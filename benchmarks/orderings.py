@@ -64,12 +64,12 @@ def cases():
     licoo2 = madelung.Crystal.from_file(os.path.join(DATA, "Li0.5CoO2_half_lithiated.cif"))
     spinel = madelung.Crystal.from_file(os.path.join(DATA, "MgAl2O4_half_inverse.cif"))
     return [
-        ("Li0.5CoO2 2x2x2", ordering_problem(licoo2, "2x2x2"), None, None),
+        ("Li0.5CoO2 2x2x2", ordering_problem(licoo2, (2, 2, 2)), None, None),
         ("MgAl2O4 x=0.5 1x1x1", ordering_problem(spinel, 1, ion_charges={"Mg": 2, "Al": 3}), None, None),
-        ("±1 sc 2x4x4", ordering_problem(simple_cubic(), "2x4x4", ion_charges=PLUS_MINUS), None, None),
-        ("±1 sc 4x4x4", ordering_problem(simple_cubic(), "4x4x4", ion_charges=PLUS_MINUS), 0, 200_000),
-        ("Mg0.9Li0.05Al0.05O 5x5x1", ordering_problem(doped_magnesia(), "5x5x1", ion_charges=DOPANTS), 0, 200_000),
-        ("Mg0.9Li0.05Al0.05O 5x5x1", ordering_problem(doped_magnesia(), "5x5x1", ion_charges=DOPANTS),
+        ("±1 sc 2x4x4", ordering_problem(simple_cubic(), (2, 4, 4), ion_charges=PLUS_MINUS), None, None),
+        ("±1 sc 4x4x4", ordering_problem(simple_cubic(), (4, 4, 4), ion_charges=PLUS_MINUS), 0, 200_000),
+        ("Mg0.9Li0.05Al0.05O 5x5x1", ordering_problem(doped_magnesia(), (5, 5, 1), ion_charges=DOPANTS), 0, 200_000),
+        ("Mg0.9Li0.05Al0.05O 5x5x1", ordering_problem(doped_magnesia(), (5, 5, 1), ion_charges=DOPANTS),
          MID_WALK, 2_000_000),
     ]
 
@@ -107,7 +107,7 @@ def recompute_rate(problem, candidates=10, seed=0):
 
 def main():
     # warm the kernels (Numba cache) outside the timings
-    warm = ordering_problem(simple_cubic(), "2x2x2", ion_charges=PLUS_MINUS)
+    warm = ordering_problem(simple_cubic(), (2, 2, 2), ion_charges=PLUS_MINUS)
     run_enumeration(warm)
     run_search(warm, restarts=1, sweeps=1)
     madelung.ewald(warm.crystal_of(warm.first_ordering()))

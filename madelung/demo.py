@@ -54,8 +54,10 @@ class DemoResult:
     sites: str
     plot: str
 
-    def as_dict(self):
-        return {"summary": self.summary.as_dict(), "ranked": self.ranked, "table": self.table, "sites": self.sites,
+    def to_dict(self):
+        """JSON-ready: the run's summary, the ranked rows (descriptor columns, units in their names)
+        and the paths of the table, the site table and the plot."""
+        return {"summary": self.summary.to_dict(), "ranked": self.ranked, "table": self.table, "sites": self.sites,
                 "plot": self.plot}
 
     def report(self):

@@ -16,3 +16,10 @@ class InputError(MadelungError, ValueError):
 
 class MadelungWarning(UserWarning):
     """Warnings about model choices the user should know of (net charge, averaged sites)."""
+
+
+def one_line(exc) -> str:
+    """The message of an exception (or warning) on one line, whitespace runs folded; its type
+    name when it has no message. Status columns, progress lines and error lines use it."""
+    text = " ".join(str(exc).split())
+    return text or type(exc).__name__

@@ -107,7 +107,7 @@ def test_vacancy_energy_is_minus_q_phi_plus_the_background_term():
     # Derived in madelung.analysis.defects: removing ion v (charge q) from a supercell changes the energy
     # by -q phi_v + E_point(q), E_point the Ewald energy of a lone charge q with its background.
     crystal = _load("rocksalt-MgO.cif")
-    result = defect_energy(crystal, vacancy=["O1"], supercell="2x2x2", tol=1e-12)
+    result = defect_energy(crystal, vacancy=["O1"], supercell=(2, 2, 2), tol=1e-12)
     sc = result.supercell.crystal
     q = -2.0
     phi = madelung.ewald(sc, tol=1e-12).potentials[result.defects[0].index]
@@ -126,7 +126,7 @@ def test_vacancy_energy_is_minus_q_phi_plus_the_background_term():
 def test_symmetric_sites_give_identical_numbers():
     crystal = _load("spinel-MgAl2O4.cif")
     a = defect_energy(crystal, vacancy=["O1"], tol=1e-11, neighbour_radius=2.5)
-    b = defect_energy(crystal, vacancy=["O1@0.74,0.74,0.74"], tol=1e-11, neighbour_radius=2.5)
+    b = defect_energy(crystal, vacancy=[("O1", (0.74, 0.74, 0.74))], tol=1e-11, neighbour_radius=2.5)
     assert a.defects[0].index != b.defects[0].index
     assert b.energy_change == pytest.approx(a.energy_change, abs=1e-8)
     assert b.defects[0].potential == pytest.approx(a.defects[0].potential, abs=1e-9)
@@ -137,7 +137,7 @@ def test_neighbour_potential_change_is_the_defect_charge_potential():
     # Delta phi_j at a remaining site is the potential there of the periodic defect charge
     # (Dq = -q at the vacancy, with its background): superposition, derived.
     crystal = _load("rocksalt-MgO.cif")
-    result = defect_energy(crystal, vacancy=["Mg1"], supercell="2x2x2", tol=1e-12, neighbour_radius=3.0)
+    result = defect_energy(crystal, vacancy=["Mg1"], supercell=(2, 2, 2), tol=1e-12, neighbour_radius=3.0)
     sc = result.supercell.crystal
     d = result.defects[0]
     defect_charge = Crystal(sc.cell, [d.position], [d.delta_charge], min_distance=0)
@@ -150,19 +150,19 @@ def test_neighbour_potential_change_is_the_defect_charge_potential():
 
 def test_substitution_and_interstitial_identities():
     crystal = _load("rocksalt-MgO.cif")
-    sub = defect_energy(crystal, substitute=["Mg1=Al"], supercell=2, tol=1e-12)
+    sub = defect_energy(crystal, substitute={"Mg1": "Al"}, supercell=2, tol=1e-12)
     assert sub.defects[0].charge_after == 3.0  # Al's only common oxidation state (mendeleev)
     sc = sub.supercell.crystal
     phi = madelung.ewald(sc, tol=1e-12).potentials[sub.defects[0].index]
     assert sub.energy_change == pytest.approx(1.0 * phi + _lone_charge(sc.cell, 1.0), abs=1e-8)
-    inter = defect_energy(crystal, interstitial=["0.25,0.25,0.25=Li"], supercell=2, tol=1e-12)
+    inter = defect_energy(crystal, interstitial=[((0.25, 0.25, 0.25), "Li")], supercell=2, tol=1e-12)
     phi_i = potential_at(sc, inter.defects[0].position, tol=1e-12).potentials[0]
     assert inter.energy_change == pytest.approx(1.0 * phi_i + _lone_charge(sc.cell, 1.0), abs=1e-8)
 
 
 def test_neutral_schottky_pair_needs_no_background():
     crystal = _load("rocksalt-MgO.cif")
-    result = defect_energy(crystal, vacancy=["Mg1", "O1@0.5,0.5,0.5"], supercell="2x2x2", tol=1e-12)
+    result = defect_energy(crystal, vacancy=["Mg1", ("O1", (0.5, 0.5, 0.5))], supercell=(2, 2, 2), tol=1e-12)
     assert not result.background
     assert result.defect_charge == 0
     assert result.image_correction == 0
@@ -173,7 +173,7 @@ def test_neutral_schottky_pair_needs_no_background():
 
 def test_vacancy_ranking_of_the_layered_perovskite():
     crystal = _load("layered-perovskite-Sr2TiO4.cif")
-    ranking = vacancy_ranking(crystal, "anions", supercell="2x2x1", tol=1e-11)
+    ranking = vacancy_ranking(crystal, "anions", supercell=(2, 2, 1), tol=1e-11)
     assert [r.label for r in ranking.rows] == sorted([r.label for r in ranking.rows],
                                                     key=lambda lab: dict((r.label, r.madelung_estimate)
                                                                          for r in ranking.rows)[lab])
@@ -193,11 +193,11 @@ def test_bad_defect_input():
     with pytest.raises(InputError, match="does not exist"):
         defect_energy(crystal, vacancy=["Q1"])
     with pytest.raises(InputError, match="on top of an existing ion"):
-        defect_energy(crystal, interstitial=["0.5,0.5,0.5=Li"])
+        defect_energy(crystal, interstitial=[((0.5, 0.5, 0.5), "Li")])
     with pytest.raises(InputError, match="same site"):
-        defect_energy(crystal, vacancy=["O1"], substitute=["O1=F:-1"])
+        defect_energy(crystal, vacancy=["O1"], substitute={"O1": ("F", -1)})
     with pytest.raises(InputError, match="give the charge"):
-        defect_energy(crystal, substitute=["Mg1=Fe"])
+        defect_energy(crystal, substitute={"Mg1": "Fe"})
     with pytest.raises(InputError):
         defect_energy(crystal)
 

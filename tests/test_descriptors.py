@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import madelung
-from madelung.analysis.descriptors import (COLUMNS, SPECTRUM_LENGTH, column_types, describe, empty_row,
+from madelung.analysis.descriptors import (COLUMNS, SITE_COLUMNS, SPECTRUM_LENGTH, column_types, describe, empty_row,
                                   ewald_matrix_spectrum, ewald_sum_matrix, spectrum_columns)
 from madelung.errors import InputError
 
@@ -26,16 +26,16 @@ PUBLISHED = [("rocksalt-NaCl", 1.747564594633), ("rocksalt-MgO", 1.747564594633)
 
 @pytest.mark.parametrize("name, value", PUBLISHED)
 def test_published_madelung_constants(name, value):
-    row = describe(load(name), tol=1e-10)
-    assert row["madelung_handbook"] == pytest.approx(value, abs=1e-8)
+    description = describe(load(name), tol=1e-10)
+    assert description.madelung_handbook == pytest.approx(value, abs=1e-8)
     # one cation and one anion kind with charges +-Z: the common-factor convention is the same number
-    assert row["madelung_common_factor"] == pytest.approx(value, abs=1e-8)
+    assert description.madelung_common_factor == pytest.approx(value, abs=1e-8)
 
 
 @pytest.mark.parametrize("name", ["rocksalt-NaCl", "fluorite-CaF2", "spinel-MgAl2O4", "perovskite-SrTiO3"])
 def test_energies_agree_with_the_engine(name):
     crystal = load(name)
-    row = describe(crystal, tol=1e-9)
+    row = describe(crystal, tol=1e-9).to_dict()
     result = madelung.ewald(crystal, tol=1e-10)
     scale = result.energy_scale
     assert row["energy_eV"] == pytest.approx(result.energy, abs=1e-8 * scale)
@@ -57,7 +57,8 @@ def test_energies_agree_with_the_engine(name):
 
 
 def test_row_has_the_documented_columns_in_order():
-    row = describe(load("rutile-TiO2"))
+    description = describe(load("rutile-TiO2"))
+    row = description.to_dict()
     assert tuple(row) == COLUMNS
     kinds = column_types()
     for name, value in row.items():
@@ -65,6 +66,22 @@ def test_row_has_the_documented_columns_in_order():
     assert tuple(empty_row()) == COLUMNS
     # rutile has one cation and one anion kind: the handbook convention is defined
     assert math.isfinite(row["madelung_handbook"])
+    # the named fields and the flat row hold the same values; the spectrum field is the padded spectrum
+    assert description.energy_eV == row["energy_eV"] and description.r0_A == row["r0_A"]
+    assert description.spectrum.shape == (SPECTRUM_LENGTH,)
+    assert [row[name] for name in EIGENVALUES] == description.spectrum.tolist()
+    assert description.sites is None
+
+
+def test_sites_are_a_field_of_the_description():
+    crystal = load("rocksalt-NaCl")
+    description = describe(crystal, tol=1e-10, spectrum_length=0, sites=True)
+    assert tuple(description.to_dict()) == tuple(column_types(0))
+    assert len(description.sites) == len(crystal)
+    assert set(description.sites[0]) == set(SITE_COLUMNS)
+    # rock salt: every site constant is the handbook value 1.747564594633 (OEIS A085469)
+    for site in description.sites:
+        assert site["site_constant"] == pytest.approx(1.747564594633, abs=1e-8)
 
 
 def test_ewald_sum_matrix_entries_add_up_to_twice_the_energy():

@@ -45,7 +45,7 @@ def _ewald_check(ranking, rows, tol=1e-10):
 
 
 def test_every_ordering_energy_equals_ewald_rock_salt():
-    ranking = rank_orderings(simple_cubic(), "2x2x2", keep=100, ion_charges=PLUS_MINUS)
+    ranking = rank_orderings(simple_cubic(), (2, 2, 2), keep=100, ion_charges=PLUS_MINUS)
     assert ranking.method == "enumeration" and len(ranking.orderings) == ranking.enumerated_distinct
     _ewald_check(ranking, [o.codes for o in ranking.orderings])
     # the table energies are the matrix energies of the orderings they name
@@ -55,7 +55,7 @@ def test_every_ordering_energy_equals_ewald_rock_salt():
 
 def test_every_ordering_energy_equals_ewald_with_vacancies_and_fixed_ions():
     crystal = Crystal.from_file(LICOO2)
-    ranking = rank_orderings(crystal, "2x1x1", keep=100)
+    ranking = rank_orderings(crystal, (2, 1, 1), keep=100)
     assert {o for row in ranking.orderings for o in row.occupation} == {"Li", "vacancy"}
     _ewald_check(ranking, [o.codes for o in ranking.orderings])
 
@@ -76,9 +76,9 @@ def _brute_force_orbits(problem):
 
 
 @pytest.mark.parametrize("crystal, supercell, charges", [
-    (simple_cubic(), "2x2x2", PLUS_MINUS),
-    (body_centred_cubic(), "2x2x2", PLUS_MINUS),
-    (simple_cubic(), "2x2x3", PLUS_MINUS),
+    (simple_cubic(), (2, 2, 2), PLUS_MINUS),
+    (body_centred_cubic(), (2, 2, 2), PLUS_MINUS),
+    (simple_cubic(), (2, 2, 3), PLUS_MINUS),
 ])
 def test_distinct_counts_burnside_brute_force_and_enumeration(crystal, supercell, charges):
     ranking = rank_orderings(crystal, supercell, keep=1, ion_charges=charges)
@@ -92,8 +92,8 @@ def test_distinct_counts_burnside_brute_force_and_enumeration(crystal, supercell
 
 
 def test_distinct_counts_with_vacancies():
-    problem = ordering_problem(Crystal.from_file(LICOO2), "2x2x1")
-    ranking = rank_orderings(Crystal.from_file(LICOO2), "2x2x1", keep=1)
+    problem = ordering_problem(Crystal.from_file(LICOO2), (2, 2, 1))
+    ranking = rank_orderings(Crystal.from_file(LICOO2), (2, 2, 1), keep=1)
     assert ranking.distinct_orderings == _brute_force_orbits(problem) == ranking.enumerated_distinct
     assert ranking.total_orderings == 924  # C(12, 6)
 
@@ -101,7 +101,7 @@ def test_distinct_counts_with_vacancies():
 def test_plus_minus_on_simple_cubic_gives_rock_salt():
     # fact of the trade: ±1 charges on a simple-cubic lattice order as rock salt
     a = 2.82
-    ranking = rank_orderings(simple_cubic(a), "2x2x2", keep=3, ion_charges=PLUS_MINUS)
+    ranking = rank_orderings(simple_cubic(a), (2, 2, 2), keep=3, ion_charges=PLUS_MINUS)
     best = ranking.orderings[0]
     assert best.space_group == "Fm-3m (225)"
     assert best.degeneracy == 2
@@ -112,7 +112,7 @@ def test_plus_minus_on_simple_cubic_gives_rock_salt():
 def test_plus_minus_on_body_centred_cubic_gives_cesium_chloride():
     # fact of the trade: ±1 charges on a body-centred-cubic lattice order as CsCl
     a = 4.11
-    ranking = rank_orderings(body_centred_cubic(a), "2x2x2", keep=2, ion_charges=PLUS_MINUS)
+    ranking = rank_orderings(body_centred_cubic(a), (2, 2, 2), keep=2, ion_charges=PLUS_MINUS)
     best = ranking.orderings[0]
     assert best.space_group == "Pm-3m (221)"
     nearest = a * np.sqrt(3) / 2
@@ -121,7 +121,7 @@ def test_plus_minus_on_body_centred_cubic_gives_cesium_chloride():
 
 def test_search_finds_rock_salt_in_4x4x4():
     a = 2.82
-    ranking = rank_orderings(simple_cubic(a), "4x4x4", keep=3, ion_charges=PLUS_MINUS, restarts=4)
+    ranking = rank_orderings(simple_cubic(a), (4, 4, 4), keep=3, ion_charges=PLUS_MINUS, restarts=4)
     assert ranking.method == "search" and ranking.indices is None
     assert ranking.total_orderings == 1832624140942590534  # C(64, 32)
     best = ranking.orderings[0]
@@ -131,8 +131,8 @@ def test_search_finds_rock_salt_in_4x4x4():
 
 
 def test_workers_give_the_same_ranking():
-    one = rank_orderings(simple_cubic(), "2x2x3", keep=5, ion_charges=PLUS_MINUS)
-    two = rank_orderings(simple_cubic(), "2x2x3", keep=5, ion_charges=PLUS_MINUS, workers=2)
+    one = rank_orderings(simple_cubic(), (2, 2, 3), keep=5, ion_charges=PLUS_MINUS)
+    two = rank_orderings(simple_cubic(), (2, 2, 3), keep=5, ion_charges=PLUS_MINUS, workers=2)
     assert np.array_equal(np.sort(one.indices), np.sort(two.indices))  # the same orbit minima
     assert np.allclose(np.sort(one.energies), np.sort(two.energies), rtol=0, atol=1e-9)
 
@@ -142,8 +142,8 @@ def test_refusals():
     with pytest.raises(InputError, match=r"multiple of 2, e.g. 2x1x1"):
         rank_orderings(crystal, 1)
     with pytest.raises(InputError, match="net charge"):
-        rank_orderings(crystal, "2x1x1", ion_charges={"Li": 2.0})
-    assert rank_orderings(crystal, "2x1x1", ion_charges={"Li": 2.0}, background=True).net_charge == pytest.approx(3.0)
+        rank_orderings(crystal, (2, 1, 1), ion_charges={"Li": 2.0})
+    assert rank_orderings(crystal, (2, 1, 1), ion_charges={"Li": 2.0}, background=True).net_charge == pytest.approx(3.0)
     with pytest.raises(InputError, match="nothing to order"):
         rank_orderings(Crystal(np.eye(3) * 3, [[0, 0, 0]], [0.0]), 2)
     mixed = Crystal(np.eye(3) * 3, [[0, 0, 0]], [2.5], ["Mg"], species=[(("Mg", 0.5), ("Al", 0.5))])
@@ -185,8 +185,8 @@ def test_command_line_mixed_sites_text_report(tmp_path, capsys):
 
 def test_search_finds_the_lowest_distinct_orderings_the_enumeration_finds():
     crystal = Crystal.from_file(LICOO2)
-    exact = rank_orderings(crystal, "2x2x1", keep=10, method="enumeration")
-    search = rank_orderings(crystal, "2x2x1", keep=5, method="search", restarts=4)
+    exact = rank_orderings(crystal, (2, 2, 1), keep=10, method="enumeration")
+    search = rank_orderings(crystal, (2, 2, 1), keep=5, method="search", restarts=4)
     assert search.method == "search" and len(search.orderings) == 5
     assert np.allclose([o.energy for o in search.orderings], [o.energy for o in exact.orderings[:5]], rtol=0,
                        atol=1e-8)

@@ -411,8 +411,8 @@ def test_api_command_line_and_screening_row_agree_for_salts_of_polyatomic_ions(n
     assert cli["r0_angstrom"] == pytest.approx(api.r0, rel=1e-12)
     assert cli["charges_left_in"] == pytest.approx(api.charges_left_in, rel=1e-9)
     row = describe(crystal, tol=1e-10, spectrum_length=0)
-    assert row["r0_A"] == pytest.approx(api.r0, rel=1e-12)
-    assert row["madelung_charges_left_in"] == pytest.approx(api.charges_left_in, rel=1e-8)
+    assert row.r0_A == pytest.approx(api.r0, rel=1e-12)
+    assert row.madelung_charges_left_in == pytest.approx(api.charges_left_in, rel=1e-8)
     # every atom a point charge, when asked, gives the covalent bond as r0 (the old, misleading value)
     atoms = madelung_constants(crystal, tol=1e-10, polyatomic_ions="atoms")
     assert atoms.r0 < 1.5 < api.r0

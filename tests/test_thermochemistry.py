@@ -70,10 +70,10 @@ def test_covalent_character_flag():
     from madelung.units import EV_TO_KJ_PER_MOL
 
     model = kapustinskii_energy(2, 1, -1, shannon_radius("Ag", 1), shannon_radius("Cl", -1)) * EV_TO_KJ_PER_MOL
-    assert agcl.compare(model)[2] is True
+    assert agcl.compare(model).covalent_character is True
     nacl = born_haber_cycle(**NACL)
     model = kapustinskii_energy(2, 1, -1, shannon_radius("Na", 1), shannon_radius("Cl", -1)) * EV_TO_KJ_PER_MOL
-    assert nacl.compare(model)[2] is False
+    assert nacl.compare(model).covalent_character is False
 
 
 def test_cli_cycle_from_file_prints_the_table(tmp_path, capsys):
@@ -90,6 +90,13 @@ def test_cli_cycle_from_file_prints_the_table(tmp_path, capsys):
                  "--dissociation", "Cl=242.6", "--json"])
     data = json.loads(capsys.readouterr().out)
     assert code == 0 and data["lattice_energy_kJ_per_mol"] == pytest.approx(786, rel=0.01)
+    # without a structure Kapustinskii's estimate comes from the ions alone: 1202.5 * 2 / 2.83 * (1 - 0.345 / 2.83)
+    # = 746.2 kJ/mol with Shannon's VI radii Na+ 1.02, Cl- 1.81 Å (worked by hand from Kapustinskii 1956)
+    kapustinskii = data["comparisons"]["Kapustinskii"]
+    assert kapustinskii["lattice_energy_kJ_per_mol"] == pytest.approx(746.2, abs=0.2)
+    assert kapustinskii["cycle_minus_model_kJ_per_mol"] == pytest.approx(
+        data["lattice_energy_kJ_per_mol"] - kapustinskii["lattice_energy_kJ_per_mol"])
+    assert kapustinskii["covalent_character"] is False
 
 
 def test_cli_cycle_errors_exit_2(tmp_path, capsys):

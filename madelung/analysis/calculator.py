@@ -23,6 +23,7 @@ from ..structure.crystal import Crystal
 from ..sums.dispatch import ewald
 from ..sums.shortrange import load_repulsion, shortrange
 from ..defaults import SUM_TOL
+from ..units import EV_TO_KJ_PER_MOL
 
 
 class RigidIonCalculator(Calculator):
@@ -120,6 +121,16 @@ class Relaxation:
     def volume_change(self):
         """Relative volume change, (V_final - V_initial) / V_initial."""
         return (self.final_volume - self.initial_volume) / self.initial_volume
+
+    def to_dict(self) -> dict:
+        """JSON-ready: convergence, steps, volumes Å^3 and their relative change, energies per cell eV,
+        the gain per cell eV and per formula unit kJ/mol, the relaxed cell Å."""
+        return {"converged": self.converged, "steps_taken": self.steps_taken, "cell_relaxed": self.cell_relaxed,
+                "initial_volume_angstrom3": self.initial_volume, "final_volume_angstrom3": self.final_volume,
+                "volume_change": self.volume_change, "initial_energy_eV": self.initial_energy,
+                "final_energy_eV": self.final_energy, "energy_gain_eV": self.energy_gain,
+                "energy_gain_kJ_per_mol_per_formula_unit": self.energy_gain / self.formula_units * EV_TO_KJ_PER_MOL,
+                "cell": np.asarray(self.atoms.cell).tolist()}
 
 
 def relax(crystal, repulsion, cell=True, force_limit=1e-4, max_steps=500, tol=SUM_TOL, trajectory=None) -> Relaxation:

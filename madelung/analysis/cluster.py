@@ -9,7 +9,6 @@ Polyatomic ions given as groups of sites are kept whole: an ion belongs where it
 from __future__ import annotations
 
 import math
-import re
 
 import numpy as np
 from scipy.spatial import cKDTree
@@ -30,37 +29,39 @@ BOUNDARY_FACTOR = 1.2
 
 
 def resolve_center(crystal, center):
-    """Cartesian centre and a description from a site index, ``"#INDEX"``, a site label (or
-    element), or fractional coordinates (three numbers, or text ``"x,y,z"``)."""
+    """Cartesian centre and a description from a site index (int), a site label (or element; its
+    first site) or fractional coordinates (three numbers). Text such as ``"#3"`` or ``"x,y,z"`` is
+    read by the command line."""
     if isinstance(center, (int, np.integer)) and not isinstance(center, bool):
         index = int(center)
     elif isinstance(center, str):
         text = center.strip()
-        if text.startswith("#"):
-            try:
-                index = int(text[1:])
-            except ValueError:
-                raise InputError(f"centre {center!r}: #INDEX needs an integer") from None
-        elif re.fullmatch(r"[^,\s]+(\s*[,\s]\s*[^,\s]+){2}", text) and re.match(r"^[-+.\d]", text):
-            return _fractional_center(crystal, re.split(r"[,\s]+", text), center), text
-        else:
-            matches = [i for i, lab in enumerate(crystal.labels) if lab == text]
-            matches = matches or [i for i, sym in enumerate(crystal.symbols) if sym == text]
-            if not matches:
-                known = ", ".join(dict.fromkeys(crystal.labels))
-                raise InputError(f"centre {center!r} is not a site label of the structure (labels: {known}), "
-                                 "#INDEX or fractional coordinates x,y,z")
-            index = matches[0]
+        matches = [i for i, lab in enumerate(crystal.labels) if lab == text]
+        matches = matches or [i for i, sym in enumerate(crystal.symbols) if sym == text]
+        if not matches:
+            known = ", ".join(dict.fromkeys(crystal.labels))
+            raise InputError(f"centre {center!r} is not a site label of the structure (labels: {known}), "
+                             "a site index or fractional coordinates")
+        index = matches[0]
     else:
         try:
             values = list(center)
         except TypeError:
-            raise InputError(f"centre {center!r} not understood; give a site label, #INDEX or "
+            raise InputError(f"centre {center!r} not understood; give a site label, a site index or "
                              "fractional coordinates") from None
-        return _fractional_center(crystal, values, center), ",".join(str(v) for v in values)
+        return _fractional_center(crystal, values, center), ",".join(f"{float(v):g}" if _is_number(v) else str(v)
+                                                                     for v in values)
     if not 0 <= index < len(crystal):
         raise InputError(f"centre #{index}: the structure has sites #0..#{len(crystal) - 1}")
     return np.array(crystal.positions[index], dtype=float), f"{crystal.labels[index]} (#{index})"
+
+
+def _is_number(value):
+    try:
+        float(value)
+    except (TypeError, ValueError):
+        return False
+    return True
 
 
 def _fractional_center(crystal, values, original):

@@ -1,9 +1,9 @@
 """Electrostatic descriptors of one crystal for screening tables: one flat row of named numbers.
 
 :func:`describe` runs one Ewald sum (through :func:`madelung.madelung_constants`) and one
-periodic Coulomb matrix (:func:`madelung.sums.matrix.coulomb_matrix`) and returns a dict whose
-keys are :data:`COLUMNS` in that order, every value a float, int or str, so that thousands of
-rows stack into a table with one fixed schema.
+periodic Coulomb matrix (:func:`madelung.sums.matrix.coulomb_matrix`) and returns a
+:class:`Description` whose ``to_dict()`` is a row with keys :data:`COLUMNS` in that order, every
+value a float, int or str, so that thousands of rows stack into a table with one fixed schema.
 
 The columns (units in the names: eV, V, e, Å):
 
@@ -68,6 +68,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -111,6 +112,74 @@ def column_types(length=SPECTRUM_LENGTH) -> dict:
 
 #: The descriptor columns of :func:`describe`, in order (default spectrum length).
 COLUMNS = tuple(column_types())
+
+
+@dataclass(frozen=True)
+class Description:
+    """The electrostatic descriptors of one crystal (:func:`describe`), one named field per column.
+
+    The scalar fields carry the column names and units of the module docstring (``energy_eV``,
+    ``r0_A``, ``madelung_handbook`` ...; NaN where a convention is undefined for the structure).
+
+    Attributes
+    ----------
+    spectrum : (L,) float ndarray
+        The padded Ewald-sum-matrix spectrum, eV (the ``ewald_matrix_spectrum_NNN`` columns; empty
+        for L = 0).
+    ewald_matrix_note : str
+        ``""`` or why the spectrum is truncated or missing.
+    sites : tuple of dict, or None
+        With ``describe(..., sites=True)``: one row per site with the keys of :data:`SITE_COLUMNS`
+        (index, label, species, charge e, potential V, site constant, q*phi eV, fractional x, y, z).
+    """
+
+    n_atoms: int
+    formula: str
+    reduced_formula: str
+    formula_units: int
+    volume_per_atom_A3: float
+    energy_eV: float
+    energy_per_atom_eV: float
+    energy_per_formula_unit_eV: float
+    energy_per_formula_unit_kJ_mol: float
+    error_estimate_eV: float
+    tol: float
+    r0_A: float
+    madelung_charges_left_in: float
+    madelung_handbook: float
+    madelung_common_factor: float
+    cation_potential_min_V: float
+    cation_potential_mean_V: float
+    cation_potential_max_V: float
+    anion_potential_min_V: float
+    anion_potential_mean_V: float
+    anion_potential_max_V: float
+    species_potentials_V: str
+    site_constant_min: float
+    site_constant_max: float
+    charge_min_e: float
+    charge_max_e: float
+    charge_mean_abs_e: float
+    charge_rms_e: float
+    spectrum: np.ndarray
+    ewald_matrix_note: str
+    sites: tuple = None
+
+    @classmethod
+    def from_row(cls, row, sites=None, spectrum_length=SPECTRUM_LENGTH):
+        """The description holding a flat row of :func:`column_types` ``(spectrum_length)``."""
+        spectrum = np.array([row[name] for name in spectrum_columns(spectrum_length)], dtype=float)
+        return cls(**{name: row[name] for name, _ in _SCALAR_COLUMNS}, spectrum=spectrum,
+                   ewald_matrix_note=row["ewald_matrix_note"], sites=None if sites is None else tuple(sites))
+
+    def to_dict(self) -> dict:
+        """The flat row of the screening table: keys :func:`column_types` ``(len(spectrum))`` in order,
+        floats, ints and strings only (NaN where a value is undefined; the serializer's policy
+        decides how NaN is written). The per-site rows stay in :attr:`sites`."""
+        row = {name: getattr(self, name) for name, _ in _SCALAR_COLUMNS}
+        row.update(zip(spectrum_columns(len(self.spectrum)), (float(v) for v in self.spectrum)))
+        row["ewald_matrix_note"] = self.ewald_matrix_note
+        return row
 
 
 def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None):
@@ -177,8 +246,10 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
 
     Returns
     -------
-    dict, or (dict, list of dict) with ``sites=True``
-        Keys :func:`column_types` ``(spectrum_length)`` in order; floats, ints and strings only.
+    Description
+        One named field per column; ``to_dict()`` gives the flat row (keys :func:`column_types`
+        ``(spectrum_length)`` in order; floats, ints and strings only) and, with ``sites=True``,
+        ``sites`` holds the per-site rows.
 
     Raises
     ------
@@ -246,14 +317,14 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
         note = "not computed: spectrum length 0"
     row["ewald_matrix_note"] = note
     if not sites:
-        return row
+        return Description.from_row(row, None, spectrum_length)
     frac = crystal.fractional_positions
     table = [{"site": i, "label": crystal.labels[i], "species": crystal.species_label(i),
               "charge_e": float(q[i]), "potential_V": float(phi[i]),
               "site_constant": float(constants.site[i]), "q_phi_eV": float(q[i] * phi[i]),
               "x_frac": float(frac[i, 0]), "y_frac": float(frac[i, 1]), "z_frac": float(frac[i, 2])}
              for i in range(n)]
-    return row, table
+    return Description.from_row(row, table, spectrum_length)
 
 
 #: Columns of the per-site values of :func:`describe` (``sites=True``), with their types:

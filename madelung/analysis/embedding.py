@@ -267,8 +267,8 @@ def embedding(crystal, center, cluster_radius, field_radius, *, fitted_thickness
     crystal : Crystal
         A neutral crystal with its charges.
     center : int, str or 3 numbers
-        The cluster's centre: a site index, ``"#INDEX"``, a site label (its first site; an
-        element symbol also works), or fractional coordinates (``"0.5,0.5,0.5"`` or three numbers).
+        The cluster's centre: a site index, a site label (its first site; an element symbol also
+        works), or fractional coordinates (three numbers).
     cluster_radius : float
         Ions (whole polyatomic ions with ``groups``) whose centre lies within this distance of the
         centre form the cluster, Å.

@@ -5,7 +5,6 @@ Every file puts the embedding's centre at the origin (Å); charges in e.
 
 from __future__ import annotations
 
-import json
 import os
 import tempfile
 
@@ -13,6 +12,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..report.files import atomic_output, cif_text, make_folder, write_text
+from ..report.serialize import json_text
 
 #: The files written into the output folder, by role.
 FILES = {"cluster_xyz": "cluster.xyz", "cluster_cif": "cluster.cif", "point_charges": "point_charges.txt",
@@ -111,5 +111,5 @@ def write_embedding(result, folder, overwrite=False) -> dict:
         for p, q in zip(charges, result.charges):
             handle.write(f"{p[0]:17.10f} {p[1]:17.10f} {p[2]:17.10f} {q:20.14f}\n")
     write_text(paths["report"], embedding_report(result) + "\n")
-    write_text(paths["json"], json.dumps(result.to_dict(), indent=1))
+    write_text(paths["json"], json_text(result, indent=1) + "\n")
     return paths

@@ -54,6 +54,15 @@ class EquationOfState:
     formula: str = ""
     extra: dict = field(default_factory=dict)
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the scan (volumes Å^3, energies eV per cell) and the fit (E0 eV, V0 Å^3 per cell
+        and per formula unit, B0 GPa, B0', rms misfit eV)."""
+        return {"formula": self.formula, "formula_units": self.formula_units,
+                "volumes_angstrom3": np.asarray(self.volumes).tolist(),
+                "energies_eV": np.asarray(self.energies).tolist(), "e0_eV": self.e0, "v0_angstrom3": self.v0,
+                "v0_per_formula_unit_angstrom3": self.v0 / self.formula_units, "b0_GPa": self.b0,
+                "b0_prime": self.b0_prime, "rms_eV": self.rms}
+
 
 def equation_of_state(crystal, repulsion, span=0.06, points=11, tol=SUM_TOL) -> EquationOfState:
     """Energy–volume scan under homogeneous scaling and a third-order Birch–Murnaghan fit.

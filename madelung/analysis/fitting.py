@@ -56,6 +56,11 @@ class FittedParameter:
     uncertainty: float | None
     role: str
 
+    def to_dict(self) -> dict:
+        """JSON-ready; the value and its uncertainty in the parameter's unit (rho Å, A and B eV, C eV Å^6)."""
+        return {"pairs": ["-".join(p) for p in self.pairs], "name": self.name, "value": self.value,
+                "uncertainty": self.uncertainty, "role": self.role}
+
 
 @dataclass(frozen=True)
 class FitResidual:
@@ -72,6 +77,11 @@ class FitResidual:
     @property
     def normalised(self):
         return (self.value - self.wanted) / self.sigma
+
+    def to_dict(self) -> dict:
+        """JSON-ready; value, wanted and sigma in ``unit``."""
+        return {"target": self.target, "quantity": self.quantity, "value": self.value, "wanted": self.wanted,
+                "unit": self.unit, "sigma": self.sigma}
 
 
 @dataclass(frozen=True)
@@ -96,6 +106,14 @@ class FitResult:
     degrees_of_freedom: int
     evaluations: int
     message: str
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the parameters, the residuals (as the parameter file records them), the
+        chi-square, the degrees of freedom, the evaluations and the optimiser's message."""
+        return {"parameters": [p.to_dict() for p in self.parameters],
+                "residuals": [r.to_dict() for r in self.residuals],
+                "chi_square": self.chi_square, "degrees_of_freedom": self.degrees_of_freedom,
+                "evaluations": self.evaluations, "message": self.message}
 
 
 _START = {"rho": 0.3, "n": 8.0}
@@ -405,8 +423,7 @@ def fit_repulsion(targets, form="born-mayer", fixed=None, shared=(), free=(), st
         "targets": [{"name": t.label, "formula": t.crystal.reduced_formula,
                      **({"bulk_modulus_GPa": t.bulk_modulus} if t.bulk_modulus else {})} for t in targets],
         "chi_square": chi2, "degrees_of_freedom": dof,
-        "residuals": [{"target": r.target, "quantity": r.quantity, "value": r.value, "wanted": r.wanted,
-                       "unit": r.unit, "sigma": r.sigma} for r in shown],
+        "residuals": [r.to_dict() for r in shown],
         "uncertainty": "one standard deviation from the Jacobian, residuals in units of their sigmas",
     }
     model = build(values, sigma, info)

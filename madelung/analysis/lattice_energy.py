@@ -35,6 +35,11 @@ KAPUSTINSKII_CONSTANT_KJ_ANGSTROM = 1202.5
 KAPUSTINSKII_D = 0.345
 
 
+#: The sign convention of every lattice-energy output, in words.
+LATTICE_SIGN = ("lattice energy = positive energy to separate the solid into gaseous ions (handbook sign); "
+                "Coulomb and short-range energies are signed sums")
+
+
 #: rho used in the Born–Mayer closed form when the model has no exponential term (Å);
 #: the same 0.345 Å Kapustinskii adopted (common practice).
 DEFAULT_BORN_MAYER_RHO = 0.345
@@ -137,6 +142,46 @@ def kapustinskii_energy(ions_per_formula_unit, z_cation, z_anion, r_cation, r_an
     return kj_per_mol_to_ev(kj)
 
 
+def kapustinskii_of_ions(cation, z_cation, cation_count, anion, z_anion, anion_count) -> float | None:
+    """Kapustinskii estimate (eV per formula unit, positive) of a binary salt from its ions alone,
+    with Shannon's six-coordinate effective ionic radii; None when a radius is not tabulated for
+    an ion in that charge state.
+
+    Parameters
+    ----------
+    cation, anion : str
+        Element symbols.
+    z_cation, z_anion : int
+        Ion charges (signs ignored).
+    cation_count, anion_count : int
+        Ions of each kind in the formula unit (nu is their sum).
+
+    References
+    ----------
+    A. F. Kapustinskii, Q. Rev. Chem. Soc. 10 (1956) 283; R. D. Shannon, Acta Cryst. A32 (1976) 751.
+    """
+    try:
+        radii = shannon_radius(cation, abs(int(z_cation))), shannon_radius(anion, -abs(int(z_anion)))
+    except InputError:
+        return None
+    return kapustinskii_energy(cation_count + anion_count, z_cation, z_anion, *radii)
+
+
+def pressure_from_stress(stress) -> float:
+    """Pressure, GPa, from a stress tensor in eV/Å^3 with ASE's sign (tension positive):
+    P = -tr(sigma) / 3, positive when the structure wants to expand.
+
+    References
+    ----------
+    O. H. Nielsen and R. M. Martin, Phys. Rev. B 32 (1985) 3780 (stress in a periodic solid; the
+    pressure is minus a third of its trace).
+    """
+    stress = np.asarray(stress, dtype=float)
+    if stress.shape != (3, 3):
+        raise InputError(f"a stress tensor is 3x3, got shape {stress.shape}")
+    return float(-np.trace(stress) / 3.0 * EV_PER_A3_TO_GPA)
+
+
 @dataclass(frozen=True)
 class ClosedForms:
     """The classic closed-form lattice energies beside the model's, eV per formula unit (positive).
@@ -166,6 +211,19 @@ class ClosedForms:
     kapustinskii: float | None
     radii: tuple | None
     notes: dict
+
+    def to_dict(self) -> dict:
+        """JSON-ready, energies in kJ/mol per formula unit (positive), distances Å; None where a
+        closed form does not apply (``notes`` says why)."""
+        def kj(value):
+            return None if value is None else value * EV_TO_KJ_PER_MOL
+
+        return {"madelung_constant_handbook": self.madelung_constant, "r0_angstrom": self.r0,
+                "born_lande_kJ_per_mol": kj(self.born_lande), "born_exponent": self.born_exponent,
+                "born_exponent_source": self.born_exponent_source,
+                "born_mayer_kJ_per_mol": kj(self.born_mayer), "rho_angstrom": self.rho, "rho_source": self.rho_source,
+                "kapustinskii_kJ_per_mol": kj(self.kapustinskii),
+                "shannon_radii_angstrom": None if self.radii is None else list(self.radii), "notes": dict(self.notes)}
 
 
 @dataclass(frozen=True)
@@ -213,6 +271,18 @@ class LatticeEnergy:
 
     def per_formula_unit(self):
         return {k: v / self.formula_units for k, v in self.per_cell().items()}
+
+    def to_dict(self) -> dict:
+        """JSON-ready: signed energies per cell, per atom and per formula unit (eV), the lattice
+        energy (eV and kJ/mol per formula unit, positive), the pressure GPa, the closed forms."""
+        data = {"formula": self.formula, "formula_units": self.formula_units, "n_atoms": self.n_atoms,
+                "per_cell_eV": self.per_cell(), "per_atom_eV": self.per_atom(),
+                "per_formula_unit_eV": self.per_formula_unit(),
+                "lattice_energy_eV": self.lattice_energy, "lattice_energy_kJ_per_mol": self.lattice_energy_kj_per_mol,
+                "pressure_GPa": self.pressure, "sign_convention": LATTICE_SIGN}
+        if self.closed_forms is not None:
+            data["closed_forms"] = self.closed_forms.to_dict()
+        return data
 
 
 def closed_forms(crystal, model=None, tol=SUM_TOL, ewald_result=None) -> ClosedForms:
@@ -301,7 +371,7 @@ def lattice_energy(crystal, repulsion, tol=SUM_TOL, with_closed_forms=True) -> L
     if coulomb.background:
         raise InputError(f"{crystal.source or 'structure'}: net charge {coulomb.net_charge:+.6g} e; "
                          "a lattice energy needs a neutral crystal")
-    pressure = -np.trace(coulomb.stress + short.stress) / 3.0 * EV_PER_A3_TO_GPA
+    pressure = pressure_from_stress(coulomb.stress + short.stress)
     forms = None
     if with_closed_forms and np.any(crystal.charges > 0) and np.any(crystal.charges < 0):
         forms = closed_forms(crystal, model, tol, ewald_result=coulomb)

@@ -124,9 +124,6 @@ class MadelungConstants:
     handbook_mean_first_shell: float | None = None
     polyatomic_ions: str = ""
 
-    def as_dict(self):
-        return self.to_dict()
-
     def to_dict(self):
         return {
             "formula": self.formula, "formula_units": self.formula_units, "r0_angstrom": self.r0,

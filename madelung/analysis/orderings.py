@@ -463,7 +463,7 @@ def rank_orderings(crystal, supercell=1, keep=20, *, ion_charges=None, method="a
     ----------
     crystal : Crystal
         With mixed or partly occupied sites (``species``); ordered sites keep their charges.
-    supercell : int, "2x2x1", three repeats or a 3x3 integer matrix (rows: supercell vectors in
+    supercell : int, three repeats (e.g. (2, 2, 1)) or a 3x3 integer matrix (rows: supercell vectors in
         units of the cell's vectors).
     keep : int
         How many of the lowest orderings to return in full.

@@ -48,6 +48,7 @@ from dataclasses import dataclass
 
 from ..errors import InputError
 from ..units import EV_TO_KJ_PER_MOL
+from .lattice_energy import LATTICE_SIGN
 from ..structure.elements import common_oxidation_states, electron_affinity as library_affinity, ionisation_energies
 
 #: A model lattice energy this far below the cycle value (fraction) is flagged as covalent character.
@@ -78,6 +79,34 @@ class CycleStep:
     value: float
     source: str
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the step in words, its enthalpy kJ/mol, where the value came from."""
+        return {"step": self.text, "kJ_per_mol": self.value, "source": self.source}
+
+
+@dataclass(frozen=True)
+class CycleComparison:
+    """A model's lattice energy beside the Born–Haber cycle's (:meth:`BornHaberCycle.compare`).
+
+    Attributes
+    ----------
+    model : the model's lattice energy, kJ/mol (positive).
+    difference : cycle - model, kJ/mol.  fraction : difference / cycle value.
+    covalent_character : True when the model falls more than ``threshold`` (a fraction) below the
+        cycle: binding beyond point charges.
+    """
+
+    model: float
+    difference: float
+    fraction: float
+    covalent_character: bool
+    threshold: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready, kJ/mol per formula unit."""
+        return {"lattice_energy_kJ_per_mol": self.model, "cycle_minus_model_kJ_per_mol": self.difference,
+                "relative": self.fraction, "covalent_character": self.covalent_character}
+
 
 @dataclass(frozen=True)
 class BornHaberCycle:
@@ -100,12 +129,21 @@ class BornHaberCycle:
     lattice_energy: float
     electron_transfer: float
 
-    def compare(self, model_lattice_energy, threshold=COVALENT_THRESHOLD):
-        """Difference cycle - model (kJ/mol), its fraction of the cycle value, and whether it flags
-        covalent character (model more than ``threshold``, default 8 %, below the cycle)."""
-        difference = self.lattice_energy - float(model_lattice_energy)
+    def compare(self, model_lattice_energy, threshold=COVALENT_THRESHOLD) -> "CycleComparison":
+        """The cycle beside a model's lattice energy (kJ/mol): their difference, its fraction of the
+        cycle value, and whether it flags covalent character (model more than ``threshold``, default
+        8 %, below the cycle)."""
+        model = float(model_lattice_energy)
+        difference = self.lattice_energy - model
         fraction = difference / self.lattice_energy
-        return difference, fraction, bool(fraction > threshold)
+        return CycleComparison(model, difference, fraction, bool(fraction > threshold), float(threshold))
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the compound, the steps, the cycle's lattice energy and the gas-phase electron
+        transfer (kJ/mol per formula unit) and the sign convention."""
+        return {"compound": self.compound, "steps": [step.to_dict() for step in self.steps],
+                "lattice_energy_kJ_per_mol": self.lattice_energy,
+                "electron_transfer_kJ_per_mol": self.electron_transfer, "sign_convention": LATTICE_SIGN}
 
 
 def _as_list(value, name):

@@ -10,8 +10,8 @@ import sys
 import time
 from contextlib import contextmanager
 
-from ..errors import InputError
-from .tasks import _one_line, failed_row, prepare_process, screen_task
+from ..errors import InputError, one_line
+from .tasks import failed_row, prepare_process, screen_task
 
 
 # ---------------------------------------------------------------- executors
@@ -189,7 +189,7 @@ class DaskExecutor:
             try:
                 self.client = Client(str(scheduler), timeout=30)
             except Exception as exc:
-                raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({_one_line(exc)[:160]})") from None
+                raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({one_line(exc)[:160]})") from None
             self.own_client = True
         self.options = options
         self.timeout = timeout
@@ -226,7 +226,7 @@ class DaskExecutor:
                 except Exception as exc:
                     name = type(exc).__name__
                     status = (f"worker crashed while screening this structure ({name})" if name == "KilledWorker"
-                              else f"internal error: {name}: {_one_line(exc)[:200]}")
+                              else f"internal error: {name}: {one_line(exc)[:200]}")
                     done.append((task, (failed_row(task, status, self.options, now - submitted), [])))
             elif self.timeout and now - submitted > self.timeout:
                 del self.futures[future]

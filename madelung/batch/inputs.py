@@ -9,7 +9,7 @@ import glob as globbing
 import os
 from dataclasses import dataclass
 
-from ..errors import InputError
+from ..errors import InputError, one_line
 from ..io.read import structures_to_read
 
 
@@ -59,8 +59,7 @@ def _database_ids(path, select):
     except InputError:
         raise
     except Exception as exc:
-        message = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(f"{path}: cannot select rows {select!r} ({message[:200]})") from None
+        raise InputError(f"{path}: cannot select rows {select!r} ({one_line(exc)[:200]})") from None
 
 
 def iter_tasks(inputs=(), db=None, select=None):

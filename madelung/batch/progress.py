@@ -93,7 +93,9 @@ class ScreenSummary:
         return (f"screen: {self.total} structures: {self.ok} ok, {self.failed} failed{skipped}; "
                 f"{self.seconds:.1f} s ({self.rate:.1f}/s) on {self.executor}; table {self.out}")
 
-    def as_dict(self):
+    def to_dict(self):
+        """JSON-ready: counts of structures, wall seconds, structures per second (None when no time
+        passed), the table paths, the executor and the failures with their messages."""
         return {"total": self.total, "ok": self.ok, "failed": self.failed, "skipped": self.skipped,
                 "seconds": self.seconds, "structures_per_second": self.rate if math.isfinite(self.rate) else None,
                 "out": self.out,

@@ -7,9 +7,9 @@ import math
 import os
 import shutil
 
-from ..errors import InputError
+from ..errors import InputError, one_line
 from ..report.files import atomic_output
-from .tasks import _one_line
+from ..report.serialize import json_text
 
 
 #: Columns that come before the descriptors, with their types.
@@ -58,12 +58,6 @@ def _arrow_schema(columns):
 
     kinds = {"int": pa.int64(), "float": pa.float64(), "str": pa.string()}
     return pa.schema([(name, kinds[kind]) for name, kind in columns.items()])
-
-
-def _json_value(value):
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 def _parse_text(value, kind):
@@ -121,7 +115,7 @@ class TableWriter:
                                      for k, v in json.loads(line).items()})
             return rows
         except Exception as exc:
-            raise InputError(f"{self.path}: cannot read the existing table to resume ({_one_line(exc)[:160]})") \
+            raise InputError(f"{self.path}: cannot read the existing table to resume ({one_line(exc)[:160]})") \
                 from None
 
     def start(self, rows=()):
@@ -170,7 +164,7 @@ class TableWriter:
                                      (repr(v) if isinstance(v, float) else v) for v in row.values()])
             else:
                 for row in rows:
-                    handle.write(json.dumps({k: _json_value(v) for k, v in row.items()}) + "\n")
+                    handle.write(json_text(row, non_finite="null", indent=None) + "\n")   # NaN: not defined here
 
     def sort_by_index(self):
         """Rewrite the table in input order (after a resumed run has appended out of order)."""

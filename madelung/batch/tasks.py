@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..structure.crystal import check_size
-from ..errors import InputError
+from ..errors import InputError, one_line
 from ..io.read import charge_table
 from ..io.read import read_sites
 from ..io.read import sites_from_atoms
@@ -115,11 +115,6 @@ def _space_group(crystal, symmetry_tolerance):
     return str(data.international), int(data.number)
 
 
-def _one_line(exc):
-    text = " ".join(str(exc).split())
-    return text or type(exc).__name__
-
-
 def failed_row(task, status, options, seconds=math.nan) -> dict:
     """The row of a structure that could not be screened: identifiers, the message, NaN elsewhere."""
     from ..analysis.descriptors import empty_row
@@ -173,20 +168,20 @@ def screen_task(task, options):
             group, number = _space_group(crystal, options.symmetry_tolerance)
             t2 = time.perf_counter()
             charged = t2 - t1
-            result = describe(crystal, tol=options.tol, spectrum_length=options.spectrum_length,
-                              sites=options.sites)
-            descriptors, sites = result if options.sites else (result, [])
+            description = describe(crystal, tol=options.tol, spectrum_length=options.spectrum_length,
+                                   sites=options.sites)
+            descriptors, sites = description.to_dict(), [dict(site) for site in description.sites or ()]
             summed = time.perf_counter() - t2
             status = "ok"
         except InputError as exc:
-            status = _one_line(exc)
+            status = one_line(exc)
         except MemoryError:
             status = "out of memory"
         except Exception as exc:  # a bug of ours, or a library's: the job goes on, the row says what
             frame = traceback.extract_tb(exc.__traceback__)[-1]
-            status = (f"internal error: {type(exc).__name__}: {_one_line(exc)[:200]} "
+            status = (f"internal error: {type(exc).__name__}: {one_line(exc)[:200]} "
                       f"({os.path.basename(frame.filename)}:{frame.lineno})")
-    notes = "; ".join(dict.fromkeys(_one_line(w.message) for w in caught
+    notes = "; ".join(dict.fromkeys(one_line(w.message) for w in caught
                                     if not issubclass(w.category, (DeprecationWarning, ResourceWarning))))
     total = time.perf_counter() - started
     cpu = time.process_time() - cpu_started

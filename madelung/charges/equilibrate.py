@@ -106,6 +106,17 @@ class EquilibrationResult:
     dielectric: float
     parameter_source: str
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the model (kernel, dielectric, parameters), the total charge e, the chemical
+        potential and model energy eV, and per site the charges e, electronegativities and hardnesses eV."""
+        return {"method": "charge equilibration", "kernel": self.kernel, "dielectric": self.dielectric,
+                "total_charge_e": self.total_charge, "chemical_potential_eV": self.chemical_potential,
+                "model_energy_eV": self.energy, "parameters": self.parameter_source,
+                "charges_e": np.asarray(self.charges).tolist(),
+                "electronegativity_eV": np.asarray(self.electronegativity).tolist(),
+                "hardness_eV": np.asarray(self.hardness).tolist(),
+                "note": "equilibrated charges are model estimates of charge transfer"}
+
 
 def mulliken_parameters(element):
     """(chi, J) in eV from the first ionisation energy I and electron affinity A:

@@ -59,6 +59,7 @@ from ..structure import elements
 from ..structure.crystal import ion_text
 from ..errors import InputError
 from ..sums.matrix import potentials_for_charge_sets
+from ..units import EV_TO_KJ_PER_MOL
 from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE, analyse
 from . import bond_valence
 from .common_states import adjacent_pair, common_states, is_common
@@ -193,6 +194,33 @@ class OxidationAssignment:
     @property
     def charges(self) -> np.ndarray:
         return self.best.charges
+
+    def candidate_dict(self, candidate, rank) -> dict:
+        """One candidate, JSON-ready: per orbit its species' states, site potential V and bond-valence
+        sum; the ranking's scores; the energy per formula unit (eV and kJ/mol, signed)."""
+        return {"rank": rank, "assignment": self.describe(candidate),
+                "states": [{"label": g.label, "wyckoff": g.wyckoff, "sites_in_cell": len(g.sites),
+                            "species": [{"element": el, "occupancy": occ, "state": q}
+                                        for (el, occ), q in zip(g.species, states)],
+                            "potential_V": phi, "bond_valence_sum": bvs}
+                           for g, states, phi, bvs in zip(self.groups, candidate.states, candidate.potentials,
+                                                          candidate.bond_valence_sums)],
+                "electronegativity_violations": candidate.electronegativity_violations,
+                "wrong_sign_sites": candidate.wrong_sign_sites,
+                "bond_valence_misfit": candidate.bond_valence_misfit,
+                "mixed_valence_orbits": candidate.mixed_groups,
+                "sites_in_rarely_seen_states": candidate.rare_sites,
+                "energy_per_formula_unit_eV": candidate.energy_per_formula_unit,
+                "energy_per_formula_unit_kJ_per_mol": candidate.energy_per_formula_unit * EV_TO_KJ_PER_MOL}
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the space group, why the best candidate won, how the search went, and every
+        candidate ranked (:meth:`candidate_dict`)."""
+        return {"space_group": self.space_group, "method": "oxidation-state assignment", "reason": self.reason,
+                "bond_valence_used_in_ranking": self.used_bond_valence, "truncated": self.truncated,
+                "searched_rarely_seen_states": self.searched_rare_states,
+                "candidates": [self.candidate_dict(c, k + 1) for k, c in enumerate(self.candidates)],
+                "note": "formal oxidation states: bookkeeping of the ionic limit, not measured charges"}
 
     def describe(self, candidate=None) -> str:
         """One-line text of an assignment, e.g.

@@ -41,23 +41,6 @@ def _add_charges(sub):
     return parser
 
 
-def _candidate_json(assignment, candidate, rank):
-    return {"rank": rank, "assignment": assignment.describe(candidate),
-            "states": [{"label": g.label, "wyckoff": g.wyckoff, "sites_in_cell": len(g.sites),
-                        "species": [{"element": el, "occupancy": occ, "state": q}
-                                    for (el, occ), q in zip(g.species, states)],
-                        "potential_V": phi, "bond_valence_sum": bvs}
-                       for g, states, phi, bvs in zip(assignment.groups, candidate.states, candidate.potentials,
-                                                      candidate.bond_valence_sums)],
-            "electronegativity_violations": candidate.electronegativity_violations,
-            "wrong_sign_sites": candidate.wrong_sign_sites,
-            "bond_valence_misfit": candidate.bond_valence_misfit,
-            "mixed_valence_orbits": candidate.mixed_groups,
-            "sites_in_rarely_seen_states": candidate.rare_sites,
-            "energy_per_formula_unit_eV": candidate.energy_per_formula_unit,
-            "energy_per_formula_unit_kJ_per_mol": candidate.energy_per_formula_unit * EV_TO_KJ_PER_MOL}
-
-
 def _run_charges(args):
     from ..charges.oxidation import mixed_note
     if args.method == "equilibrate":
@@ -68,12 +51,7 @@ def _run_charges(args):
     args.charges_from = "auto"
     crystal, a = _charged(args, ignore_file_states=args.ignore_file_states)
     if args.json:
-        _print_json({"file": args.file, "formula": crystal.reduced_formula, "space_group": a.space_group,
-                     "method": "oxidation-state assignment", "reason": a.reason,
-                     "bond_valence_used_in_ranking": a.used_bond_valence, "truncated": a.truncated,
-                     "searched_rarely_seen_states": a.searched_rare_states,
-                     "candidates": [_candidate_json(a, c, k + 1) for k, c in enumerate(a.candidates)],
-                     "note": "formal oxidation states: bookkeeping of the ionic limit, not measured charges"})
+        _print_json({"file": args.file, "formula": crystal.reduced_formula, **a.to_dict()})
         return 0
     print(f"madelung charges  {args.file}")
     print(f"  structure   {crystal.formula} ({crystal.formula_units} x {crystal.reduced_formula}), "
@@ -124,21 +102,17 @@ def _run_equilibrate(args):
                   dielectric=args.dielectric, tol=args.tol, **_crystal_options(args))
     crystal, result = loaded.crystal, loaded.equilibration
     symmetry = crystal_symmetry(crystal, symmetry_tolerance=args.symmetry_tolerance, by_charge=False)
+    means, spreads = symmetry.orbit_means(result.charges)
     rows = []
-    for orbit in symmetry.orbits:
-        q = result.charges[list(orbit.sites)]
+    for orbit, mean, spread in zip(symmetry.orbits, means, spreads):
         i = orbit.representative
         rows.append({"label": crystal.labels[i], "species": crystal.species_label(i), "wyckoff": orbit.wyckoff,
                      "multiplicity": orbit.multiplicity, "sites_in_cell": len(orbit.sites),
-                     "charge_e": float(q.mean()), "charge_spread_e": float(np.ptp(q)),
+                     "charge_e": float(mean), "charge_spread_e": float(spread),
                      "electronegativity_eV": float(result.electronegativity[i]),
                      "hardness_eV": float(result.hardness[i])})
     if args.json:
-        _print_json({"file": args.file, "method": "charge equilibration", "kernel": result.kernel,
-                     "dielectric": result.dielectric, "total_charge_e": result.total_charge,
-                     "chemical_potential_eV": result.chemical_potential, "model_energy_eV": result.energy,
-                     "parameters": result.parameter_source, "orbits": rows, "charges_e": result.charges,
-                     "note": "equilibrated charges are model estimates of charge transfer"})
+        _print_json({"file": args.file, **result.to_dict(), "orbits": rows})
         return 0
     print(f"madelung charges  {args.file}  (charge equilibration)")
     print(f"  structure   {crystal.formula}, {len(crystal)} sites, {symmetry.symbol} (No. {symmetry.number})")

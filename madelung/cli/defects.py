@@ -13,7 +13,9 @@ from .options import (
     COARSE_TOL, _check_outputs, _common, _dielectric_options, _json_option, _overwrite_option, _supercell_options,
     _tol_option)
 from .output import MODEL_NOTE, _eps_text, _frac, _print_json, _structure_lines
-from .text import _series, parse_cell, parse_key_values
+from .text import (
+    _series, parse_cell, parse_interstitials, parse_key_values, parse_miller, parse_site, parse_substitutions,
+    parse_supercell)
 
 
 def _add_map(sub):
@@ -42,9 +44,10 @@ def _run_map(args):
     prefix = args.output or os.path.splitext(os.path.basename(args.file))[0] + "-potential"
     cube, png = prefix + ".cube", prefix + ".png"
     _check_outputs(args, cube, png)
+    plane = parse_miller(args.plane)
     crystal = load_crystal(args)
     grid = potential_grid(crystal, args.grid, smearing=args.smearing, tol=args.tol)
-    section = plane_section(crystal, args.plane, args.offset, spacing=min(args.grid, 0.1),
+    section = plane_section(crystal, plane, args.offset, spacing=min(args.grid, 0.1),
                             smearing=args.smearing, tol=args.tol)
     write_with(cube, lambda temporary: write_gaussian_cube(temporary, grid))
     title = f"{crystal.formula}: potential on ({args.plane}) at offset {args.offset:g}"
@@ -105,16 +108,8 @@ def _run_interstitials(args):
     probe_radius = DEFAULT_PROBE_RADIUS if args.probe_radius is None else args.probe_radius
     search = find_interstitials(crystal, args.probe, spacing=args.grid, probe_radius=probe_radius, radii=radii,
                                 clearance=args.clearance, tol=args.tol)
-    rows = [{"fractional": s.fractional, "position_angstrom": s.position, "potential_V": s.potential,
-             "electrostatic_energy_eV": s.electrostatic_energy, "contact_energy_eV": s.contact_energy,
-             "total_energy_eV": s.total_energy, "nearest_ion": s.nearest_label,
-             "nearest_distance_angstrom": s.nearest_distance, "multiplicity": s.multiplicity}
-            for s in search.sites]
     if args.json:
-        _print_json({"file": args.file, "probe_charge_e": search.probe, "probe_radius_angstrom": search.probe_radius,
-                     "radii_angstrom": search.radii, "clearance": search.clearance,
-                     "grid_shape": list(search.grid_shape), "grid_minima": search.grid_minima,
-                     "rejected": search.rejected, "sites": rows, "error_estimate_V": search.error_estimate})
+        _print_json({"file": args.file, **search.to_dict()})
         return 0
     print(f"madelung interstitials  {args.file}")
     print("\n".join(_structure_lines(crystal)))
@@ -170,56 +165,30 @@ def _add_defect(sub):
 def _run_defect(args):
     from ..analysis.defects import defect_energy, vacancy_ranking
 
+    supercell = None if args.supercell is None else parse_supercell(args.supercell)
+    defects = dict(vacancy=[parse_site(spec, "vacancy") for spec in args.vacancy],
+                   substitute=parse_substitutions(args.substitute), interstitial=parse_interstitials(args.interstitial))
+    repeats = _series(args.series) if args.series else None
     crystal = load_crystal(args)
     if args.rank_vacancies:
         if args.vacancy or args.substitute or args.interstitial:
             raise InputError("--rank-vacancies ranks single vacancies; give it without other defects")
-        ranking = vacancy_ranking(crystal, args.rank_vacancies, supercell=args.supercell,
+        ranking = vacancy_ranking(crystal, args.rank_vacancies, supercell=supercell,
                                   smallest_plane_spacing=args.smallest_plane_spacing, tol=args.tol)
         return _print_ranking(args, crystal, ranking)
     eps = _dielectric_from(args)
-    result = defect_energy(crystal, vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
-                           supercell=args.supercell, smallest_plane_spacing=args.smallest_plane_spacing, tol=args.tol,
-                           neighbour_radius=args.neighbour_radius, dielectric=eps)
+    result = defect_energy(crystal, **defects, supercell=supercell, smallest_plane_spacing=args.smallest_plane_spacing,
+                           tol=args.tol, neighbour_radius=args.neighbour_radius, dielectric=eps)
     series = None
-    if args.series:
+    if repeats:
         from ..analysis.defects import defect_series
 
-        series = defect_series(crystal, _series(args.series), supercell=args.supercell, smallest_plane_spacing=args.smallest_plane_spacing,
-                               vacancy=args.vacancy, substitute=args.substitute, interstitial=args.interstitial,
-                               tol=args.tol)
+        series = defect_series(crystal, repeats, supercell=supercell,
+                               smallest_plane_spacing=args.smallest_plane_spacing, **defects, tol=args.tol)
     sc = result.supercell
-    background_text = ("uniform neutralizing background (the defects carry a net charge)" if result.background
-                       else "none needed (the defects are neutral overall)")
+    background_text = result.compensation
     if args.json:
-        _print_json({
-            "file": args.file, "supercell": sc.describe(), "supercell_matrix": sc.matrix,
-            "supercell_ions": len(sc.crystal), "supercell_volume_angstrom3": sc.crystal.volume,
-            "defects": [{"kind": d.kind, "spec": d.spec, "label": d.label, "index": d.index,
-                         "element_before": d.element_before, "element_after": d.element_after,
-                         "charge_before_e": d.charge_before, "charge_after_e": d.charge_after,
-                         "delta_charge_e": d.delta_charge, "position_angstrom": d.position,
-                         "potential_V": d.potential, "madelung_estimate_eV": d.madelung_estimate}
-                        for d in result.defects],
-            "perfect_energy_eV": result.perfect_energy, "defective_energy_eV": result.defective_energy,
-            "energy_change_eV": result.energy_change, "defect_charge_e": result.defect_charge,
-            "charge_compensation": background_text, "madelung_estimate_eV": result.madelung_estimate,
-            "defect_array_energy_eV": result.defect_array_energy, "identity_residual_eV": result.identity_residual,
-            "image_correction_vacuum_eV": result.image_correction,
-            "energy_change_plus_image_correction_eV": result.energy_change + result.image_correction,
-            "dielectric_correction_eV": None if result.dielectric_correction is None
-            else result.dielectric_correction.energy,
-            "neighbours": [{"index": n.index, "label": n.label, "distance_angstrom": n.distance,
-                            "potential_before_V": n.potential_before, "potential_after_V": n.potential_after,
-                            "change_V": n.change} for n in result.neighbours],
-            "error_estimate_eV": result.error_estimate,
-            "series": None if series is None else {
-                "repeats": list(series.repeats), "lengths_angstrom": series.lengths,
-                "energy_changes_eV": series.energy_changes, "corrected_eV": series.corrected,
-                "fit_dilute_limit_eV": series.dilute_limit, "fit_slope_eV_angstrom": series.slope},
-            "sign_convention": "energy change = E(defective supercell) - E(perfect supercell); removed ions go to "
-                               "infinity, added ions come from infinity",
-        })
+        _print_json({"file": args.file, **result.to_dict(), "series": series})
         return 0
     lines = [f"madelung defect  {args.file}", *_structure_lines(crystal),
              f"  supercell   {sc.describe()} ({sc.size} cells, {len(sc.crystal)} ions, "
@@ -267,14 +236,7 @@ def _run_defect(args):
 
 def _print_ranking(args, crystal, ranking):
     if args.json:
-        _print_json({"file": args.file, "species": ranking.species,
-                     "supercell": None if ranking.supercell is None else ranking.supercell.describe(),
-                     "sites": [{"label": r.label, "element": r.element, "charge_e": r.charge, "index": r.index,
-                                "multiplicity": r.multiplicity, "potential_V": r.potential,
-                                "madelung_estimate_eV": r.madelung_estimate,
-                                "supercell_energy_change_eV": r.supercell_energy,
-                                "image_term_eV": r.image_term} for r in ranking.rows],
-                     "ranking": "lowest Madelung-site-potential estimate -q*phi first"})
+        _print_json({"file": args.file, **ranking.to_dict()})
         return 0
     lines = [f"madelung defect --rank-vacancies {ranking.species}  {args.file}", *_structure_lines(crystal), ""]
     head = f"  {'rank':>4}  {'site':<8} {'charge':>7} {'mult':>5} {'phi / V':>11} {'-q*phi / eV':>12}"
@@ -320,52 +282,38 @@ def _add_correction(sub):
 
 def _run_correction(args):
     from ..io.read import read_structure
-    from ..analysis.defects import charged_cell_correction, correction_series, tile_supercell, parse_supercell
+    from ..analysis.defects import charged_cell_correction, correction_series, supercell_cell
 
     if (args.file is None) == (args.cell is None):
         raise InputError("give a structure file or --cell (one of them)")
+    supercell = None if args.supercell is None else parse_supercell(args.supercell)
+    repeats = _series(args.series)
     if args.file is not None:
         cell = np.array(read_structure(args.file).cell)
         source = args.file
     else:
         cell = parse_cell(args.cell)
         source = f"--cell {args.cell}"
-    if args.supercell is not None:
-        cell = parse_supercell(args.supercell) @ cell
-    elif args.smallest_plane_spacing is not None:
-        from ..structure.crystal import Crystal
-
-        cell = tile_supercell(Crystal(cell, [[0, 0, 0]], [1.0]), smallest_plane_spacing=args.smallest_plane_spacing).crystal.cell
+    cell = supercell_cell(cell, supercell, args.smallest_plane_spacing)
     eps = _dielectric_from(args)
-    if eps is None:
-        eps = np.eye(3)
-    main = charged_cell_correction(cell, args.charge, eps, tol=args.tol)
-    series = correction_series(cell, args.charge, eps, _series(args.series), tol=args.tol)
-    values = np.linalg.eigvalsh(eps)
+    main = charged_cell_correction(cell, args.charge, 1.0 if eps is None else eps, tol=args.tol)
+    series = correction_series(cell, args.charge, main.dielectric, repeats, tol=args.tol)
     if args.json:
-        _print_json({"cell_source": source, "cell_angstrom": cell, "volume_angstrom3": abs(np.linalg.det(cell)),
-                     "charge_e": args.charge, "dielectric": eps, "dielectric_eigenvalues": values,
-                     "correction_eV": main.energy, "madelung_potential_V": main.madelung_potential,
-                     "effective_constant": main.effective_constant, "error_estimate_eV": main.error_estimate,
-                     "alpha_per_angstrom": main.alpha, "real_terms": main.real_terms, "k_vectors": main.k_vectors,
-                     "series": [{"repeat": n, "length_angstrom": c.length, "correction_eV": c.energy,
-                                 "energy_times_length_eV_angstrom": c.energy * c.length}
-                                for n, c in zip(series.repeats, series.corrections)],
-                     "fit_slope_eV_angstrom": series.slope, "fit_intercept_eV": series.intercept,
-                     "relative_spread_of_E_times_L": series.spread,
-                     "sign_convention": "add the correction to the energy of the charged supercell"})
+        _print_json({"cell_source": source, **main.to_dict(), **series.to_dict()})
         return 0
     lengths = np.linalg.norm(cell, axis=1)
     lines = [f"madelung correction  {source}",
              f"  cell        |a| {lengths[0]:.4f}, |b| {lengths[1]:.4f}, |c| {lengths[2]:.4f} Å; volume "
-             f"{abs(np.linalg.det(cell)):.3f} Å^3; L = V^(1/3) = {main.length:.4f} Å",
-             f"  dielectric  {_eps_text(eps)} (eigenvalues {', '.join(f'{v:.4g}' for v in values)})",
+             f"{main.volume:.3f} Å^3; L = V^(1/3) = {main.length:.4f} Å",
+             f"  dielectric  {_eps_text(main.dielectric)} (eigenvalues "
+             f"{', '.join(f'{v:.4g}' for v in main.dielectric_eigenvalues)})",
              f"  charge      {args.charge:+g} e",
              "",
              f"  image correction      {main.energy:14.6f} eV   (add to the charged-supercell energy)",
              f"  Madelung potential    {main.madelung_potential:14.6f} V    (screened point-charge array with background, "
              "own charge left out)",
-             f"  2 L E / (k_e q^2)     {main.effective_constant:14.6f}      (alpha_M / eps for a simple cube)",
+             f"  2 L E / (k_e q^2)     {main.effective_constant:14.6f}      (alpha_M / eps for a simple cube)"
+             if main.charge else "  2 L E / (k_e q^2)     undefined for q = 0",
              f"  accuracy    estimated error {main.error_estimate:.1e} eV; alpha {main.alpha:.4f} 1/Å, "
              f"{main.real_terms} real-space and {main.k_vectors} reciprocal terms",
              "",

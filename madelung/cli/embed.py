@@ -12,6 +12,7 @@ from .loading import load_crystal
 from .options import (
     _charge_option, _json_option, _min_distance_option, _overwrite_option, _structure_options, _tol_option)
 from .output import _print_json
+from .text import parse_center
 
 
 def _add_embed(sub):
@@ -53,7 +54,7 @@ def _add_embed(sub):
 def _run_embed(args):
     check_output_folder(args.out, args.overwrite)
     crystal = load_crystal(args)
-    result = embedding(crystal, args.center, args.cluster_radius, args.field_radius,
+    result = embedding(crystal, parse_center(args.center), args.cluster_radius, args.field_radius,
                        fitted_thickness=args.fitted_thickness, grid_spacing=args.grid_spacing, offset=args.offset,
                        tol=args.tol)
     paths = write_embedding(result, args.out, overwrite=args.overwrite)

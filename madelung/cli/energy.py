@@ -8,14 +8,15 @@ import os
 
 import numpy as np
 
+from ..analysis.lattice_energy import pressure_from_stress
 from ..analysis.madelung_constants import CONVENTION_TEXT
 from ..errors import InputError
 from ..units import EV_TO_KJ_PER_MOL
 from .loading import _ions_as_units, _polyatomic_ions, load_crystal
 from .options import _common, _polyatomic_option
 from .output import (
-    MODEL_NOTE, RIGID_ION_NOTE, RULE_TEXT, _accuracy_lines, _batch_code, _ewald_json, _fmt, _lattice_json,
-    _lattice_lines, _print_json, _structure_lines, _volume_based, _volume_based_lines)
+    MODEL_NOTE, RIGID_ION_NOTE, RULE_TEXT, _accuracy_lines, _batch_code, _ewald_json, _fmt, _lattice_lines,
+    _print_json, _structure_lines, _volume_based, _volume_based_lines)
 
 
 def _add_energy(sub):
@@ -34,7 +35,6 @@ def _add_energy(sub):
 
 def _run_energy(args):
     from ..sums.dispatch import ewald
-    from ..units import EV_PER_A3_TO_GPA
 
     crystal = load_crystal(args)
     found = _polyatomic_ions(args, crystal)
@@ -59,8 +59,7 @@ def _run_energy(args):
         if result.stress is not None:
             data["stress_eV_per_angstrom3"] = result.stress
         if lattice is not None:
-            data["lattice"] = _lattice_json(lattice)
-            data["lattice"]["volume_based"] = _volume_based(crystal).to_dict()
+            data["lattice"] = {**lattice.to_dict(), "volume_based": _volume_based(crystal)}
         _print_json(data)
         return 0
     per_fu = result.energy / z
@@ -78,7 +77,7 @@ def _run_energy(args):
         lines.append(f"  forces      largest {largest:.6f} eV/Å (use --json for all)")
     if result.stress is not None:
         s = result.stress
-        pressure = -np.trace(s) / 3 * EV_PER_A3_TO_GPA
+        pressure = pressure_from_stress(s)
         lines.append(f"  stress      xx {s[0, 0]:.6g} yy {s[1, 1]:.6g} zz {s[2, 2]:.6g} eV/Å^3; "
                      f"pressure {pressure:.4f} GPa")
     if lattice is not None:
@@ -114,7 +113,7 @@ def _run_sites(args):
     constants = madelung_constants(crystal, tol=args.tol, method=args.method, polyatomic_ions="atoms")
     potentials = constants.ewald.potentials
     z = crystal.formula_units
-    energy_per_fu = constants.ewald.energy / z
+    energy_per_fu = constants.energy_per_formula_unit
 
     def row(i, orbit):
         return {"index": i, "label": crystal.labels[i], "element": crystal.species_label(i),
@@ -124,12 +123,9 @@ def _run_sites(args):
                 "q_phi_eV": float(crystal.charges[i] * potentials[i]),
                 "averaged": crystal.is_averaged(i)}
 
-    orbit_rows = []
-    for orbit in symmetry.orbits:
-        entry = row(orbit.representative, orbit)
-        spread = float(np.ptp(potentials[list(orbit.sites)]))
-        entry["potential_spread_V"] = spread
-        orbit_rows.append(entry)
+    _, spreads = symmetry.orbit_means(potentials)
+    orbit_rows = [{**row(orbit.representative, orbit), "potential_spread_V": float(spread)}
+                  for orbit, spread in zip(symmetry.orbits, spreads)]
     site_rows = [row(i, symmetry.orbits[symmetry.orbit_of[i]]) for i in range(len(crystal))]
     if args.json:
         _print_json({"file": args.file, "cell": args.cell, "space_group": symmetry.symbol,
@@ -187,7 +183,7 @@ def _run_constant(args):
     crystal, found = _ions_as_units(args, load_crystal(args))
     c = madelung_constants(crystal, tol=args.tol, method=args.method)
     if args.json:
-        _print_json({"file": args.file, **c.as_dict(),
+        _print_json({"file": args.file, **c.to_dict(),
                      **({"polyatomic_ions": found.to_dict()} if found is not None else {})})
         return 0
     print(f"madelung constant  {args.file}")
@@ -235,7 +231,7 @@ def _constant_table(args, files):
         try:
             crystal, found = _ions_as_units(args, load_crystal(args))
             c = madelung_constants(crystal, tol=args.tol, method=args.method)
-            rows.append({"file": name, "status": "ok", **c.as_dict(),
+            rows.append({"file": name, "status": "ok", **c.to_dict(),
                          **({"polyatomic_ions": found.summary()} if found is not None else {})})
         except InputError as exc:
             rows.append({"file": name, "status": str(exc)})

@@ -7,6 +7,7 @@ import os
 
 import numpy as np
 
+from ..analysis.lattice_energy import kapustinskii_of_ions
 from ..errors import InputError
 from ..report.files import cif_text
 from ..report.files import write_text
@@ -15,7 +16,7 @@ from ..units import EV_TO_KJ_PER_MOL
 from .loading import _crystal_from, load_crystal
 from .options import (
     _charge_option, _check_outputs, _common, _json_option, _min_distance_option, _overwrite_option, _tol_option)
-from .output import LATTICE_SIGN, RIGID_ION_NOTE, _print_json
+from .output import RIGID_ION_NOTE, _print_json
 from .text import _list_values, _parse_pairs
 
 
@@ -87,12 +88,7 @@ def _run_fit(args):
                            switch_width=args.switch_width, tol=args.tol, max_evaluations=args.max_evaluations)
     write_with(args.output, result.model.save)
     if args.json:
-        _print_json({"output": args.output, "form": args.form,
-                     "parameters": [{"pairs": ["-".join(p) for p in x.pairs], "name": x.name, "value": x.value,
-                                     "uncertainty": x.uncertainty, "role": x.role} for x in result.parameters],
-                     "residuals": result.model.info["residuals"], "chi_square": result.chi_square,
-                     "degrees_of_freedom": result.degrees_of_freedom, "evaluations": result.evaluations,
-                     "message": result.message})
+        _print_json({"output": args.output, "form": args.form, **result.to_dict()})
         return 0
     from ..sums.shortrange import PARAMETER_UNITS
 
@@ -182,29 +178,16 @@ def _run_cycle(args):
             kapustinskii = forms.kapustinskii * EV_TO_KJ_PER_MOL
     elif args.repulsion:
         raise InputError("cycle: --repulsion needs --structure FILE for the model lattice energy")
-    if kapustinskii is None:
-        from ..structure.elements import shannon_radius
-        from ..analysis.lattice_energy import kapustinskii_energy
-
+    if kapustinskii is None:   # no structure: Kapustinskii's estimate needs the ions only
         (m, zm, a), (x, zx, b) = cycle.cation, cycle.anion
-        try:
-            kapustinskii = kapustinskii_energy(a + b, zm, zx, shannon_radius(m, zm), shannon_radius(x, zx)) * \
-                EV_TO_KJ_PER_MOL
-        except InputError:
-            kapustinskii = None
+        estimate = kapustinskii_of_ions(m, zm, a, x, zx, b)
+        kapustinskii = None if estimate is None else estimate * EV_TO_KJ_PER_MOL
     comparisons = {}
     for name, value in (("rigid-ion model", model), ("Kapustinskii", kapustinskii)):
         if value is not None:
-            comparisons[name] = (value, *cycle.compare(value, args.covalent_threshold))
+            comparisons[name] = cycle.compare(value, args.covalent_threshold)
     if args.json:
-        _print_json({"compound": cycle.compound, "steps": [{"step": s.text, "kJ_per_mol": s.value, "source": s.source}
-                                                            for s in cycle.steps],
-                     "lattice_energy_kJ_per_mol": cycle.lattice_energy,
-                     "electron_transfer_kJ_per_mol": cycle.electron_transfer,
-                     "comparisons": {k: {"lattice_energy_kJ_per_mol": v[0], "cycle_minus_model_kJ_per_mol": v[1],
-                                         "relative": v[2], "covalent_character": v[3]}
-                                     for k, v in comparisons.items()},
-                     "sign_convention": LATTICE_SIGN})
+        _print_json({**cycle.to_dict(), "comparisons": comparisons})
         return 0
     print(f"madelung cycle  {cycle.compound}   (kJ/mol per formula unit)")
     for s in cycle.steps:
@@ -212,7 +195,8 @@ def _run_cycle(args):
     print(f"      {'':<66} {'-' * 11}")
     print(f"      {'cycle lattice energy (solid -> gaseous ions)':<66} {cycle.lattice_energy:+11.2f}")
     print(f"  gas-phase electron transfer alone (ionisation + attachment) {cycle.electron_transfer:+.2f} kJ/mol")
-    for name, (value, difference, fraction, covalent) in comparisons.items():
+    for name, c in comparisons.items():
+        value, difference, fraction, covalent = c.model, c.difference, c.fraction, c.covalent_character
         limit = 100 * args.covalent_threshold
         verdict = (f"cycle exceeds the ionic model by more than {limit:g} %: binding beyond point charges, "
                    "covalent character likely" if covalent else
@@ -279,13 +263,7 @@ def _run_relax(args):
                          f"eV/Å); last structure written to {output}")
     z = result.formula_units
     if args.json:
-        _print_json({"file": args.file, "output": output, "converged": result.converged, "steps_taken": result.steps_taken,
-                     "cell_relaxed": result.cell_relaxed, "initial_volume_angstrom3": result.initial_volume,
-                     "final_volume_angstrom3": result.final_volume, "volume_change": result.volume_change,
-                     "initial_energy_eV": result.initial_energy, "final_energy_eV": result.final_energy,
-                     "energy_gain_eV": result.energy_gain,
-                     "energy_gain_kJ_per_mol_per_formula_unit": result.energy_gain / z * EV_TO_KJ_PER_MOL,
-                     "cell": np.array(result.atoms.cell)})
+        _print_json({"file": args.file, "output": output, **result.to_dict()})
         return 0
     print(f"madelung relax  {args.file} -> {output}")
     print(f"  {'positions and cell' if result.cell_relaxed else 'positions'} relaxed with BFGS: "
@@ -323,10 +301,8 @@ def _run_eos(args):
         write_with(args.plot, lambda temporary: write_equation_of_state_png(temporary, eos), binary=True)
     z = eos.formula_units
     if args.json:
-        _print_json({"file": args.file, "volumes_angstrom3": eos.volumes, "energies_eV": eos.energies,
-                     "e0_eV": eos.e0, "v0_angstrom3": eos.v0, "v0_per_formula_unit_angstrom3": eos.v0 / z,
-                     "b0_GPa": eos.b0, "b0_prime": eos.b0_prime, "rms_eV": eos.rms,
-                     "volume_change_from_input": eos.v0 / crystal.volume - 1, "plot": args.plot})
+        _print_json({"file": args.file, **eos.to_dict(), "volume_change_from_input": eos.v0 / crystal.volume - 1,
+                     "plot": args.plot})
         return 0
     print(f"madelung eos  {args.file}   third-order Birch–Murnaghan fit of {len(eos.volumes)} volumes")
     print(f"  V0          {eos.v0:.4f} Å^3 per cell = {eos.v0 / z:.4f} Å^3 per formula unit "

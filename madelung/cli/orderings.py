@@ -10,7 +10,7 @@ from .options import (
     _charge_option, _charges_from_option, _crystal_options, _json_option, _max_atoms_option, _min_distance_option,
     _overwrite_option, _structure_defaults, _symmetry_tolerance_option, _tol_option)
 from .output import _print_json
-from .text import parse_charge_rules
+from .text import parse_charge_rules, parse_supercell
 
 
 def _add_orderings(sub):
@@ -70,7 +70,7 @@ def _run_orderings(args):
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=".*virtual-crystal average.*")  # the point of this command
         crystal = load(args.file, args.charges_from, rules=rules, **options).crystal
-    ranking = rank_orderings(crystal, args.supercell, keep=args.keep,
+    ranking = rank_orderings(crystal, parse_supercell(args.supercell), keep=args.keep,
                              ion_charges=_ion_charges_of(args, crystal), method=args.strategy,
                              max_distinct=args.max_distinct, restarts=args.restarts, sweeps=args.sweeps,
                              seed=args.seed, workers=args.workers, scheduler=args.scheduler,

@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import json
 import re
 import sys
 
 import numpy as np
 
-from ..errors import MadelungError
+from ..report.serialize import NonFiniteResult, write_json
 from ..units import EV_TO_KJ_PER_MOL
 
 
@@ -41,18 +40,8 @@ def _fmt(value, digits=6):
 
 
 def _print_json(data):
-    def default(obj):
-        if isinstance(obj, np.ndarray):
-            return obj.tolist()
-        if isinstance(obj, (np.floating, np.integer)):
-            return obj.item()
-        raise TypeError(type(obj).__name__)
-
-    try:
-        text = json.dumps(data, indent=2, default=default, allow_nan=False)
-    except ValueError:
-        raise NonFiniteResult("a result is not a finite number (NaN or infinity); nothing printed") from None
-    print(text)
+    """Print a command's result as JSON through the one serializer (:mod:`madelung.report.serialize`)."""
+    write_json(data)
 
 
 def _structure_lines(crystal):
@@ -107,32 +96,8 @@ def _batch_code(failed, total, what):
     return code
 
 
-LATTICE_SIGN = ("lattice energy = positive energy to separate the solid into gaseous ions (handbook sign); "
-                "Coulomb and short-range energies are signed sums")
-
-
 RIGID_ION_NOTE = ("Rigid-ion model: formal point charges plus fitted short-range terms; no polarisation, "
                   "covalency, zero-point or thermal energy. Results are model estimates.")
-
-
-def _lattice_json(result):
-    data = {"formula": result.formula, "formula_units": result.formula_units, "n_atoms": result.n_atoms,
-            "per_cell_eV": result.per_cell(), "per_atom_eV": result.per_atom(),
-            "per_formula_unit_eV": result.per_formula_unit(),
-            "lattice_energy_eV": result.lattice_energy,
-            "lattice_energy_kJ_per_mol": result.lattice_energy_kj_per_mol,
-            "pressure_GPa": result.pressure, "sign_convention": LATTICE_SIGN}
-    forms = result.closed_forms
-    if forms is not None:
-        data["closed_forms"] = {
-            "madelung_constant_handbook": forms.madelung_constant, "r0_angstrom": forms.r0,
-            "born_lande_kJ_per_mol": None if forms.born_lande is None else forms.born_lande * EV_TO_KJ_PER_MOL,
-            "born_exponent": forms.born_exponent, "born_exponent_source": forms.born_exponent_source,
-            "born_mayer_kJ_per_mol": None if forms.born_mayer is None else forms.born_mayer * EV_TO_KJ_PER_MOL,
-            "rho_angstrom": forms.rho, "rho_source": forms.rho_source,
-            "kapustinskii_kJ_per_mol": None if forms.kapustinskii is None else forms.kapustinskii * EV_TO_KJ_PER_MOL,
-            "shannon_radii_angstrom": forms.radii, "notes": forms.notes}
-    return data
 
 
 def _lattice_lines(result):
@@ -189,10 +154,6 @@ def _volume_based_lines(vb, kapustinskii=True):
                      f"{radii}")
     lines += [f"      ({note})" for note in vb.notes]
     return lines
-
-
-class NonFiniteResult(MadelungError):
-    """A result came out NaN or infinite: our fault, reported as an internal error, never printed."""
 
 
 class _FiniteOutput:

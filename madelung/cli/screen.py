@@ -67,7 +67,7 @@ def _run_screen(args):
                      overwrite=args.overwrite)
     code = _batch_code(summary.failed, summary.ok + summary.failed, f"structures ({summary.out})")
     if args.json:
-        _print_json(summary.as_dict())
+        _print_json(summary.to_dict())
         return code()
     for source, status in summary.failures[:10]:
         print(f"  failed  {status if source in status else f'{source}: {status}'}")
@@ -101,7 +101,7 @@ def _run_demo(args):
                       parents=args.parents, overwrite=args.overwrite)
     code = _batch_code(result.summary.failed, result.summary.ok + result.summary.failed, "demo structures")
     if args.json:
-        _print_json(result.as_dict())
+        _print_json(result.to_dict())
         return code()
     print(result.report())
     return code()

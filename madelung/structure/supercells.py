@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -25,6 +24,11 @@ class Supercell:
         """Parent cells in the supercell."""
         return int(round(abs(np.linalg.det(self.matrix))))
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the repeats in words, the matrix, the parent cells, the ions and the volume Å^3."""
+        return {"supercell": self.describe(), "matrix": np.asarray(self.matrix).tolist(), "size": self.size,
+                "ions": len(self.crystal), "volume_angstrom3": self.crystal.volume}
+
     def describe(self) -> str:
         m = self.matrix
         if np.count_nonzero(m - np.diag(np.diag(m))) == 0:
@@ -32,29 +36,28 @@ class Supercell:
         return "[" + "; ".join(" ".join(str(int(x)) for x in row) for row in m) + "]"
 
 
-def parse_supercell(text):
-    """``"3x3x3"``, ``"3"`` or ``"2x2x1"`` into a diagonal matrix; nine integers (rows) into a matrix."""
-    if isinstance(text, (int, np.integer)):
-        values = [int(text)] * 3
-    elif isinstance(text, str):
-        parts = [p for p in re.split(r"[x×,;\s]+", text.strip().lower()) if p]
-        try:
-            values = [int(p) for p in parts]
-        except ValueError:
-            raise InputError(f"supercell {text!r} must look like 3x3x3 (or nine integers, rows of the matrix)") from None
-        if len(values) == 1:
-            values = values * 3
-    else:
-        values = np.asarray(text).astype(int).ravel().tolist()
-    if len(values) == 3:
-        matrix = np.diag(values)
-    elif len(values) == 9:
-        matrix = np.array(values).reshape(3, 3)
-    else:
-        raise InputError(f"supercell {text!r} must have 3 repeats (3x3x3) or 9 integers")
+def supercell_matrix(supercell):
+    """The integer repeat matrix of a supercell: an int ``n`` (n x n x n), three repeats, or a 3x3
+    integer matrix (rows: the supercell vectors in parent-cell units). Text such as ``"3x3x3"`` is
+    read by the command line (:func:`madelung.cli.text.parse_supercell`), not here."""
+    if isinstance(supercell, str):
+        raise InputError(f"supercell {supercell!r}: give an integer, three repeats or a 3x3 integer matrix, "
+                         "e.g. (3, 3, 3)")
+    try:
+        array = np.asarray(supercell, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"supercell {supercell!r} must be an integer, three repeats or a 3x3 integer matrix") from None
+    if array.size == 1:
+        array = np.full(3, array.ravel()[0])
+    if array.shape == (3,):
+        array = np.diag(array)
+    if array.shape != (3, 3) or not np.all(np.isfinite(array)) or np.any(array != np.round(array)):
+        raise InputError(f"supercell {np.asarray(supercell).tolist()} must be an integer, three repeats or a 3x3 "
+                         "integer matrix")
+    matrix = np.round(array).astype(np.int64)
     if round(np.linalg.det(matrix)) <= 0:
-        raise InputError(f"supercell {text!r} must have a positive determinant")
-    return matrix.astype(np.int64)
+        raise InputError(f"supercell {matrix.tolist()} must have a positive determinant")
+    return matrix
 
 
 def near_cubic_matrix(cell, smallest_plane_spacing):
@@ -95,15 +98,30 @@ def near_cubic_matrix(cell, smallest_plane_spacing):
     return best
 
 
+def supercell_cell(cell, supercell=None, smallest_plane_spacing=None) -> np.ndarray:
+    """The lattice vectors (rows, Å) of a supercell of ``cell``: from repeats (see
+    :func:`supercell_matrix`), or the smallest near-cubic one whose plane spacings all reach
+    ``smallest_plane_spacing`` Å (:func:`near_cubic_matrix`); the cell itself when neither is given."""
+    if supercell is not None and smallest_plane_spacing is not None:
+        raise InputError("give either a supercell (e.g. 3x3x3) or a minimum length, not both")
+    cell = np.asarray(cell, dtype=float)
+    if supercell is not None:
+        return supercell_matrix(supercell) @ cell
+    if smallest_plane_spacing is not None:
+        return near_cubic_matrix(cell, smallest_plane_spacing) @ cell
+    return cell
+
+
 def tile_supercell(crystal, supercell=None, smallest_plane_spacing=None) -> Supercell:
-    """Build a supercell from a repeat spec (``"3x3x3"``, an int, a 3x3 matrix) or the smallest
-    near-cubic one with all plane spacings at least ``smallest_plane_spacing`` Å."""
+    """Build a supercell from repeats (an int, three repeats or a 3x3 integer matrix, see
+    :func:`supercell_matrix`) or the smallest near-cubic one with all plane spacings at least
+    ``smallest_plane_spacing`` Å."""
     if supercell is not None and smallest_plane_spacing is not None:
         raise InputError("give either a supercell (e.g. 3x3x3) or a minimum length, not both")
     if supercell is None and smallest_plane_spacing is None:
         matrix = np.eye(3, dtype=np.int64)
     elif supercell is not None:
-        matrix = parse_supercell(supercell)
+        matrix = supercell_matrix(supercell)
     else:
         matrix = near_cubic_matrix(crystal.cell, smallest_plane_spacing)
     if round(np.linalg.det(matrix)) * len(crystal) > 200000:

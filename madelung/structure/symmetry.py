@@ -61,6 +61,11 @@ class Orbit:
         """Multiplicity and letter, e.g. ``"16d"``."""
         return f"{self.multiplicity}{self.wyckoff}"
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the orbit's number, member sites, Wyckoff letter and multiplicity, site symmetry."""
+        return {"index": self.index, "sites": [int(i) for i in self.sites], "wyckoff": self.wyckoff,
+                "multiplicity": self.multiplicity, "site_symmetry": self.site_symmetry}
+
 
 @dataclass(frozen=True)
 class SymmetryInfo:
@@ -91,6 +96,24 @@ class SymmetryInfo:
     def wyckoffs(self) -> tuple:
         """Wyckoff letter of every site."""
         return tuple(self.orbits[o].wyckoff for o in self.orbit_of)
+
+    def orbit_means(self, values) -> tuple:
+        """``(mean, spread)`` of per-site ``values`` over each orbit, in orbit order: the orbit
+        average (equal by symmetry in an exact calculation) and the largest minus the smallest
+        member value (zero up to the accuracy of the values and of the symmetry tolerance)."""
+        values = np.asarray(values, dtype=float)
+        if values.shape[:1] != self.orbit_of.shape:
+            raise InputError(f"orbit averages need one value per site ({len(self.orbit_of)}), got {values.shape}")
+        members = [values[list(orbit.sites)] for orbit in self.orbits]
+        return (np.array([float(m.mean()) for m in members]), np.array([float(np.ptp(m)) for m in members]))
+
+    def to_dict(self) -> dict:
+        """JSON-ready: space group (number, symbol, Hall number), the tolerance Å, each site's orbit,
+        the orbits, the operations and the conventional cell's volume Å^3."""
+        return {"space_group_number": self.number, "space_group": self.symbol, "hall_number": self.hall_number,
+                "symmetry_tolerance_angstrom": self.symmetry_tolerance,
+                "orbit_of": np.asarray(self.orbit_of).tolist(), "orbits": [o.to_dict() for o in self.orbits],
+                "operations": self.operations, "conventional_volume_angstrom3": self.conventional_volume}
 
 
 def _dataset(cell, frac, types, symmetry_tolerance, angle_tolerance=-1.0):

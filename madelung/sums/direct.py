@@ -52,6 +52,13 @@ class EwaldParameters:
     image_reach: tuple
     extra: dict = field(default_factory=dict)
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the engine, alpha 1/Å, cutoffs (Å, 1/Å), terms summed, and the engine's extras."""
+        return {"method": self.method, "alpha_per_angstrom": self.alpha, "real_cutoff_angstrom": self.real_cutoff,
+                "reciprocal_cutoff_per_angstrom": self.reciprocal_cutoff, "real_space_pairs": self.real_space_pairs,
+                "k_vectors": self.k_vectors,
+                **{k: list(v) if isinstance(v, tuple) else v for k, v in self.extra.items()}}
+
 
 @dataclass(frozen=True)
 class EwaldResult:
@@ -106,11 +113,7 @@ class EwaldResult:
                 "background": self.background, "n_atoms": self.n_atoms, "seconds": self.seconds,
                 "potentials_V": listed(self.potentials), "forces_eV_per_angstrom": listed(self.forces),
                 "stress_eV_per_cubic_angstrom": listed(self.stress),
-                "parameters": {"method": self.params.method, "alpha_per_angstrom": self.params.alpha,
-                               "real_cutoff_angstrom": self.params.real_cutoff,
-                               "reciprocal_cutoff_per_angstrom": self.params.reciprocal_cutoff,
-                               "real_space_pairs": self.params.real_space_pairs,
-                               "k_vectors": self.params.k_vectors, **self.params.extra}}
+                "parameters": self.params.to_dict()}
 
 
 def shortest_distance(crystal) -> float:

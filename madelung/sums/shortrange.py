@@ -308,6 +308,16 @@ class ShortRangeResult:
     cutoff: float
     switch_width: float
 
+    def to_dict(self) -> dict:
+        """JSON-ready: energy eV per cell, site energies eV, forces eV/Å and stress eV/Å^3 (None
+        unless asked), pair terms summed, cutoff and switch width Å."""
+        def listed(array):
+            return None if array is None else np.asarray(array).tolist()
+
+        return {"energy_eV": self.energy, "site_energies_eV": listed(self.site_energies),
+                "forces_eV_per_angstrom": listed(self.forces), "stress_eV_per_cubic_angstrom": listed(self.stress),
+                "pairs": self.pairs, "cutoff_angstrom": self.cutoff, "switch_width_angstrom": self.switch_width}
+
 
 def shortrange(crystal, model, forces=False, stress=False) -> ShortRangeResult:
     """Energy, forces and stress of the short-range pair terms of ``model`` in ``crystal``.

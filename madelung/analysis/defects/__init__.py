@@ -20,20 +20,20 @@ from .corrections import (ChargedCellCorrection, CorrectionSeries, charged_cell_
                           dielectric_tensor, read_dielectric_tensor)
 from .energies import (DefectResult, DefectSeries, DefectSite, NeighbourChange, defect_energy, defect_series,
                        interstitial_energy, substitution_energy, vacancy_energy)
-from .grids import (PlaneSection, PotentialGrid, gaussian_charge_density, grid_fractional, grid_shape, parse_miller,
+from .grids import (PlaneSection, PotentialGrid, gaussian_charge_density, grid_fractional, grid_shape,
                     plane_section, potential_grid, write_gaussian_cube)
 from .interstitials import (DEFAULT_PROBE_RADIUS, InterstitialSearch, InterstitialSite, equivalent_sites,
                             find_interstitials, ion_radii)
 from .points import ON_ION_DISTANCE, PointPotentials, potential_at
 from .ranking import VacancyRanking, VacancyRow, vacancy_ranking
-from ...structure.supercells import Supercell, tile_supercell, near_cubic_matrix, parse_supercell
+from ...structure.supercells import Supercell, near_cubic_matrix, supercell_cell, supercell_matrix, tile_supercell
 
 __all__ = ["ChargedCellCorrection", "CorrectionSeries", "charged_cell_correction", "correction_series",
            "dielectric_tensor", "read_dielectric_tensor", "DefectResult", "DefectSeries", "DefectSite",
            "NeighbourChange", "defect_energy", "defect_series", "interstitial_energy", "substitution_energy",
            "vacancy_energy", "PlaneSection", "PotentialGrid", "gaussian_charge_density", "grid_fractional",
-           "grid_shape", "parse_miller", "plane_section", "potential_grid", "write_gaussian_cube",
+           "grid_shape", "plane_section", "potential_grid", "write_gaussian_cube",
            "DEFAULT_PROBE_RADIUS", "InterstitialSearch", "InterstitialSite", "equivalent_sites",
            "find_interstitials", "ion_radii", "ON_ION_DISTANCE", "PointPotentials", "potential_at",
            "VacancyRanking", "VacancyRow", "vacancy_ranking", "Supercell", "tile_supercell", "near_cubic_matrix",
-           "parse_supercell"]
+           "supercell_cell", "supercell_matrix"]

@@ -59,6 +59,28 @@ class ChargedCellCorrection:
     k_vectors: int
     error_estimate: float
 
+    @property
+    def volume(self) -> float:
+        """Volume of the supercell, Å^3."""
+        return abs(float(np.linalg.det(self.cell)))
+
+    @property
+    def dielectric_eigenvalues(self) -> np.ndarray:
+        """Principal values of the dielectric tensor, ascending."""
+        return np.linalg.eigvalsh(self.dielectric)
+
+    def to_dict(self) -> dict:
+        """JSON-ready: cell Å, volume Å^3, charge e, the dielectric tensor and its principal values,
+        the correction eV, the Madelung potential V, the effective constant (None for q = 0, where
+        it is undefined), the sum's parameters and its error estimate eV."""
+        return {"cell_angstrom": self.cell.tolist(), "volume_angstrom3": self.volume, "charge_e": self.charge,
+                "dielectric": self.dielectric.tolist(), "dielectric_eigenvalues": self.dielectric_eigenvalues.tolist(),
+                "correction_eV": self.energy, "madelung_potential_V": self.madelung_potential,
+                "effective_constant": self.effective_constant if math.isfinite(self.effective_constant) else None,
+                "error_estimate_eV": self.error_estimate, "alpha_per_angstrom": self.alpha,
+                "real_terms": self.real_terms, "k_vectors": self.k_vectors,
+                "sign_convention": "add the correction to the energy of the charged supercell"}
+
 
 def dielectric_tensor(value, source=None):
     """A validated dielectric tensor (3, 3) from a number, three diagonal numbers or nine numbers."""
@@ -234,6 +256,15 @@ class CorrectionSeries:
     slope: float
     intercept: float
     spread: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready: one entry per cell (repeat, L Å, correction eV, E*L eV Å) and the 1/L fit
+        (slope eV Å, intercept eV, relative spread of E*L)."""
+        return {"series": [{"repeat": n, "length_angstrom": c.length, "correction_eV": c.energy,
+                            "energy_times_length_eV_angstrom": c.energy * c.length}
+                           for n, c in zip(self.repeats, self.corrections)],
+                "fit_slope_eV_angstrom": self.slope, "fit_intercept_eV": self.intercept,
+                "relative_spread_of_E_times_L": self.spread}
 
 
 def correction_series(cell, charge, dielectric=1.0, repeats=(1, 2, 3, 4), *, tol=SUM_TOL) -> CorrectionSeries:

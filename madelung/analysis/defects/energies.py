@@ -35,9 +35,9 @@ background, image energy q^2 alpha / 2 eps L; the correction itself is in :mod:`
 from __future__ import annotations
 
 import math
-import re
 import time
 import warnings
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -61,7 +61,8 @@ class DefectSite:
     Attributes
     ----------
     kind : "vacancy", "substitution" or "interstitial".
-    spec : the text that asked for it (e.g. "O1", "Mg1=Al:+3", "0.5,0.5,0.5=Li").
+    spec : how the defect was asked for, as text (e.g. "O1", "O1@0.5,0.5,0.5", "#3", "Mg1=Al:+3",
+        "0.5,0.5,0.5=Li").
     label : site label of the ion removed or replaced ("" for an interstitial).
     index : supercell index of that ion (-1 for an interstitial).
     element_before, element_after : element symbols ("" where none).
@@ -86,6 +87,14 @@ class DefectSite:
     potential: float
     madelung_estimate: float
 
+    def to_dict(self) -> dict:
+        """JSON-ready; charges e, position Å, potential V, estimate eV."""
+        return {"kind": self.kind, "spec": self.spec, "label": self.label, "index": self.index,
+                "element_before": self.element_before, "element_after": self.element_after,
+                "charge_before_e": self.charge_before, "charge_after_e": self.charge_after,
+                "delta_charge_e": self.delta_charge, "position_angstrom": np.asarray(self.position).tolist(),
+                "potential_V": self.potential, "madelung_estimate_eV": self.madelung_estimate}
+
 
 @dataclass(frozen=True)
 class NeighbourChange:
@@ -98,6 +107,12 @@ class NeighbourChange:
     potential_before: float
     potential_after: float
     change: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready; distance Å, potentials V."""
+        return {"index": self.index, "label": self.label, "distance_angstrom": self.distance,
+                "potential_before_V": self.potential_before, "potential_after_V": self.potential_after,
+                "change_V": self.change}
 
 
 @dataclass(frozen=True)
@@ -143,60 +158,103 @@ class DefectResult:
     error_estimate: float
     seconds: float
 
+    @property
+    def compensation(self) -> str:
+        """How the defects' charge is compensated, in words."""
+        return ("uniform neutralizing background (the defects carry a net charge)" if self.background
+                else "none needed (the defects are neutral overall)")
 
-_SITE_AT = re.compile(r"^(?P<label>[^@]+?)(?:@(?P<at>[^@]+))?$")
+    def to_dict(self) -> dict:
+        """JSON-ready: the supercell (its repeats in words, matrix, ions, volume Å^3), the defects,
+        the energies eV, the charge e, the corrections eV, the neighbours' potential changes V."""
+        sc = self.supercell
+        return {
+            "supercell": sc.describe(), "supercell_matrix": np.asarray(sc.matrix).tolist(),
+            "supercell_ions": len(sc.crystal), "supercell_volume_angstrom3": sc.crystal.volume,
+            "defects": [d.to_dict() for d in self.defects],
+            "perfect_energy_eV": self.perfect_energy, "defective_energy_eV": self.defective_energy,
+            "energy_change_eV": self.energy_change, "defect_charge_e": self.defect_charge,
+            "charge_compensation": self.compensation, "madelung_estimate_eV": self.madelung_estimate,
+            "defect_array_energy_eV": self.defect_array_energy, "identity_residual_eV": self.identity_residual,
+            "image_correction_vacuum_eV": self.image_correction,
+            "energy_change_plus_image_correction_eV": self.energy_change + self.image_correction,
+            "dielectric_correction_eV": None if self.dielectric_correction is None
+            else self.dielectric_correction.energy,
+            "neighbours": [n.to_dict() for n in self.neighbours],
+            "error_estimate_eV": self.error_estimate,
+            "sign_convention": "energy change = E(defective supercell) - E(perfect supercell); removed ions go to "
+                               "infinity, added ions come from infinity",
+        }
 
 
-def _parse_vector(text, what):
+def _fractional_point(value, what):
     try:
-        values = [float(x) for x in re.split(r"[,\s]+", str(text).strip()) if x]
-    except ValueError:
-        raise InputError(f"{what} {text!r} must be three numbers, e.g. 0.5,0.5,0.5") from None
-    if len(values) != 3 or not all(math.isfinite(v) for v in values):
-        raise InputError(f"{what} {text!r} must be three numbers, e.g. 0.5,0.5,0.5")
-    return np.array(values)
+        point = np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        point = np.zeros(0)
+    if isinstance(value, str) or point.shape != (3,) or not np.all(np.isfinite(point)):
+        raise InputError(f"{what} {value!r} must be three fractional coordinates, e.g. (0.5, 0.5, 0.5)")
+    return point
 
 
-def _find_site(supercell: Supercell, spec):
-    """Supercell index of the site named by ``spec``: LABEL (the copy in the first cell), LABEL@x,y,z
-    (the copy nearest the supercell fractional point) or #INDEX."""
+def _site_text(site):
+    """How a site is named in the output: ``O1``, ``O1@0.5,0.5,0.5`` or ``#INDEX``."""
+    if isinstance(site, (int, np.integer)) and not isinstance(site, bool):
+        return f"#{int(site)}"
+    if isinstance(site, tuple):
+        return f"{site[0]}@{','.join(f'{float(x):g}' for x in site[1])}"
+    return str(site)
+
+
+def _species_text(element, charge):
+    return element if charge is None else f"{element}:{float(charge):+g}"
+
+
+def _find_site(supercell: Supercell, site):
+    """Supercell index of ``site``: an int (the supercell index), a site label or element (its copy
+    in the first cell), or ``(label, fractional point)`` (the copy nearest that point of the
+    supercell, in supercell fractional coordinates)."""
     crystal = supercell.crystal
-    spec = str(spec).strip()
-    if spec.startswith("#"):
-        try:
-            index = int(spec[1:])
-        except ValueError:
-            raise InputError(f"site {spec!r}: #INDEX needs an integer") from None
+    if isinstance(site, (int, np.integer)) and not isinstance(site, bool):
+        index = int(site)
         if not 0 <= index < len(crystal):
-            raise InputError(f"site {spec!r}: the supercell has sites #0..#{len(crystal) - 1}")
+            raise InputError(f"site #{index}: the supercell has sites #0..#{len(crystal) - 1}")
         return index
-    match = _SITE_AT.match(spec)
-    if not match:
-        raise InputError(f"site {spec!r} not understood; give a site label such as O1, O1@0.5,0.5,0.5 or #INDEX")
-    label = match.group("label").strip()
+    at = None
+    if isinstance(site, tuple) and len(site) == 2 and isinstance(site[0], str):
+        label, at = site[0].strip(), _fractional_point(site[1], f"site {site[0]!r}: position")
+    elif isinstance(site, str) and site.strip():
+        label = site.strip()
+    else:
+        raise InputError(f"site {site!r} not understood; give a site label, (label, fractional point) or an index")
     candidates = [i for i, lab in enumerate(crystal.labels) if lab == label]
     if not candidates:
         candidates = [i for i, sym in enumerate(crystal.symbols) if sym == label]
     if not candidates:
         known = ", ".join(dict.fromkeys(supercell.parent.labels))
         raise InputError(f"{_where(crystal)}site label {label!r} does not exist (labels: {known})")
-    if match.group("at") is None:
+    if at is None:
         return candidates[0]
-    target = _parse_vector(match.group("at"), "site position") @ crystal.cell
+    target = at @ crystal.cell
     frac = wrapped_fractional(crystal.cell, crystal.positions[candidates])
     distance = _periodic_distance(crystal.cell, frac, wrapped_fractional(crystal.cell, target[None])[0])
     return candidates[int(np.argmin(distance))]
 
 
-def _parse_species(text, what):
-    """``Al``, ``Al:+3`` or ``Al+3`` into (element, charge or None)."""
-    text = str(text).strip()
-    match = re.match(r"^([A-Z][a-z]?)\s*(?::\s*([+-]?\d+(?:\.\d+)?)|([+-]\d+(?:\.\d+)?))?$", text)
-    if not match:
-        raise InputError(f"{what} {text!r} must be an element with an optional charge, e.g. Al:+3")
-    element = match.group(1)
-    value = match.group(2) or match.group(3)
-    return element, (None if value is None else float(value))
+def _species(value, what):
+    """``"Al"`` or ``("Al", 3)`` into (element, charge or None)."""
+    element, charge = (value, None) if isinstance(value, str) else tuple(value) if \
+        isinstance(value, (tuple, list)) and len(value) == 2 else (None, None)
+    if not isinstance(element, str) or not element.strip():
+        raise InputError(f"{what}: the new species {value!r} must be an element, or (element, charge)")
+    if charge is not None:
+        try:
+            charge = float(charge)
+        except (TypeError, ValueError):
+            raise InputError(f"{what}: charge {charge!r} is not a number") from None
+        if not math.isfinite(charge):
+            raise InputError(f"{what}: charge {charge!r} is not a finite number")
+    return element.strip(), charge
 
 
 def _species_charge(element, charge, crystal, what):
@@ -223,16 +281,17 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
     ----------
     crystal : Crystal
         The perfect crystal (its cell is the parent cell).
-    vacancy : sequence of str
-        Sites to empty: a label (``"O1"``: its copy in the first cell), ``"O1@x,y,z"`` (the copy
-        nearest a fractional point of the supercell) or ``"#INDEX"`` (supercell index).
-    substitute : sequence of str
-        ``"SITE=ELEMENT"`` or ``"SITE=ELEMENT:CHARGE"`` (e.g. ``"Mg1=Al:+3"``); without a charge
-        the element's charge in the crystal, or its only common oxidation state, is used.
-    interstitial : sequence of str
-        ``"x,y,z=ELEMENT[:CHARGE]"`` with x, y, z fractional coordinates of the parent cell.
-    supercell : str, int or (3, 3) ints, optional
-        Repeats such as ``"3x3x3"`` or a matrix; or give ``smallest_plane_spacing`` (Å) for the smallest
+    vacancy : sequence of sites
+        Sites to empty. A site is a label or element (``"O1"``: its copy in the first cell),
+        ``(label, (x, y, z))`` (the copy nearest a fractional point of the supercell) or an int
+        (supercell index). One site alone may be given without a list.
+    substitute : mapping of site to species
+        ``{site: element}`` or ``{site: (element, charge)}`` (e.g. ``{"Mg1": ("Al", 3)}``); without a
+        charge the element's charge in the crystal, or its only common oxidation state, is used.
+    interstitial : sequence of (fractional point, element) or (fractional point, element, charge)
+        Ions to add at fractional coordinates of the parent cell, e.g. ``[((0.5, 0.5, 0.5), "Li")]``.
+    supercell : int, three ints or (3, 3) ints, optional
+        Repeats such as ``(3, 3, 3)`` or a matrix; or give ``smallest_plane_spacing`` (Å) for the smallest
         near-cubic supercell whose plane spacings all reach it. Default: the cell itself.
     tol : float
         Accuracy of the Ewald sums.
@@ -249,7 +308,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
     -----
     Charge compensation is explicit: a charged set of defects is summed with a uniform
     neutralizing background (``background`` says so), or the user adds a compensating defect
-    (e.g. a Schottky pair ``vacancy=["Mg1", "O1@0.5,0.5,0.5"]``). The energy change obeys
+    (e.g. a Schottky pair ``vacancy=["Mg1", ("O1", (0.5, 0.5, 0.5))]``). The energy change obeys
     Delta E = sum_d Dq_d phi(r_d) + E_Ewald(defect charges) exactly (module docstring); the
     result carries the residual of that identity as a check.
 
@@ -259,9 +318,12 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
     P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
     started = time.perf_counter()
-    vacancy, substitute, interstitial = ([vacancy] if isinstance(vacancy, str) else list(vacancy),
-                                         [substitute] if isinstance(substitute, str) else list(substitute),
-                                         [interstitial] if isinstance(interstitial, str) else list(interstitial))
+    single = (str, int, np.integer)
+    vacancy = [vacancy] if isinstance(vacancy, single) else list(vacancy or ())
+    if substitute and not isinstance(substitute, Mapping):
+        raise InputError("substitutions must be a mapping of site to new species, e.g. {\"Mg1\": (\"Al\", 3)}")
+    substitute = dict(substitute or {})
+    interstitial = list(interstitial or ())
     if not (vacancy or substitute or interstitial):
         raise InputError("no defect given: name a vacancy, a substitution or an interstitial")
     sc = tile_supercell(crystal, supercell, smallest_plane_spacing)
@@ -270,23 +332,22 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
 
     changes = []  # (kind, spec, index, new element, new charge, position)
     used = {}
-    for spec in vacancy:
-        index = _find_site(sc, spec)
-        changes.append(("vacancy", str(spec), index, "", 0.0, big.positions[index]))
-    for spec in substitute:
-        site, sep, species = str(spec).partition("=")
-        if not sep:
-            raise InputError(f"substitution {spec!r} must look like SITE=ELEMENT, e.g. Mg1=Al:+3")
+    for site in vacancy:
         index = _find_site(sc, site)
-        element, charge = _parse_species(species, f"substitution {spec!r}")
+        changes.append(("vacancy", _site_text(site), index, "", 0.0, big.positions[index]))
+    for site, value in substitute.items():
+        element, charge = _species(value, f"substitution of {_site_text(site)}")
+        spec = f"{_site_text(site)}={_species_text(element, charge)}"
+        index = _find_site(sc, site)
         charge = _species_charge(element, charge, crystal, f"substitution {spec!r}")
-        changes.append(("substitution", str(spec), index, element, charge, big.positions[index]))
-    for spec in interstitial:
-        where_text, sep, species = str(spec).partition("=")
-        if not sep:
-            raise InputError(f"interstitial {spec!r} must look like x,y,z=ELEMENT, e.g. 0.5,0.5,0.5=Li")
-        frac = _parse_vector(where_text, f"interstitial {spec!r}: position")
-        element, charge = _parse_species(species, f"interstitial {spec!r}")
+        changes.append(("substitution", spec, index, element, charge, big.positions[index]))
+    for entry in interstitial:
+        if not isinstance(entry, (tuple, list)) or len(entry) not in (2, 3):
+            raise InputError(f"interstitial {entry!r} must be (fractional point, element) or "
+                             "(fractional point, element, charge)")
+        frac = _fractional_point(entry[0], "interstitial position")
+        element, charge = _species(tuple(entry[1:]) if len(entry) == 3 else entry[1], "interstitial")
+        spec = f"{','.join(f'{x:g}' for x in frac)}={_species_text(element, charge)}"
         charge = _species_charge(element, charge, crystal, f"interstitial {spec!r}")
         position = frac @ crystal.cell
         distances = _distances_to_ions(big.cell, big.positions, position)
@@ -294,7 +355,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
         if distances[j] < max(crystal.min_distance, ON_ION_DISTANCE):
             raise InputError(f"{where}interstitial {spec!r} lies {distances[j]:.3f} Å from ion {big.labels[j]}, "
                              "on top of an existing ion")
-        changes.append(("interstitial", str(spec), -1, element, charge, position))
+        changes.append(("interstitial", spec, -1, element, charge, position))
     for kind, spec, index, *_ in changes:
         if index >= 0:
             if index in used:
@@ -404,19 +465,20 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
 
 
 def vacancy_energy(crystal, site, **options) -> DefectResult:
-    """One vacancy (see :func:`defect_energy` for the options)."""
+    """One vacancy (see :func:`defect_energy` for sites and options)."""
     return defect_energy(crystal, vacancy=[site], **options)
 
 
-def substitution_energy(crystal, site, species, **options) -> DefectResult:
-    """One substitution ``site`` -> ``species`` (``"Al"`` or ``"Al:+3"``); see :func:`defect_energy`."""
-    return defect_energy(crystal, substitute=[f"{site}={species}"], **options)
+def substitution_energy(crystal, site, element, charge=None, **options) -> DefectResult:
+    """One substitution of the ion on ``site`` by ``element`` (with ``charge``, e, or the default of
+    :func:`defect_energy`)."""
+    return defect_energy(crystal, substitute={site: (element, charge)}, **options)
 
 
-def interstitial_energy(crystal, fractional, species, **options) -> DefectResult:
-    """One interstitial at parent fractional coordinates; see :func:`defect_energy`."""
-    text = ",".join(repr(float(x)) for x in np.asarray(fractional, float).ravel())
-    return defect_energy(crystal, interstitial=[f"{text}={species}"], **options)
+def interstitial_energy(crystal, fractional, element, charge=None, **options) -> DefectResult:
+    """One interstitial ``element`` (with ``charge``, e) at parent fractional coordinates; see
+    :func:`defect_energy`."""
+    return defect_energy(crystal, interstitial=[(fractional, element, charge)], **options)
 
 
 @dataclass(frozen=True)
@@ -439,6 +501,14 @@ class DefectSeries:
     dilute_limit: float
     slope: float
     madelung_estimate: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready: repeats, lengths Å, energy changes and image-corrected values eV, the fit's
+        dilute limit eV and slope eV Å, and the Madelung-site-potential estimate eV."""
+        return {"repeats": list(self.repeats), "lengths_angstrom": np.asarray(self.lengths).tolist(),
+                "energy_changes_eV": np.asarray(self.energy_changes).tolist(),
+                "corrected_eV": np.asarray(self.corrected).tolist(), "fit_dilute_limit_eV": self.dilute_limit,
+                "fit_slope_eV_angstrom": self.slope, "madelung_estimate_eV": self.madelung_estimate}
 
 
 def defect_series(crystal, repeats=(1, 2, 3), *, supercell=None, smallest_plane_spacing=None, **defects) -> DefectSeries:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -44,6 +43,16 @@ class PotentialGrid:
     def fractional_points(self):
         """(n1*n2*n3, 3) fractional coordinates of the grid points, in the order of ``values.ravel()``."""
         return grid_fractional(self.shape)
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the grid's shape, cell Å, steps Å, smearing Å, the values V (nested n1 x n2 x n3),
+        their range and mean V, the sum's parameters and the error estimate V."""
+        values = np.asarray(self.values)
+        return {"grid_shape": list(self.shape), "cell_angstrom": np.asarray(self.cell).tolist(),
+                "grid_step_angstrom": np.asarray(self.spacing).tolist(), "smearing_angstrom": self.smearing,
+                "potential_min_V": float(values.min()), "potential_max_V": float(values.max()),
+                "potential_mean_V": float(values.mean()), "values_V": values.tolist(),
+                "parameters": self.params.to_dict(), "error_estimate_V": self.error_estimate}
 
     def cartesian_points(self):
         return self.fractional_points() @ self.cell
@@ -171,21 +180,28 @@ class PlaneSection:
     atoms: tuple
     smearing: float
 
+    def to_dict(self) -> dict:
+        """JSON-ready: the plane (Miller indices, offset), its origin and in-plane vectors Å, the values
+        V (n_u x n_v) and their range, the ions in the plane (s, t, label, charge e, distance Å)."""
+        return {"plane": list(self.miller), "offset": self.offset, "origin_angstrom": np.asarray(self.origin).tolist(),
+                "u_angstrom": np.asarray(self.u).tolist(), "v_angstrom": np.asarray(self.v).tolist(),
+                "plane_min_V": float(np.min(self.values)), "plane_max_V": float(np.max(self.values)),
+                "values_V": np.asarray(self.values).tolist(), "smearing_angstrom": self.smearing,
+                "ions_in_plane": [{"label": label, "s": s, "t": t, "charge_e": q, "distance_angstrom": d}
+                                  for s, t, label, q, d in self.atoms]}
 
-def parse_miller(text):
-    """``"001"``, ``"1-10"`` or ``"1,1,0"`` into three integers."""
-    text = str(text).strip()
-    if "," in text or " " in text:
-        parts = [p for p in re.split(r"[,\s]+", text) if p]
-    else:
-        parts = re.findall(r"-?\d", text)
+
+def _miller_indices(plane):
+    """Three integers, not all zero, from a Miller-index triple (text such as ``"001"`` is read by
+    the command line)."""
     try:
-        miller = tuple(int(p) for p in parts)
-    except ValueError:
-        miller = ()
-    if len(miller) != 3 or miller == (0, 0, 0):
-        raise InputError(f"plane {text!r} must be three Miller indices such as 001, 110 or 1,-1,0")
-    return miller
+        array = np.asarray(plane, dtype=float)
+    except (TypeError, ValueError):
+        array = np.zeros(0)
+    if isinstance(plane, str) or array.shape != (3,) or not np.all(np.isfinite(array)) \
+            or np.any(array != np.round(array)) or not np.any(array):
+        raise InputError(f"plane {plane!r} must be three Miller indices, not all zero, e.g. (0, 0, 1)")
+    return tuple(int(x) for x in np.round(array))
 
 
 def _in_plane_vectors(cell, miller):
@@ -203,10 +219,11 @@ def _in_plane_vectors(cell, miller):
     raise InputError(f"cannot find two lattice vectors in the plane {miller}")
 
 
-def plane_section(crystal, plane="001", offset=0.5, *, spacing=0.1, smearing=0.3, tol=SCREENING_TOL, thickness=0.5):
+def plane_section(crystal, plane=(0, 0, 1), offset=0.5, *, spacing=0.1, smearing=0.3, tol=SCREENING_TOL, thickness=0.5):
     """The potential on the lattice plane h f1 + k f2 + l f3 = offset, sampled on a mesh of
-    step ``spacing`` Å over the parallelogram of its two shortest in-plane lattice vectors."""
-    miller = parse_miller(plane) if not isinstance(plane, tuple) else plane
+    step ``spacing`` Å over the parallelogram of its two shortest in-plane lattice vectors;
+    ``plane`` is the Miller-index triple (h, k, l)."""
+    miller = _miller_indices(plane)
     try:
         offset = float(offset)
     except (TypeError, ValueError):

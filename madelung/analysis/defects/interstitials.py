@@ -124,6 +124,15 @@ class InterstitialSite:
     multiplicity: int
     found: int
 
+    def to_dict(self) -> dict:
+        """JSON-ready; position Å, potential V, energies eV, distance Å."""
+        return {"fractional": np.asarray(self.fractional).tolist(),
+                "position_angstrom": np.asarray(self.position).tolist(),
+                "potential_V": self.potential, "electrostatic_energy_eV": self.electrostatic_energy,
+                "contact_energy_eV": self.contact_energy, "total_energy_eV": self.total_energy,
+                "nearest_ion": self.nearest_label, "nearest_distance_angstrom": self.nearest_distance,
+                "multiplicity": self.multiplicity}
+
 
 @dataclass(frozen=True)
 class InterstitialSearch:
@@ -150,6 +159,14 @@ class InterstitialSearch:
     rejected: int
     error_estimate: float
     seconds: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the probe (charge e, radius Å), the ion radii Å, the search's counts, the
+        candidate sites and the potentials' error estimate V."""
+        return {"probe_charge_e": self.probe, "probe_radius_angstrom": self.probe_radius,
+                "radii_angstrom": dict(self.radii), "clearance": self.clearance, "grid_shape": list(self.grid_shape),
+                "grid_minima": self.grid_minima, "rejected": self.rejected,
+                "sites": [site.to_dict() for site in self.sites], "error_estimate_V": self.error_estimate}
 
 
 def ion_radii(crystal, radii=None):

@@ -68,6 +68,19 @@ class PointPotentials:
     net_charge: float
     seconds: float
 
+    def to_dict(self) -> dict:
+        """JSON-ready: points Å, potentials V, field V/Å (None unless asked), nearest ions (distance Å,
+        index), excluded ions, smearing Å, the sum's parameters and error estimate V."""
+        return {"points_angstrom": np.asarray(self.points).tolist(),
+                "potentials_V": np.asarray(self.potentials).tolist(),
+                "field_V_per_angstrom": None if self.field is None else np.asarray(self.field).tolist(),
+                "nearest_distance_angstrom": np.asarray(self.nearest_distance).tolist(),
+                "nearest_index": np.asarray(self.nearest_index).tolist(),
+                "excluded": np.asarray(self.excluded).tolist(),
+                "smearing_angstrom": self.smearing, "parameters": self.params.to_dict(),
+                "error_estimate_V": self.error_estimate, "background": self.background,
+                "net_charge_e": self.net_charge, "seconds": self.seconds}
+
 
 def _point_bins(bins, points):
     """Wrapped fractional and Cartesian coordinates of points, and the bin of each among ``bins``."""

@@ -34,6 +34,13 @@ class VacancyRow:
     supercell_energy: float | None
     image_term: float | None
 
+    def to_dict(self) -> dict:
+        """JSON-ready; charge e, potential V, energies eV (None without a supercell)."""
+        return {"label": self.label, "element": self.element, "charge_e": self.charge, "index": self.index,
+                "multiplicity": self.multiplicity, "potential_V": self.potential,
+                "madelung_estimate_eV": self.madelung_estimate, "supercell_energy_change_eV": self.supercell_energy,
+                "image_term_eV": self.image_term}
+
 
 @dataclass(frozen=True)
 class VacancyRanking:
@@ -43,6 +50,13 @@ class VacancyRanking:
     species: str
     supercell: Supercell | None
     error_estimate: float
+
+    def to_dict(self) -> dict:
+        """JSON-ready: the species, the supercell's repeats in words (None without one), the ranked
+        sites and the order's rule."""
+        return {"species": self.species, "supercell": None if self.supercell is None else self.supercell.describe(),
+                "sites": [row.to_dict() for row in self.rows],
+                "ranking": "lowest Madelung-site-potential estimate -q*phi first"}
 
 
 def vacancy_ranking(crystal, species="anions", *, supercell=None, smallest_plane_spacing=None, tol=SUM_TOL, symmetry_tolerance=SYMMETRY_TOLERANCE):
@@ -87,7 +101,7 @@ def vacancy_ranking(crystal, species="anions", *, supercell=None, smallest_plane
         phi = float(bulk.potentials[rep])
         energy = image = None
         if sc is not None:
-            result = defect_energy(crystal, vacancy=[f"#{rep}"], supercell=sc.matrix, tol=tol, neighbour_radius=0)
+            result = defect_energy(crystal, vacancy=[int(rep)], supercell=sc.matrix, tol=tol, neighbour_radius=0)
             energy = result.energy_change
             image = result.defect_array_energy
         rows.append(VacancyRow(label=crystal.labels[rep], element=crystal.symbols[rep], charge=q, index=rep,
