@@ -63,7 +63,7 @@ def test_a_plan_for_unit_charges_serves_the_crystals_own(name, constant):
 
 def test_describe_reuses_one_plan_without_losing_accuracy():
     crystal = load("rocksalt-NaCl")
-    row = madelung.describe(crystal, tol=1e-10)
+    row = madelung.describe(crystal, tol=1e-10).to_dict()
     assert row["madelung_handbook"] == pytest.approx(ROCK_SALT, abs=1e-9)
     matrix = coulomb_matrix(crystal.cell, crystal.positions, tol=1e-10)
     q = np.asarray(crystal.charges)
