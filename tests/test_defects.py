@@ -275,3 +275,14 @@ def test_defect_series_extrapolates_to_the_madelung_estimate():
     assert series.dilute_limit == pytest.approx(series.madelung_estimate, abs=1e-6)
     assert series.slope == pytest.approx(-4.0 * ALPHA_SC * K_E / 2.0, rel=2e-5)
     assert np.allclose(series.corrected, series.madelung_estimate, atol=1e-6)
+
+
+def test_a_site_at_a_point_is_the_same_site_in_every_supercell():
+    # (label, point) is read in the input cell's fractional coordinates, as interstitial points are,
+    # so a series over growing supercells follows one site (rock salt: O at (1/2, 1/2, 1/2) of the
+    # conventional cell, a fact of the trade)
+    crystal = _load("rocksalt-MgO.cif")
+    target = np.array([0.5, 0.5, 0.5]) @ crystal.cell
+    for repeats in (1, 2, 3):
+        result = defect_energy(crystal, vacancy=[("O1", (0.5, 0.5, 0.5))], supercell=repeats, tol=1e-8)
+        assert np.allclose(result.defects[0].position, target, atol=1e-9)

@@ -144,7 +144,7 @@ def _add_defect(sub):
     _common(parser)
     parser.add_argument("--vacancy", action="append", default=[], metavar="SITE",
                         help="empty a site: LABEL (its copy in the first cell), LABEL@x,y,z (copy nearest that "
-                             "supercell fractional point) or #INDEX; repeat for several")
+                             "fractional point of the input cell) or #INDEX; repeat for several")
     parser.add_argument("--substitute", action="append", default=[], metavar="SITE=EL[:Q]",
                         help="replace the ion on SITE by element EL with charge Q, e.g. Mg1=Al:+3")
     parser.add_argument("--interstitial", action="append", default=[], metavar="x,y,z=EL[:Q]",

@@ -212,8 +212,9 @@ def _species_text(element, charge):
 
 def _find_site(supercell: Supercell, site):
     """Supercell index of ``site``: an int (the supercell index), a site label or element (its copy
-    in the first cell), or ``(label, fractional point)`` (the copy nearest that point of the
-    supercell, in supercell fractional coordinates)."""
+    in the first cell), or ``(label, fractional point)`` (the copy nearest that point, in fractional
+    coordinates of the parent cell, as interstitial positions are: the same point in every
+    supercell of a series)."""
     crystal = supercell.crystal
     if isinstance(site, (int, np.integer)) and not isinstance(site, bool):
         index = int(site)
@@ -235,7 +236,7 @@ def _find_site(supercell: Supercell, site):
         raise InputError(f"{_where(crystal)}site label {label!r} does not exist (labels: {known})")
     if at is None:
         return candidates[0]
-    target = at @ crystal.cell
+    target = at @ supercell.parent.cell
     frac = wrapped_fractional(crystal.cell, crystal.positions[candidates])
     distance = _periodic_distance(crystal.cell, frac, wrapped_fractional(crystal.cell, target[None])[0])
     return candidates[int(np.argmin(distance))]
@@ -283,7 +284,7 @@ def defect_energy(crystal, *, vacancy=(), substitute=(), interstitial=(), superc
         The perfect crystal (its cell is the parent cell).
     vacancy : sequence of sites
         Sites to empty. A site is a label or element (``"O1"``: its copy in the first cell),
-        ``(label, (x, y, z))`` (the copy nearest a fractional point of the supercell) or an int
+        ``(label, (x, y, z))`` (the copy nearest a fractional point of the parent cell) or an int
         (supercell index). One site alone may be given without a list.
     substitute : mapping of site to species
         ``{site: element}`` or ``{site: (element, charge)}`` (e.g. ``{"Mg1": ("Al", 3)}``); without a
