@@ -130,6 +130,43 @@ def build_parser(command=None, *, every=True):
     return parser
 
 
+#: What a first run costs, said in the notice: the kernels of one small command, compiled on one
+#: core of this project's reference machine (benchmarks/startup.py measures it).
+FIRST_COMPILE_TEXT = "about 10 to 30 s"
+
+
+def _check_input_file(args):
+    """A structure file named on the command line that does not exist: refused before the command's
+    libraries load (the loader says the same later; with several files each gets its own row)."""
+    path = getattr(args, "file", None)
+    if isinstance(path, str) and not getattr(args, "more_files", None) and not os.path.exists(path):
+        raise InputError(f"{path}: no such file")
+
+
+def _compile_notice(stream):
+    """Say once, on ``stream`` if it is a terminal, when Numba starts compiling a kernel its cache
+    lacks (a first run on this machine); returns a function that stops listening."""
+    if not getattr(stream, "isatty", lambda: False)():
+        return lambda: None
+    from numba.core import event   # the library's own event hook; loaded only for a command that runs
+
+    class Notice(event.Listener):
+        said = False
+
+        def on_start(self, data):
+            if not self.said:
+                self.said = True
+                print(f"madelung: compiling the numerical kernels for first use (once per machine, "
+                      f"{FIRST_COMPILE_TEXT}; 'madelung compile' does them all ahead)...", file=stream, flush=True)
+
+        def on_end(self, data):
+            pass
+
+    notice = Notice()
+    event.register("numba:compile", notice)
+    return lambda: event.unregister("numba:compile", notice)
+
+
 def _quiet_stdout():
     """The reader closed the pipe: point stdout at /dev/null so the final flush stays silent."""
     try:
@@ -149,9 +186,13 @@ def main(argv=None):
         return 2
     _, run = COMMANDS[args.command]
     stdout = sys.stdout
+    stop_notice = lambda: None  # noqa: E731
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", MadelungWarning)
         try:
+            _check_input_file(args)
+            if args.command != "compile":
+                stop_notice = _compile_notice(sys.stderr)
             sys.stdout = import_module(f"{__package__}.output")._FiniteOutput(stdout)
             code = run(args)
             sys.stdout = stdout
@@ -175,6 +216,7 @@ def main(argv=None):
             return 1
         finally:
             sys.stdout = stdout
+            stop_notice()
             for w in caught:
                 if issubclass(w.category, MadelungWarning):
                     print(f"madelung: warning: {w.message}", file=sys.stderr)
