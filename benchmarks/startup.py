@@ -7,10 +7,13 @@ cores. Baselines measured in the same run: a bare ``python -c pass`` and ``impor
 The cold cases run with stderr on a pseudo-terminal, as a user sees them, to show whether the
 "compiling..." notice appeared (it is printed only when the cache lacks a kernel, only to a terminal).
 
+``--before DIR`` runs the same cases on another checkout of the package (say an export of an
+earlier commit: ``git archive main | tar -x -C DIR``) and adds its times as columns.
+
 ``--detail`` adds the CPU cost of compiling each heavy kernel with its own parallel options
 against its one-thread twin (``madelung.sums._kernels.variants``), compiled in-process from scratch.
 
-    python benchmarks/startup.py [--repeat 3] [--no-cold] [--detail]
+    python benchmarks/startup.py [--repeat 3] [--no-cold] [--detail] [--before DIR]
 """
 
 from __future__ import annotations
@@ -37,8 +40,8 @@ HEAVY_KERNELS = ("kernels.real_space_terms", "kernels.structure_factors", "kerne
                  "geometry_kernels.closest_distance", "geometry_kernels.nearest_neighbours")
 
 
-def _environment(cache_dir=None):
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([ROOT, os.environ.get("PYTHONPATH", "")]))
+def _environment(cache_dir=None, root=ROOT):
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([root, os.environ.get("PYTHONPATH", "")]))
     if cache_dir is not None:
         env["NUMBA_CACHE_DIR"] = cache_dir
     return env
@@ -78,11 +81,11 @@ def best_of(command, repeat, env):
     return min(r[0] for r in runs), min(r[1] for r in runs), runs[-1][2], runs[-1][3]
 
 
-def cold(command):
+def cold(command, root=ROOT):
     """One run with a new, empty Numba cache, stderr on a terminal."""
     folder = tempfile.mkdtemp(prefix="madelung-cold-cache-")
     try:
-        return run_once(command, _environment(folder), terminal=True)
+        return run_once(command, _environment(folder, root), terminal=True)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
 
@@ -129,18 +132,12 @@ for which in sys.argv[2:]:
                 title="\nCompiling from scratch, CPU seconds (the twin is what a small first command compiles)")
 
 
-def main():
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--repeat", type=int, default=3)
-    parser.add_argument("--no-cold", action="store_true", help="skip the cold (empty cache) runs")
-    parser.add_argument("--detail", action="store_true", help="also compile the heavy kernels both ways")
-    args = parser.parse_args()
-    env = _environment()
-    print(f"load average at start {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
+def measure(root, repeat, with_cold):
+    """{case: (wall s, CPU s, note)} for the package at ``root``."""
+    env = _environment(root=root)
     # warm the cache once for the warm cases (a no-op when it is warm already)
     run_once(CLI + ["constant", NACL], env)
     run_once(CLI + ["energy", SPINEL], env)
-
     cases = [
         ("python -c pass (baseline)", [sys.executable, "-c", "pass"], 0),
         ("import numpy, scipy (baseline)", [sys.executable, "-c", "import numpy, scipy"], 0),
@@ -153,24 +150,44 @@ def main():
     ]
     measured = {}
     for name, command, expected in cases:
-        wall, cpu, code, err = best_of(command, args.repeat, env)
+        wall, cpu, code, err = best_of(command, repeat, env)
         if code != expected:
             print(f"  {name}: exit code {code}, expected {expected}: {err.strip()[-300:]}")
         measured[name] = (wall, cpu, "")
-    if not args.no_cold:
+    if with_cold:
         for name, command in (("cold: constant rocksalt-NaCl.cif", CLI + ["constant", NACL]),
                               ("cold: energy spinel-MgAl2O4.cif", CLI + ["energy", SPINEL])):
-            wall, cpu, code, err = cold(command)
+            wall, cpu, code, err = cold(command, root)
             measured[name] = (wall, cpu, "notice shown" if NOTICE in err else "no notice")
             if code != 0:
                 print(f"  {name}: exit code {code}: {err.strip()[-300:]}")
+    return measured
 
-    bare_wall, bare_cpu, _ = measured["python -c pass (baseline)"]
-    libs_wall, libs_cpu, _ = measured["import numpy, scipy (baseline)"]
-    rows = [[name, f"{wall:.3f}", f"{cpu:.3f}", f"{wall / bare_wall:.1f}", f"{wall / libs_wall:.1f}", note]
-            for name, (wall, cpu, note) in measured.items()]
-    print_table(["case", "wall s", "CPU s", "/ python pass", "/ numpy+scipy", "note"], rows,
-                title=f"\nStart-up times, best of {args.repeat} (cold: one run, fresh NUMBA_CACHE_DIR)")
+
+def main():
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--no-cold", action="store_true", help="skip the cold (empty cache) runs")
+    parser.add_argument("--detail", action="store_true", help="also compile the heavy kernels both ways")
+    parser.add_argument("--before", metavar="DIR", help="another checkout to time the same way, for comparison")
+    args = parser.parse_args()
+    print(f"load average at start {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
+    measured = measure(ROOT, args.repeat, not args.no_cold)
+    before = measure(os.path.abspath(args.before), args.repeat, not args.no_cold) if args.before else None
+
+    bare_wall = measured["python -c pass (baseline)"][0]
+    libs_wall = measured["import numpy, scipy (baseline)"][0]
+    headers = ["case", "wall s", "CPU s", "/ python pass", "/ numpy+scipy", "note"]
+    if before:
+        headers += ["before wall s", "before CPU s", "CPU before/now"]
+    rows = []
+    for name, (wall, cpu, note) in measured.items():
+        row = [name, f"{wall:.3f}", f"{cpu:.3f}", f"{wall / bare_wall:.1f}", f"{wall / libs_wall:.1f}", note]
+        if before:
+            b_wall, b_cpu, _ = before[name]
+            row += [f"{b_wall:.3f}", f"{b_cpu:.3f}", f"{b_cpu / max(cpu, 1e-9):.1f}"]
+        rows.append(row)
+    print_table(headers, rows, title=f"\nStart-up times, best of {args.repeat} (cold: one run, fresh NUMBA_CACHE_DIR)")
     print(f"load average at end {os.getloadavg()[0]:.2f}")
 
     targets = [("warm constant under 1 s wall", measured["warm: constant rocksalt-NaCl.cif"][0] < 1.0),
@@ -183,7 +200,6 @@ def main():
         print(f"  {text}: {verdict(ok)}")
     if args.detail:
         compile_detail()
-
 
 if __name__ == "__main__":
     main()
