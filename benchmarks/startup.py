@@ -47,13 +47,14 @@ def _environment(cache_dir=None, root=ROOT):
     return env
 
 
-def run_once(command, env, terminal=False):
-    """(wall s, CPU s of the child, exit code, stderr text) of one run of ``command``."""
+def run_once(command, env, terminal=False, cwd=ROOT):
+    """(wall s, CPU s of the child, exit code, stderr text) of one run of ``command`` in ``cwd``
+    (``python -m`` and ``-c`` put the working folder first on the path: it must be the checkout timed)."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
     if terminal:
         master, slave = pty.openpty()
-        process = subprocess.Popen(command, env=env, stdout=subprocess.DEVNULL, stderr=slave, cwd=ROOT)
+        process = subprocess.Popen(command, env=env, stdout=subprocess.DEVNULL, stderr=slave, cwd=cwd)
         os.close(slave)
         chunks = []
         while True:
@@ -67,7 +68,7 @@ def run_once(command, env, terminal=False):
         os.close(master)
         code, err = process.wait(), b"".join(chunks).decode(errors="replace")
     else:
-        done = subprocess.run(command, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT)
+        done = subprocess.run(command, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=cwd)
         code, err = done.returncode, done.stderr.decode(errors="replace")
     wall = time.perf_counter() - started
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -75,9 +76,9 @@ def run_once(command, env, terminal=False):
     return wall, cpu, code, err
 
 
-def best_of(command, repeat, env):
+def best_of(command, repeat, env, cwd=ROOT):
     """Best wall and best CPU time of ``repeat`` runs, and the last exit code and stderr."""
-    runs = [run_once(command, env) for _ in range(repeat)]
+    runs = [run_once(command, env, cwd=cwd) for _ in range(repeat)]
     return min(r[0] for r in runs), min(r[1] for r in runs), runs[-1][2], runs[-1][3]
 
 
@@ -85,7 +86,7 @@ def cold(command, root=ROOT):
     """One run with a new, empty Numba cache, stderr on a terminal."""
     folder = tempfile.mkdtemp(prefix="madelung-cold-cache-")
     try:
-        return run_once(command, _environment(folder, root), terminal=True)
+        return run_once(command, _environment(folder, root), terminal=True, cwd=root)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
 
@@ -136,8 +137,8 @@ def measure(root, repeat, with_cold):
     """{case: (wall s, CPU s, note)} for the package at ``root``."""
     env = _environment(root=root)
     # warm the cache once for the warm cases (a no-op when it is warm already)
-    run_once(CLI + ["constant", NACL], env)
-    run_once(CLI + ["energy", SPINEL], env)
+    run_once(CLI + ["constant", NACL], env, cwd=root)
+    run_once(CLI + ["energy", SPINEL], env, cwd=root)
     cases = [
         ("python -c pass (baseline)", [sys.executable, "-c", "pass"], 0),
         ("import numpy, scipy (baseline)", [sys.executable, "-c", "import numpy, scipy"], 0),
@@ -150,7 +151,7 @@ def measure(root, repeat, with_cold):
     ]
     measured = {}
     for name, command, expected in cases:
-        wall, cpu, code, err = best_of(command, repeat, env)
+        wall, cpu, code, err = best_of(command, repeat, env, cwd=root)
         if code != expected:
             print(f"  {name}: exit code {code}, expected {expected}: {err.strip()[-300:]}")
         measured[name] = (wall, cpu, "")
