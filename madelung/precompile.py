@@ -3,7 +3,10 @@
 The first sum on a new machine compiles every kernel it touches (about a minute in all); later
 runs load them from the cache in ``__pycache__`` beside the modules (or ``NUMBA_CACHE_DIR``).
 :func:`compile_kernels` runs each engine once on a two-ion rock-salt cell so that the cache is
-filled before the first real job: for cluster images, containers and CI.
+filled before the first real job: for cluster images, containers and CI. A two-ion cell runs on
+one thread, which compiles the one-thread twin of each parallel kernel
+(:mod:`madelung.sums._kernels.variants`); a last step compiles the parallel kernels themselves for
+the same argument types, for large jobs.
 """
 
 from __future__ import annotations
@@ -19,6 +22,8 @@ from .sums.direct import ewald_direct
 from .sums.matrix import coulomb_matrix
 from .sums.mesh import ewald_mesh
 from .sums.shortrange import PairPotential, RepulsionModel, shortrange
+from .sums._kernels import geometry_kernels, kernels
+from .sums._kernels.variants import SerialOnOneThread
 
 
 @dataclass(frozen=True)
@@ -63,7 +68,17 @@ def _steps():
         ("potential and field at points", lambda: potential_at(crystal, points, tol=1e-8, field=True)),
         ("smeared ions at points", lambda: potential_at(crystal, points, tol=1e-8, smearing=0.3)),
         ("short-range pair terms", lambda: shortrange(crystal, model, forces=True, stress=True)),
+        ("parallel variants of the kernels above, for large jobs", _parallel_variants),
     ]
+
+
+def _parallel_variants():
+    """Compile each parallel kernel for every argument type its one-thread twin was compiled for."""
+    for module in (kernels, geometry_kernels):
+        for twin in vars(module).values():
+            if isinstance(twin, SerialOnOneThread):
+                for signature in twin.serial.signatures:
+                    twin.parallel.compile(signature)
 
 
 def compile_kernels(progress=None) -> CompileResult:

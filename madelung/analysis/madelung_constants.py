@@ -47,6 +47,7 @@ from ..units import COULOMB_CONSTANT
 from ..sums.direct import run_direct
 from ..sums.dispatch import ewald
 from ..defaults import SUM_TOL
+from .conventions import CONVENTION_TEXT
 
 CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
 
@@ -70,13 +71,6 @@ def mean_first_shell_distance(crystal, to_opposite=None) -> float:
     nearest = to_opposite[cations][owner]
     shell = distance <= FIRST_SHELL_FACTOR * nearest * (1 + 1e-9)
     return float(np.mean(distance[shell]))
-
-CONVENTION_TEXT = {
-    "charges_left_in": "E_fu = -M k_e / r0 (ion charges inside M)",
-    "handbook": "E_fu = -M z+ |z-| k_e / r0 (one cation and one anion kind)",
-    "common_factor": "E_fu = -M Z^2 k_e / r0 (Z: highest common factor of the charges)",
-    "site": "M_i = -phi_i r0 / (k_e q_i) (site potential in units of k_e q_i / r0)",
-}
 
 
 @dataclass(frozen=True)

@@ -12,20 +12,11 @@ import os
 import sys
 import warnings
 
+from importlib import import_module
+
 from .. import __version__
 from ..errors import InputError
 from ..errors import MadelungWarning
-from .charges import _add_charges, _run_charges
-from .compile import _add_compile, _run_compile
-from .defects import (
-    _add_correction, _add_defect, _add_interstitials, _add_map, _run_correction, _run_defect, _run_interstitials,
-    _run_map)
-from .embed import _add_embed, _run_embed
-from .energy import _add_constant, _add_energy, _add_sites, _run_constant, _run_energy, _run_sites
-from .lattice import _add_cycle, _add_eos, _add_fit, _add_relax, _run_cycle, _run_eos, _run_fit, _run_relax
-from .orderings import _add_orderings, _run_orderings
-from .output import _FiniteOutput
-from .screen import _add_demo, _add_screen, _run_demo, _run_screen
 
 
 DESCRIPTION = """\
@@ -47,28 +38,83 @@ class _Parser(argparse.ArgumentParser):
                      "--help)\n")
 
 
+class _Deferred:
+    """A function of a command module, imported on its first call.
+
+    Each command module loads what its work needs (NumPy, the sums, ASE, ...); importing only the
+    one command that runs keeps ``--help``, ``--version`` and argument errors of the other commands
+    from paying for every command's imports.
+    """
+
+    def __init__(self, module, name):
+        self.module, self.name = module, name
+
+    def __call__(self, *args, **kwargs):
+        return getattr(import_module(f"{__package__}.{self.module}"), self.name)(*args, **kwargs)
+
+    def __repr__(self):
+        return f"<{__package__}.{self.module}.{self.name}, imported on first call>"
+
+
+def _command(module, add, run):
+    return _Deferred(module, add), _Deferred(module, run)
+
+
+#: Command -> (declare its options, run it), each from its own module, imported when used.
 COMMANDS = {
-    "energy": (_add_energy, _run_energy),
-    "sites": (_add_sites, _run_sites),
-    "charges": (_add_charges, _run_charges),
-    "constant": (_add_constant, _run_constant),
-    "screen": (_add_screen, _run_screen),
-    "demo": (_add_demo, _run_demo),
-    "map": (_add_map, _run_map),
-    "interstitials": (_add_interstitials, _run_interstitials),
-    "defect": (_add_defect, _run_defect),
-    "correction": (_add_correction, _run_correction),
-    "fit": (_add_fit, _run_fit),
-    "cycle": (_add_cycle, _run_cycle),
-    "relax": (_add_relax, _run_relax),
-    "eos": (_add_eos, _run_eos),
-    "embed": (_add_embed, _run_embed),
-    "orderings": (_add_orderings, _run_orderings),
-    "compile": (_add_compile, _run_compile),
+    "energy": _command("energy", "_add_energy", "_run_energy"),
+    "sites": _command("energy", "_add_sites", "_run_sites"),
+    "charges": _command("charges", "_add_charges", "_run_charges"),
+    "constant": _command("energy", "_add_constant", "_run_constant"),
+    "screen": _command("screen", "_add_screen", "_run_screen"),
+    "demo": _command("screen", "_add_demo", "_run_demo"),
+    "map": _command("defects", "_add_map", "_run_map"),
+    "interstitials": _command("defects", "_add_interstitials", "_run_interstitials"),
+    "defect": _command("defects", "_add_defect", "_run_defect"),
+    "correction": _command("defects", "_add_correction", "_run_correction"),
+    "fit": _command("lattice", "_add_fit", "_run_fit"),
+    "cycle": _command("lattice", "_add_cycle", "_run_cycle"),
+    "relax": _command("lattice", "_add_relax", "_run_relax"),
+    "eos": _command("lattice", "_add_eos", "_run_eos"),
+    "embed": _command("embed", "_add_embed", "_run_embed"),
+    "orderings": _command("orderings", "_add_orderings", "_run_orderings"),
+    "compile": _command("compile", "_add_compile", "_run_compile"),
+}
+
+#: The one-line summary of each command in ``madelung --help`` (the same words as the ``help`` of
+#: its own sub-parser; a test keeps the two alike), so that the list needs no command module.
+SUMMARIES = {
+    "energy": "electrostatic energy of a crystal",
+    "sites": "electrostatic potential at every crystallographic site",
+    "charges": "assign oxidation states or equilibrate partial charges",
+    "constant": "Madelung constants in each named convention",
+    "screen": "descriptors of many structures into one table",
+    "demo": "screen the bundled candidate coatings and plot them",
+    "map": "potential on a grid (cube file) and a plane heat map (PNG)",
+    "interstitials": "candidate interstitial sites of a probe charge",
+    "defect": "vacancy, substitution and interstitial electrostatics in a supercell",
+    "correction": "charged-supercell image correction with a dielectric constant or tensor",
+    "fit": "fit short-range parameters to observed structures",
+    "cycle": "Born–Haber cycle lattice energy from enthalpies",
+    "relax": "relax a structure in the rigid-ion model",
+    "eos": "energy–volume scan with a Birch–Murnaghan fit",
+    "embed": "a cluster and a fitted point-charge field for embedded-cluster calculations",
+    "orderings": "rank the orderings of mixed or partly occupied sites by energy",
+    "compile": "compile every numerical kernel now, into the on-disk cache",
 }
 
 
-def build_parser():
+def _command_named(argv):
+    """The command an argument list names (its first word that is not an option), or None."""
+    for word in argv:
+        if not word.startswith("-"):
+            return word if word in COMMANDS else None
+    return None
+
+
+def build_parser(command=None, *, every=True):
+    """The parser. ``command`` set: that command is declared in full and the others by name and
+    summary only (their modules are not imported); ``every`` false with no command: all by name only."""
     parser = _Parser(prog="madelung", description=DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter,
                      epilog="Units: Å, e, eV, V; kJ/mol per formula unit. Exit codes: 0 every input done, "
                             "2 an input failed (the others still done), 1 internal error. Existing files are "
@@ -76,9 +122,49 @@ def build_parser():
     parser.add_argument("--version", action="version", version=f"madelung {__version__}")
     parser.add_argument("--debug", action="store_true", help="show a full traceback on internal errors")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-    for add, _ in COMMANDS.values():
-        add(sub)
+    for name, (add, _) in COMMANDS.items():
+        if name == command or (command is None and every):
+            add(sub)
+        else:
+            sub.add_parser(name, help=SUMMARIES[name], add_help=False)
     return parser
+
+
+#: What a first run costs, said in the notice: the kernels of one small command, compiled on one
+#: core of this project's reference machine (benchmarks/startup.py measures it).
+FIRST_COMPILE_TEXT = "about 10 to 30 s"
+
+
+def _check_input_file(args):
+    """A structure file named on the command line that does not exist: refused before the command's
+    libraries load (the loader says the same later; with several files each gets its own row)."""
+    path = getattr(args, "file", None)
+    if isinstance(path, str) and not getattr(args, "more_files", None) and not os.path.exists(path):
+        raise InputError(f"{path}: no such file")
+
+
+def _compile_notice(stream):
+    """Say once, on ``stream`` if it is a terminal, when Numba starts compiling a kernel its cache
+    lacks (a first run on this machine); returns a function that stops listening."""
+    if not getattr(stream, "isatty", lambda: False)():
+        return lambda: None
+    from numba.core import event   # the library's own event hook; loaded only for a command that runs
+
+    class Notice(event.Listener):
+        said = False
+
+        def on_start(self, data):
+            if not self.said:
+                self.said = True
+                print(f"madelung: compiling the numerical kernels for first use (once per machine, "
+                      f"{FIRST_COMPILE_TEXT}; 'madelung compile' does them all ahead)...", file=stream, flush=True)
+
+        def on_end(self, data):
+            pass
+
+    notice = Notice()
+    event.register("numba:compile", notice)
+    return lambda: event.unregister("numba:compile", notice)
 
 
 def _quiet_stdout():
@@ -91,17 +177,23 @@ def _quiet_stdout():
 
 
 def main(argv=None):
-    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    command = _command_named(argv)
+    parser = build_parser(command, every=False)
     args = parser.parse_args(argv)
     if not args.command:
         parser.print_help()
         return 2
     _, run = COMMANDS[args.command]
     stdout = sys.stdout
+    stop_notice = lambda: None  # noqa: E731
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", MadelungWarning)
         try:
-            sys.stdout = _FiniteOutput(stdout)
+            _check_input_file(args)
+            if args.command != "compile":
+                stop_notice = _compile_notice(sys.stderr)
+            sys.stdout = import_module(f"{__package__}.output")._FiniteOutput(stdout)
             code = run(args)
             sys.stdout = stdout
             stdout.flush()
@@ -124,6 +216,7 @@ def main(argv=None):
             return 1
         finally:
             sys.stdout = stdout
+            stop_notice()
             for w in caught:
                 if issubclass(w.category, MadelungWarning):
                     print(f"madelung: warning: {w.message}", file=sys.stderr)

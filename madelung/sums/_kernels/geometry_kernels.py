@@ -14,6 +14,8 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from .variants import parallel_kernel
+
 
 #: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
 #: set-up (zeros, sums of a few rows) stays serial instead of becoming parallel regions of its
@@ -76,7 +78,7 @@ def sort_into_bins(frac, counts):
     return bin_of[order], order, start
 
 
-@njit(parallel=True, cache=True)
+@parallel_kernel(parallel=True, cache=True)
 def nearest_neighbours(positions, charges, cell, counts, offsets, bin_of, bin_start, cutoff):
     """For every atom (sorted by bin): distance to the nearest other atom or image, the index of
     that atom, and the distance to the nearest atom of opposite charge sign, all within ``cutoff``
@@ -248,7 +250,7 @@ def range_origin(i, g, xs, ys, zs, shift):
     return xs[i] - shift[g, 0], ys[i] - shift[g, 1], zs[i] - shift[g, 2]
 
 
-@njit(parallel=True, cache=True, fastmath={"contract"})
+@parallel_kernel(parallel=True, cache=True, fastmath={"contract"})
 def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
     """Shortest distance between two atoms, or an atom and another's or its own image, among the
     pairs the stencil reaches (``inf`` if none), walking each pair once (``half_stencil_ranges``).

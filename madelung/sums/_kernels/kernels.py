@@ -28,6 +28,7 @@ from numba import njit, prange
 from .geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
                                 range_origin)
 from .erfc import erfc_and_gaussian
+from .variants import parallel_kernel
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
@@ -77,7 +78,7 @@ def partner_capacity(rows, bin_start):
     return width * largest + 1
 
 
-@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"}, error_model="numpy")
+@parallel_kernel(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"}, error_model="numpy")
 def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
                      alpha, r_cut, want_forces, want_virial):
     """Real-space potentials, forces and per-atom virial of the screened Coulomb sum.
@@ -279,7 +280,7 @@ def miller_rows(hkl):
     return start[:runs + 1].copy(), l_first[:runs].copy()
 
 
-@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
+@parallel_kernel(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
 def structure_factors(frac, charges, hkl, hmax, n_chunks):
     """S(k) = sum_j q_j exp(2 pi i (h f1 + k f2 + l f3)) for each Miller triple in ``hkl`` (M, 3).
 
@@ -333,7 +334,7 @@ def structure_factors(frac, charges, hkl, hmax, n_chunks):
     return total_re, total_im
 
 
-@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
+@parallel_kernel(parallel=PRANGE_ONLY, cache=True, fastmath={"reassoc", "contract"}, error_model="numpy")
 def reciprocal_site_terms(frac, charges, hkl, hmax, kvectors, weights, s_real, s_imag, want_forces):
     """Reciprocal-space potential (N,) in e/Å and forces (N, 3) in e^2/Å^2 from S(k).
 
