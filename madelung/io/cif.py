@@ -20,6 +20,7 @@ International Tables for Crystallography, Vol. A (symmetry operators, space grou
 from __future__ import annotations
 
 import io
+import os
 import re
 import warnings
 from dataclasses import dataclass
@@ -32,6 +33,7 @@ from scipy.spatial import cKDTree
 
 from ..structure.crystal import ion_text
 from ..errors import InputError, MadelungWarning
+from .cif_fast import fast_blocks
 
 #: Rows (and symmetry images) closer than this, Å, are one site.
 SITE_TOLERANCE = 0.05
@@ -133,18 +135,36 @@ def cif_block_count(path):
         return 0
 
 
-def cif_blocks(path):
-    """``[(name, block), ...]`` of the data blocks with atom sites, in file order."""
+#: CIF tag readers: "fast" (gemmi where it reads the file as the general parser would, see
+#: :mod:`madelung.io.cif_fast`; the general parser otherwise) or "general" (ASE's tag parser only).
+CIF_READERS = ("fast", "general")
+
+
+def cif_reader(reader=None):
+    """The CIF tag reader to use: ``reader``, else the environment variable ``MADELUNG_CIF_READER``
+    (read at each call, so worker processes follow their parent), else "fast"."""
+    chosen = reader if reader is not None else (os.environ.get("MADELUNG_CIF_READER") or "fast")
+    if chosen not in CIF_READERS:
+        raise InputError(f"CIF reader {chosen!r} not known; use one of {', '.join(CIF_READERS)}")
+    return chosen
+
+
+def cif_blocks(path, reader=None):
+    """``[(name, block), ...]`` of the data blocks with atom sites, in file order.
+
+    ``reader``: "fast" or "general" (see :func:`cif_reader`); both give the same blocks."""
     text = read_text(path)
     if not re.search(r"^\s*data_", text, flags=re.MULTILINE | re.IGNORECASE):
         raise InputError(f"{path}: not a CIF (no data_ block)")
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            blocks = list(parse_cif(io.StringIO(text)))
-    except Exception as exc:  # ASE's parser raises many kinds; all mean a malformed file
-        message = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(f"{path}: cannot read structure (malformed CIF: {message[:160]})") from None
+    blocks = fast_blocks(text) if cif_reader(reader) == "fast" else None
+    if blocks is None:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                blocks = list(parse_cif(io.StringIO(text)))
+        except Exception as exc:  # ASE's parser raises many kinds; all mean a malformed file
+            message = " ".join(str(exc).split()) or type(exc).__name__
+            raise InputError(f"{path}: cannot read structure (malformed CIF: {message[:160]})") from None
     found = [(block.name, block) for block in blocks if _has_sites(block)]
     if not found:
         raise InputError(f"{path}: cannot read structure (no data block with atom sites: "
