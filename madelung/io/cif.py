@@ -19,6 +19,7 @@ International Tables for Crystallography, Vol. A (symmetry operators, space grou
 
 from __future__ import annotations
 
+import functools
 import io
 import os
 import re
@@ -29,6 +30,8 @@ from fractions import Fraction
 import numpy as np
 from ase.data import chemical_symbols
 from ase.io.cif import parse_cif
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from ..structure.crystal import ion_text
@@ -210,7 +213,13 @@ _TERM = re.compile(r"([+-]?)(\d*\.?\d*(?:/\d+)?)\*?([xyz]?)")
 
 
 def parse_operator(text):
-    """``(rotation (3, 3), translation (3,))`` of a symmetry operator such as ``'-y+1/2, x-y, z+1/3'``."""
+    """``(rotation (3, 3), translation (3,))`` of a symmetry operator such as ``'-y+1/2, x-y, z+1/3'``
+    (read-only arrays: the same operator text gives the same arrays, read once)."""
+    return _parsed_operator(str(text))
+
+
+@functools.lru_cache(maxsize=4096)
+def _parsed_operator(text):
     parts = str(text).replace(" ", "").lower().split(",")
     if len(parts) != 3:
         raise ValueError(f"symmetry operator {text!r} does not have three parts")
@@ -234,6 +243,8 @@ def parse_operator(text):
             else:
                 raise ValueError(f"symmetry operator {text!r} not understood")
             position = match.end()
+    rotation.setflags(write=False)
+    translation.setflags(write=False)
     return rotation, translation
 
 
@@ -359,32 +370,27 @@ def _cell(block, path):
 
 
 def _gather(frac, cell, tolerance):
-    """Groups of indices of ``frac`` (wrapped) that lie within ``tolerance`` Å of each other."""
+    """Groups of indices of ``frac`` (wrapped) that lie within ``tolerance`` Å of each other (linked
+    through chains of such pairs), each group in increasing order, the groups by their first index."""
     n = len(frac)
-    if n == 0:
-        return []
+    if n <= 1:
+        return [[0]] if n else []
     spacing = 1.0 / np.linalg.norm(np.linalg.inv(cell).T, axis=1)
     radius = tolerance / float(np.min(spacing))
     tree = cKDTree(np.mod(frac, 1.0) % 1.0, boxsize=1.0 + 1e-12)
-    parent = np.arange(n)
-
-    def root(i):
-        while parent[i] != i:
-            parent[i] = parent[parent[i]]
-            i = parent[i]
-        return i
-
-    for i, j in tree.query_pairs(radius, p=np.inf, output_type="ndarray"):
-        delta = frac[i] - frac[j]
+    pairs = tree.query_pairs(radius, p=np.inf, output_type="ndarray")
+    if len(pairs):
+        delta = frac[pairs[:, 0]] - frac[pairs[:, 1]]
         delta -= np.round(delta)
-        if np.linalg.norm(delta @ cell) <= tolerance:
-            a, b = root(i), root(j)
-            if a != b:
-                parent[max(a, b)] = min(a, b)
-    groups = {}
-    for i in range(n):
-        groups.setdefault(root(i), []).append(i)
-    return list(groups.values())
+        pairs = pairs[np.linalg.norm(delta @ cell, axis=1) <= tolerance]
+    if not len(pairs):
+        return [[i] for i in range(n)]
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _, component = connected_components(graph, directed=False)
+    order = np.argsort(component, kind="stable")
+    groups = np.split(order, np.flatnonzero(np.diff(component[order])) + 1)
+    groups.sort(key=lambda group: group[0])
+    return [group.tolist() for group in groups]
 
 
 def block_sites(block, path, max_atoms=None, tolerance=SITE_TOLERANCE) -> SiteTable:
