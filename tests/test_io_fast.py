@@ -119,6 +119,7 @@ LAYOUTS = {
     "duplicated tag": NACL.replace("_cell_volume", "_cell_length_a 5.0\n_cell_volume"),
     "upper-case tags and block": NACL.replace("_cell_length_a", "_CELL_LENGTH_A").replace("data_", "DATA_"),
     "escapes and subscripts": NACL.replace("'NaCl, rock-salt structure'", "'NaCl~2~ \\a-phase &amp;'"),
+    "dashes and plus-minus signs": NACL.replace("'x,y,z'", "'x,y,z+-1/2'").replace("'-x,-y,-z'", "'--x,-y,-z'"),
     "text before the first block": "stray words\n" + NACL,
     "no rows in the site loop": NACL[:NACL.index(NA_LINE)],
     "two blocks": NACL + "\n" + NACL.replace("data_rocksalt_NaCl", "data_second"),
@@ -141,6 +142,7 @@ def test_doubtful_layouts_read_the_same_both_ways(tmp_path, name):
 def test_the_scan_sends_line_bound_layouts_to_the_general_reader():
     for name in ("two rows on one line", "a row over two lines", "one-column operators unquoted with spaces",
                  "comment after a value", "blank line of spaces in a loop", "escapes and subscripts",
+                 "dashes and plus-minus signs",
                  "duplicated tag", "save frame", "loop headers on one line", "text field closed late"):
         assert plain_layout(LAYOUTS[name]) is None, name
     for name in ("windows line ends", "uncertainties", "quoted numbers", "value on the next line", "text field",

@@ -36,9 +36,9 @@ try:
 except ImportError:  # pragma: no cover - gemmi is a dependency; without it every CIF takes the general reader
     gemmi = None
 
-#: Characters the general parser rewrites (HTML entities, TeX-like escapes, tags, sub/superscripts);
-#: a file holding any of them takes the general reader.
-_REWRITTEN = re.compile(r"[&\\<~^]")
+#: Characters the general parser rewrites (HTML entities, TeX-like escapes, tags, sub/superscripts,
+#: ``--``, ``+-`` and ``-+`` as dashes and plus-minus signs); a file holding any of them takes the general reader.
+_REWRITTEN = re.compile(r"[&\\<~^]|--|\+-|-\+")
 
 #: A line of whole tokens: bare words without quotes, or quoted strings without inner quotes.
 _QUOTED_LINE = re.compile(r"""(?:(?:'[^']*'|"[^"]*"|[^\s'"]+)(?:\s+|$))*""")
@@ -60,8 +60,9 @@ def plain_layout(text):
     """The blocks of ``text`` as the general parser would read them, ``[(name, {tag: count})]`` with
     ``count`` the number of values of each (lower-case) tag, or None when the file holds a construct
     where the general parser and gemmi could read it differently (see the module docstring)."""
-    if _REWRITTEN.search(text) or text.startswith("#\\#CIF_2"):
+    if "#\\#CIF_2" in text:
         return None
+    rewritten = _REWRITTEN.search(text) is not None     # then each line but comments is checked
     lines = text.split("\n")
     blocks = []
     tags = None
@@ -73,6 +74,8 @@ def plain_layout(text):
     for raw in lines:
         if not raw:
             continue                                # the general parser drops empty lines before reading
+        if rewritten and _REWRITTEN.search(raw) and (state == "text" or raw.lstrip()[:1] != "#"):
+            return None                             # text the general parser rewrites (comments aside)
         if state == "text":
             if raw[:1] == ";":
                 if raw.rstrip() != ";":
