@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import functools
 import io
+import math
 import os
 import re
 import warnings
@@ -48,6 +49,7 @@ OCCUPANCY_SLACK = 0.011
 _TYPED = re.compile(r"^([A-Z][a-z]?)(?:(\d+(?:\.\d+)?)?([+-])|([+-])(\d+(?:\.\d+)?)?)$")
 _ELEMENT = re.compile(r"^([A-Za-z]{1,2})")
 _CHEMICAL_SYMBOLS = frozenset(chemical_symbols[1:])
+_DATA_LINE = re.compile(r"^\s*data_", flags=re.MULTILINE | re.IGNORECASE)
 
 
 def element_of(text):
@@ -157,7 +159,7 @@ def cif_blocks(path, reader=None):
 
     ``reader``: "fast" or "general" (see :func:`cif_reader`); both give the same blocks."""
     text = read_text(path)
-    if not re.search(r"^\s*data_", text, flags=re.MULTILINE | re.IGNORECASE):
+    if not _DATA_LINE.search(text):
         raise InputError(f"{path}: not a CIF (no data_ block)")
     blocks = fast_blocks(text) if cif_reader(reader) == "fast" else None
     if blocks is None:
@@ -330,11 +332,10 @@ def _rows(block, cell):
         if state is None and type_symbols is not None:
             typed_element, state = parse_typed_symbol(symbol)
             element = typed_element if typed_element in _CHEMICAL_SYMBOLS else element
-        point = np.array([_number(columns[a][k], f"site {label}: coordinate {axes[a][-1]}") for a in range(3)])
-        if not np.all(np.isfinite(point)):
+        point = [_number(columns[a][k], f"site {label}: coordinate {axes[a][-1]}") for a in range(3)]
+        if not (math.isfinite(point[0]) and math.isfinite(point[1]) and math.isfinite(point[2])):
             raise InputError(f"site {label} has a NaN or infinite coordinate")
-        if not fractional:
-            point = np.linalg.solve(cell.T, point)
+        point = np.array(point) if fractional else np.linalg.solve(cell.T, point)
         occupancy = 1.0
         if occupancies is not None and str(occupancies[k]).strip() not in ("?", "."):
             occupancy = _number(occupancies[k], f"site {label}: occupancy")
@@ -393,6 +394,21 @@ def _gather(frac, cell, tolerance):
     return [group.tolist() for group in groups]
 
 
+def _orbits(rows, rotations, translations, cell, tolerance, max_atoms, where):
+    """Fractional positions of each row's orbit (images closer than ``tolerance`` kept once) and the
+    row each position comes from."""
+    points, owners = [], []
+    for k, (*_, point) in enumerate(rows):
+        images = np.mod(np.einsum("oij,j->oi", rotations, point) + translations, 1.0)
+        keep = [group[0] for group in _gather(images, cell, tolerance)]
+        points.append(images[sorted(keep)])
+        owners.extend([k] * len(keep))
+        if max_atoms is not None and len(owners) > 8 * max_atoms + 1000:   # rows sharing sites merge below
+            raise InputError(f"{where}the structure expands to more than {len(owners)} sites, more than the limit "
+                             f"of {max_atoms} (raise it with --max-atoms / max_atoms= if you mean it)")
+    return np.concatenate(points), np.array(owners)
+
+
 def block_sites(block, path, max_atoms=None, tolerance=SITE_TOLERANCE) -> SiteTable:
     """The expanded sites of one data block (see the module docstring)."""
     try:
@@ -417,17 +433,12 @@ def _block_sites(block, path, max_atoms, tolerance):
     # each row's orbit, duplicates within the orbit removed
     rotations = np.array([op[0] for op in operators])
     translations = np.array([op[1] for op in operators])
-    points, owners = [], []
-    for k, (*_, point) in enumerate(rows):
-        images = np.mod(np.einsum("oij,j->oi", rotations, point) + translations, 1.0)
-        keep = [group[0] for group in _gather(images, cell, tolerance)]
-        points.append(images[sorted(keep)])
-        owners.extend([k] * len(keep))
-        if max_atoms is not None and len(owners) > 8 * max_atoms + 1000:   # rows sharing sites merge below
-            raise InputError(f"{where}the structure expands to more than {len(owners)} sites, more than the limit "
-                             f"of {max_atoms} (raise it with --max-atoms / max_atoms= if you mean it)")
-    frac = np.concatenate(points)
-    owners = np.array(owners)
+    if rows and len(operators) == 1 and np.array_equal(rotations[0], np.eye(3)) and not np.any(translations[0]):
+        # P1 as written (the identity only): every row is one image of itself
+        frac = np.mod(np.array([row[-1] for row in rows]).reshape(-1, 3) + translations[0], 1.0)
+        owners = np.arange(len(rows))
+    else:
+        frac, owners = _orbits(rows, rotations, translations, cell, tolerance, max_atoms, where)
     groups = sorted(_gather(frac, cell, tolerance), key=min)
     positions, labels, species = [], [], []
     merged_once = set()

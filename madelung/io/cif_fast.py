@@ -184,6 +184,8 @@ def _value(raw):
         return int(raw)
     if _DECIMAL.match(raw):
         return float(raw)
+    if "(" not in raw and "~" not in raw and "^" not in raw:
+        return raw      # a word: the general parser keeps it as it is
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return convert_value(raw)
