@@ -3,11 +3,10 @@
 Stages of one file, as the batch runner meets them (``madelung.batch.tasks.screen_task``):
 check (the bounds pre-check of the text), read+tags (the bytes decoded, then the CIF parser: gemmi
 or ASE's), sites (rows, occupancies and oxidation states, symmetry expansion; for the fast reader
-this includes turning gemmi's tokens into values, which happens on first use), crystal (the
-Crystal built from the sites), charges (the file's states as site charges, which builds the
-Crystal again with them), space group (spglib), describe (the sums of ``describe``: Ewald sum,
-Madelung constants, Coulomb-matrix spectrum). The first four are the reading; only read+tags and
-sites differ between the readers.
+this includes turning gemmi's tokens into values, which happens on first use), crystal+charges
+(the file's states as site charges and the Crystal built with them), space group (spglib), describe (the sums of ``describe``: Ewald sum,
+Madelung constants, Coulomb-matrix spectrum). The first three are the reading (what
+``madelung.io.read.read_sites`` does); only read+tags and sites differ between the readers.
 
 Sets: the bundled prototypes (structures/*.cif, written with their full space-group operators,
 up to 192 of them), and 1000 small P1 cells as the screening benchmark writes them (strained,
@@ -16,6 +15,9 @@ rattled prototypes and small supercells, 2-40 sites), generated into a temporary
 Every file is also checked to give the same site table both ways (cell, positions, labels,
 species, block, info) -- the benchmark says how many did.
 
+With ``--previous TREE`` (a checkout of madelung, e.g. the main branch before this reader), the
+whole ``read_sites`` of each set is also timed with that checkout, each tree in a fresh process.
+
 Timing: the best of ``--repeat`` passes per file, in CPU time of this process (less disturbed than
 wall time on a shared machine; the load average is printed). The baseline is the general reader
 measured in the same run, file by file beside the fast one.
@@ -23,7 +25,9 @@ measured in the same run, file by file beside the fast one.
 
 import argparse
 import glob
+import json
 import os
+import subprocess
 import sys
 import tempfile
 import time
@@ -35,8 +39,8 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from common import STRUCTURES, print_table  # noqa: E402
 from screening import make_cells, write_inputs  # noqa: E402
 
-STAGES = ("check", "read+tags", "sites", "crystal", "charges", "space group", "describe")
-READING = ("check", "read+tags", "sites", "crystal")
+STAGES = ("check", "read+tags", "sites", "crystal+charges", "space group", "describe")
+READING = ("check", "read+tags", "sites")
 
 
 def stage_times(path, reader, with_sums):
@@ -44,7 +48,7 @@ def stage_times(path, reader, with_sums):
     from madelung.analysis.descriptors import describe
     from madelung.batch.tasks import _space_group
     from madelung.io import cif
-    from madelung.io.read import _crystal, charge_table
+    from madelung.io.read import charge_table
     from madelung.structure.bounds import precheck_file
 
     times = {}
@@ -56,12 +60,9 @@ def stage_times(path, reader, with_sums):
     t3 = clock()
     table = cif.block_sites(blocks[0][1], path, max_atoms=20000)
     t4 = clock()
-    _crystal(table, np.zeros(len(table)), None, path, 0.5, 20000)
-    t5 = clock()
     crystal = charge_table(table, "file", source=path).crystal
-    t6 = clock()
-    times["check"], times["read+tags"], times["sites"] = t2 - t1, t3 - t2, t4 - t3
-    times["crystal"], times["charges"] = t5 - t4, t6 - t5
+    t5 = clock()
+    times["check"], times["read+tags"], times["sites"], times["crystal+charges"] = t2 - t1, t3 - t2, t4 - t3, t5 - t4
     if with_sums:
         t6 = clock()
         _space_group(crystal, 1e-2)
@@ -108,7 +109,7 @@ def report(title, paths, totals, same, with_sums):
                      f"{ratio:.2f}x" if stage in ("read+tags", "sites") else ""])
     read_fast = sum(fast[s] for s in READING)
     read_general = sum(general[s] for s in READING)
-    rows.append(["reading (read..crystal)", f"{1e3 * read_fast / n:.3f}", f"{1e3 * read_general / n:.3f}",
+    rows.append(["reading (check..sites)", f"{1e3 * read_fast / n:.3f}", f"{1e3 * read_general / n:.3f}",
                  f"{read_general / read_fast:.2f}x"])
     if with_sums:
         all_fast = sum(fast.values())
@@ -125,12 +126,56 @@ def report(title, paths, totals, same, with_sums):
     print()
 
 
+def read_sites_time(paths, repeat):
+    """Mean best-of-``repeat`` CPU seconds of ``madelung.io.read.read_sites`` per file, in this process."""
+    from madelung.io.read import read_sites
+
+    total = 0.0
+    for path in paths:
+        best = np.inf
+        for _ in range(repeat):
+            started = time.process_time()
+            read_sites(path)
+            best = min(best, time.process_time() - started)
+        total += best
+    return total / len(paths)
+
+
+def read_sites_time_apart(paths, repeat, tree=None, reader="fast"):
+    """:func:`read_sites_time` in a fresh process with the madelung of ``tree`` (a checkout) and a CIF reader."""
+    env = dict(os.environ, MADELUNG_CIF_READER=reader)
+    if tree is not None:
+        env["PYTHONPATH"] = tree
+    request = json.dumps({"paths": paths, "repeat": repeat})
+    done = subprocess.run([sys.executable, os.path.abspath(__file__), "--one-run", request], env=env,
+                          capture_output=True, text=True, check=True)
+    return float(done.stdout.strip().splitlines()[-1])
+
+
+def compare_trees(title, paths, repeat, previous):
+    """read_sites per file: this checkout (fast, general) against another checkout, each in a fresh process."""
+    cases = [("this checkout, fast reader", None, "fast"), ("this checkout, general reader", None, "general"),
+             (f"{previous}", previous, "fast")]
+    times = [read_sites_time_apart(paths, repeat, tree, reader) for _, tree, reader in cases]
+    rows = [[label, f"{1e3 * t:.3f}", f"{t / times[0]:.2f}x"] for (label, _, _), t in zip(cases, times)]
+    print_table(["read_sites of", "ms/file", "vs fast"], rows, title=f"{title}: {len(paths)} files, whole read_sites "
+                f"(check..sites), CPU time (load average {os.getloadavg()[0]:.1f})")
+    print()
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--count", type=int, default=1000, help="P1 cells to generate (default 1000)")
     parser.add_argument("--repeat", type=int, default=3, help="passes per file, best kept (default 3)")
+    parser.add_argument("--previous", metavar="TREE", help="also time read_sites with the madelung of this checkout "
+                        "(e.g. the main branch before the fast reader)")
+    parser.add_argument("--one-run", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     warnings.simplefilter("ignore")
+    if args.one_run:
+        request = json.loads(args.one_run)
+        print(read_sites_time(request["paths"], request["repeat"]))
+        return
     from madelung.batch.tasks import prepare_process
 
     prepare_process()       # one thread for Numba and BLAS, as in a screening worker
@@ -141,6 +186,8 @@ def main(argv=None):
         stage_times(path, "fast", True)                     # compile and load the kernels first
     totals, same = measure(bundled, args.repeat, with_sums=True)
     report("Bundled prototypes (with their space-group operators)", bundled, totals, same, True)
+    if args.previous:
+        compare_trees("Bundled prototypes", bundled, args.repeat, args.previous)
 
     with tempfile.TemporaryDirectory() as folder:
         cif_folder, _ = write_inputs(make_cells(args.count), folder)
@@ -149,7 +196,11 @@ def main(argv=None):
             stage_times(path, "fast", True)
         totals, same = measure(paths, args.repeat, with_sums=True)
         report(f"{len(paths)} P1 cells as the screening benchmark writes them", paths, totals, same, True)
-        print("  the fast reader's value conversion happens on first use, so it is counted under 'sites'")
+        if args.previous:
+            compare_trees(f"{len(paths)} P1 cells", paths, args.repeat, args.previous)
+    print("  the fast reader's value conversion happens on first use, so it is counted under 'sites'; space group and\n"
+          "  describe are timed on the fast reader's crystal (best of --repeat) and shown for both: they do not depend\n"
+          "  on the reader. CPU time of this one process, Numba and BLAS on one thread.")
 
 
 if __name__ == "__main__":
