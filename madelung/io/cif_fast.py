@@ -31,11 +31,6 @@ from collections.abc import Mapping
 
 from ase.io.cif import CIFBlock, convert_value
 
-try:
-    import gemmi
-except ImportError:  # pragma: no cover - gemmi is a dependency; without it every CIF takes the general reader
-    gemmi = None
-
 #: Characters the general parser rewrites (HTML entities, TeX-like escapes, tags, sub/superscripts,
 #: ``--``, ``+-`` and ``-+`` as dashes and plus-minus signs); a file holding any of them takes the general reader.
 _REWRITTEN = re.compile(r"[&\\<~^]|--|\+-|-\+")
@@ -234,7 +229,9 @@ def fast_blocks(text):
     """Every data block of a CIF ``text`` as ``[CIFBlock, ...]`` read by gemmi, or None when the file
     must take the general parser (no gemmi, a layout the two could read differently, or a file
     gemmi refuses)."""
-    if gemmi is None:
+    try:
+        import gemmi    # on first use: loading its extension takes tens of ms that commands reading no CIF need not pay
+    except ImportError:  # pragma: no cover - gemmi is a dependency; without it every CIF takes the general reader
         return None
     text = text.replace("\r", "").replace("\t", " ")     # as the general parser does first
     layout = plain_layout(text)
