@@ -15,7 +15,10 @@ uncertainties in parentheses dropped), on first use.
 
 The blocks returned are :class:`ase.io.cif.CIFBlock` objects, so everything downstream
 (:func:`madelung.io.cif.block_sites`, space groups by name or number) is the same code for both
-readers.
+readers. Only gemmi's parser is used, not its symmetry expansion: that keeps rows which share a
+position as separate sites (wüstite's Fe2+ and Fe3+ rows give 12 sites there, 8 here; the
+manganite's La/Sr and Mn3+/Mn4+ rows 7 there, 5 here), while :mod:`madelung.io.cif` gathers them
+into one mixed site.
 
 References
 ----------
