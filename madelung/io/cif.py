@@ -258,7 +258,8 @@ def _operators(block, path):
             ops = [parse_operator(op) for op in listed]
         except (ValueError, ZeroDivisionError) as exc:
             raise InputError(f"{path}: {exc}") from None
-        return [op for op in ops if abs(abs(np.linalg.det(op[0])) - 1) < 1e-6] or [(np.eye(3), np.zeros(3))]
+        determinants = np.linalg.det(np.array([op[0] for op in ops]))
+        return [op for op, d in zip(ops, determinants) if abs(abs(d) - 1) < 1e-6] or [(np.eye(3), np.zeros(3))]
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")

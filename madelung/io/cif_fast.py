@@ -60,7 +60,11 @@ def plain_layout(text):
     where the general parser and gemmi could read it differently (see the module docstring)."""
     if "#\\#CIF_2" in text:
         return None
-    rewritten = _REWRITTEN.search(text) is not None     # then each line but comments is checked
+    flagged = set()             # lines holding text the general parser rewrites: refused unless comments
+    for count, match in enumerate(_REWRITTEN.finditer(text)):
+        if count >= 64:
+            return None
+        flagged.add(text.count("\n", 0, match.start()))
     lines = text.split("\n")
     blocks = []
     tags = None
@@ -69,10 +73,10 @@ def plain_layout(text):
     rows = 0
     pending = None              # a tag waiting for its value on a later line
     text_owner = None
-    for raw in lines:
+    for number, raw in enumerate(lines):
         if not raw:
             continue                                # the general parser drops empty lines before reading
-        if rewritten and _REWRITTEN.search(raw) and (state == "text" or raw.lstrip()[:1] != "#"):
+        if number in flagged and (state == "text" or raw.lstrip()[:1] != "#"):
             return None                             # text the general parser rewrites (comments aside)
         if state == "text":
             if raw[:1] == ";":
