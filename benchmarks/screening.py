@@ -110,13 +110,18 @@ def run_apart(inputs, db, workers, out, tol, reader="fast", tree=None):
                           capture_output=True, text=True, check=True)
     whole = time.perf_counter() - started
     answer = json.loads(done.stdout.strip().splitlines()[-1])
+    print(f"  ({reader} reader, madelung from {answer['package']}: {answer['total']} structures in {answer['wall']:.2f} s)",
+          file=sys.stderr)
     return answer["total"], answer["failed"], answer["wall"], whole, answer["parts"]
 
 
 def _one_run(request):
     request = json.loads(request)
+    import madelung
+
     summary, wall, parts = run(request["inputs"], request["db"], request["workers"], request["out"], request["tol"])
-    print(json.dumps({"total": summary.total, "failed": summary.failed, "wall": wall, "parts": parts}))
+    print(json.dumps({"total": summary.total, "failed": summary.failed, "wall": wall, "parts": parts,
+                      "package": os.path.dirname(madelung.__file__)}))
 
 
 def table_rows(out):
