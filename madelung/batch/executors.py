@@ -19,7 +19,7 @@ from .tasks import failed_row, prepare_process, screen_task
 #: Numba kernel there is another matter: its OpenMP runtime does not survive a fork).
 PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis.madelung_constants",
            "madelung.sums.matrix", "madelung.structure.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib",
-           "scipy.special")
+           "scipy.special", "gemmi")
 
 
 def _worker_main(connection, options):

@@ -19,7 +19,10 @@ International Tables for Crystallography, Vol. A (symmetry operators, space grou
 
 from __future__ import annotations
 
+import functools
 import io
+import math
+import os
 import re
 import warnings
 from dataclasses import dataclass
@@ -28,10 +31,13 @@ from fractions import Fraction
 import numpy as np
 from ase.data import chemical_symbols
 from ase.io.cif import parse_cif
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from ..structure.crystal import ion_text
 from ..errors import InputError, MadelungWarning
+from .cif_fast import fast_blocks
 
 #: Rows (and symmetry images) closer than this, Å, are one site.
 SITE_TOLERANCE = 0.05
@@ -43,6 +49,7 @@ OCCUPANCY_SLACK = 0.011
 _TYPED = re.compile(r"^([A-Z][a-z]?)(?:(\d+(?:\.\d+)?)?([+-])|([+-])(\d+(?:\.\d+)?)?)$")
 _ELEMENT = re.compile(r"^([A-Za-z]{1,2})")
 _CHEMICAL_SYMBOLS = frozenset(chemical_symbols[1:])
+_DATA_LINE = re.compile(r"^\s*data_", flags=re.MULTILINE | re.IGNORECASE)
 
 
 def element_of(text):
@@ -133,18 +140,36 @@ def cif_block_count(path):
         return 0
 
 
-def cif_blocks(path):
-    """``[(name, block), ...]`` of the data blocks with atom sites, in file order."""
+#: CIF tag readers: "fast" (gemmi where it reads the file as the general parser would, see
+#: :mod:`madelung.io.cif_fast`; the general parser otherwise) or "general" (ASE's tag parser only).
+CIF_READERS = ("fast", "general")
+
+
+def cif_reader(reader=None):
+    """The CIF tag reader to use: ``reader``, else the environment variable ``MADELUNG_CIF_READER``
+    (read at each call, so worker processes follow their parent), else "fast"."""
+    chosen = reader if reader is not None else (os.environ.get("MADELUNG_CIF_READER") or "fast")
+    if chosen not in CIF_READERS:
+        raise InputError(f"CIF reader {chosen!r} not known; use one of {', '.join(CIF_READERS)}")
+    return chosen
+
+
+def cif_blocks(path, reader=None):
+    """``[(name, block), ...]`` of the data blocks with atom sites, in file order.
+
+    ``reader``: "fast" or "general" (see :func:`cif_reader`); both give the same blocks."""
     text = read_text(path)
-    if not re.search(r"^\s*data_", text, flags=re.MULTILINE | re.IGNORECASE):
+    if not _DATA_LINE.search(text):
         raise InputError(f"{path}: not a CIF (no data_ block)")
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            blocks = list(parse_cif(io.StringIO(text)))
-    except Exception as exc:  # ASE's parser raises many kinds; all mean a malformed file
-        message = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(f"{path}: cannot read structure (malformed CIF: {message[:160]})") from None
+    blocks = fast_blocks(text) if cif_reader(reader) == "fast" else None
+    if blocks is None:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                blocks = list(parse_cif(io.StringIO(text)))
+        except Exception as exc:  # ASE's parser raises many kinds; all mean a malformed file
+            message = " ".join(str(exc).split()) or type(exc).__name__
+            raise InputError(f"{path}: cannot read structure (malformed CIF: {message[:160]})") from None
     found = [(block.name, block) for block in blocks if _has_sites(block)]
     if not found:
         raise InputError(f"{path}: cannot read structure (no data block with atom sites: "
@@ -190,7 +215,13 @@ _TERM = re.compile(r"([+-]?)(\d*\.?\d*(?:/\d+)?)\*?([xyz]?)")
 
 
 def parse_operator(text):
-    """``(rotation (3, 3), translation (3,))`` of a symmetry operator such as ``'-y+1/2, x-y, z+1/3'``."""
+    """``(rotation (3, 3), translation (3,))`` of a symmetry operator such as ``'-y+1/2, x-y, z+1/3'``
+    (read-only arrays: the same operator text gives the same arrays, read once)."""
+    return _parsed_operator(str(text))
+
+
+@functools.lru_cache(maxsize=4096)
+def _parsed_operator(text):
     parts = str(text).replace(" ", "").lower().split(",")
     if len(parts) != 3:
         raise ValueError(f"symmetry operator {text!r} does not have three parts")
@@ -214,6 +245,8 @@ def parse_operator(text):
             else:
                 raise ValueError(f"symmetry operator {text!r} not understood")
             position = match.end()
+    rotation.setflags(write=False)
+    translation.setflags(write=False)
     return rotation, translation
 
 
@@ -225,7 +258,8 @@ def _operators(block, path):
             ops = [parse_operator(op) for op in listed]
         except (ValueError, ZeroDivisionError) as exc:
             raise InputError(f"{path}: {exc}") from None
-        return [op for op in ops if abs(abs(np.linalg.det(op[0])) - 1) < 1e-6] or [(np.eye(3), np.zeros(3))]
+        determinants = np.linalg.det(np.array([op[0] for op in ops]))
+        return [op for op, d in zip(ops, determinants) if abs(abs(d) - 1) < 1e-6] or [(np.eye(3), np.zeros(3))]
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -299,11 +333,10 @@ def _rows(block, cell):
         if state is None and type_symbols is not None:
             typed_element, state = parse_typed_symbol(symbol)
             element = typed_element if typed_element in _CHEMICAL_SYMBOLS else element
-        point = np.array([_number(columns[a][k], f"site {label}: coordinate {axes[a][-1]}") for a in range(3)])
-        if not np.all(np.isfinite(point)):
+        point = [_number(columns[a][k], f"site {label}: coordinate {axes[a][-1]}") for a in range(3)]
+        if not (math.isfinite(point[0]) and math.isfinite(point[1]) and math.isfinite(point[2])):
             raise InputError(f"site {label} has a NaN or infinite coordinate")
-        if not fractional:
-            point = np.linalg.solve(cell.T, point)
+        point = np.array(point) if fractional else np.linalg.solve(cell.T, point)
         occupancy = 1.0
         if occupancies is not None and str(occupancies[k]).strip() not in ("?", "."):
             occupancy = _number(occupancies[k], f"site {label}: occupancy")
@@ -339,32 +372,42 @@ def _cell(block, path):
 
 
 def _gather(frac, cell, tolerance):
-    """Groups of indices of ``frac`` (wrapped) that lie within ``tolerance`` Å of each other."""
+    """Groups of indices of ``frac`` (wrapped) that lie within ``tolerance`` Å of each other (linked
+    through chains of such pairs), each group in increasing order, the groups by their first index."""
     n = len(frac)
-    if n == 0:
-        return []
+    if n <= 1:
+        return [[0]] if n else []
     spacing = 1.0 / np.linalg.norm(np.linalg.inv(cell).T, axis=1)
     radius = tolerance / float(np.min(spacing))
     tree = cKDTree(np.mod(frac, 1.0) % 1.0, boxsize=1.0 + 1e-12)
-    parent = np.arange(n)
-
-    def root(i):
-        while parent[i] != i:
-            parent[i] = parent[parent[i]]
-            i = parent[i]
-        return i
-
-    for i, j in tree.query_pairs(radius, p=np.inf, output_type="ndarray"):
-        delta = frac[i] - frac[j]
+    pairs = tree.query_pairs(radius, p=np.inf, output_type="ndarray")
+    if len(pairs):
+        delta = frac[pairs[:, 0]] - frac[pairs[:, 1]]
         delta -= np.round(delta)
-        if np.linalg.norm(delta @ cell) <= tolerance:
-            a, b = root(i), root(j)
-            if a != b:
-                parent[max(a, b)] = min(a, b)
-    groups = {}
-    for i in range(n):
-        groups.setdefault(root(i), []).append(i)
-    return list(groups.values())
+        pairs = pairs[np.linalg.norm(delta @ cell, axis=1) <= tolerance]
+    if not len(pairs):
+        return [[i] for i in range(n)]
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _, component = connected_components(graph, directed=False)
+    order = np.argsort(component, kind="stable")
+    groups = np.split(order, np.flatnonzero(np.diff(component[order])) + 1)
+    groups.sort(key=lambda group: group[0])
+    return [group.tolist() for group in groups]
+
+
+def _orbits(rows, rotations, translations, cell, tolerance, max_atoms, where):
+    """Fractional positions of each row's orbit (images closer than ``tolerance`` kept once) and the
+    row each position comes from."""
+    points, owners = [], []
+    for k, (*_, point) in enumerate(rows):
+        images = np.mod(np.einsum("oij,j->oi", rotations, point) + translations, 1.0)
+        keep = [group[0] for group in _gather(images, cell, tolerance)]
+        points.append(images[sorted(keep)])
+        owners.extend([k] * len(keep))
+        if max_atoms is not None and len(owners) > 8 * max_atoms + 1000:   # rows sharing sites merge below
+            raise InputError(f"{where}the structure expands to more than {len(owners)} sites, more than the limit "
+                             f"of {max_atoms} (raise it with --max-atoms / max_atoms= if you mean it)")
+    return np.concatenate(points), np.array(owners)
 
 
 def block_sites(block, path, max_atoms=None, tolerance=SITE_TOLERANCE) -> SiteTable:
@@ -391,17 +434,12 @@ def _block_sites(block, path, max_atoms, tolerance):
     # each row's orbit, duplicates within the orbit removed
     rotations = np.array([op[0] for op in operators])
     translations = np.array([op[1] for op in operators])
-    points, owners = [], []
-    for k, (*_, point) in enumerate(rows):
-        images = np.mod(np.einsum("oij,j->oi", rotations, point) + translations, 1.0)
-        keep = [group[0] for group in _gather(images, cell, tolerance)]
-        points.append(images[sorted(keep)])
-        owners.extend([k] * len(keep))
-        if max_atoms is not None and len(owners) > 8 * max_atoms + 1000:   # rows sharing sites merge below
-            raise InputError(f"{where}the structure expands to more than {len(owners)} sites, more than the limit "
-                             f"of {max_atoms} (raise it with --max-atoms / max_atoms= if you mean it)")
-    frac = np.concatenate(points)
-    owners = np.array(owners)
+    if rows and len(operators) == 1 and np.array_equal(rotations[0], np.eye(3)) and not np.any(translations[0]):
+        # P1 as written (the identity only): every row is one image of itself
+        frac = np.mod(np.array([row[-1] for row in rows]).reshape(-1, 3) + translations[0], 1.0)
+        owners = np.arange(len(rows))
+    else:
+        frac, owners = _orbits(rows, rotations, translations, cell, tolerance, max_atoms, where)
     groups = sorted(_gather(frac, cell, tolerance), key=min)
     positions, labels, species = [], [], []
     merged_once = set()

@@ -91,13 +91,14 @@ def _read_frames(path, format, max_atoms):
     return frames
 
 
-def structure_names(path, *, format=None) -> list:
+def structure_names(path, *, format=None, reader=None) -> list:
     """Names of the structures in a file: CIF data-block names, or frame numbers ("1", "2", ...)
-    of other formats. One entry for a file with one structure."""
+    of other formats. One entry for a file with one structure. ``reader``: the CIF tag reader
+    (see :func:`madelung.io.cif.cif_reader`)."""
     path = os.fspath(path)
     _check_path(path)
     if _is_cif(path, format):
-        return [name for name, _ in cif_blocks(path)]
+        return [name for name, _ in cif_blocks(path, reader)]
     return [str(k + 1) for k in range(len(_read_frames(path, format, None)))]
 
 
@@ -122,17 +123,19 @@ def structures_to_read(path) -> list:
     return names if len(names) > 1 else [None]
 
 
-def read_sites(path, *, block=None, format=None, max_atoms=DEFAULT_MAX_ATOMS) -> SiteTable:
+def read_sites(path, *, block=None, format=None, max_atoms=DEFAULT_MAX_ATOMS, reader=None) -> SiteTable:
     """The sites of one structure in a file (no charges decided yet).
 
     ``block`` names a CIF data block (or a frame of a multi-structure file) by name or by number
     counted from 1; a file with several structures and no ``block`` is refused with their names.
+    ``reader`` chooses the CIF tag reader, "fast" or "general" (default: :func:`madelung.io.cif.cif_reader`);
+    both give the same sites.
     """
     path = os.fspath(path)
     _check_path(path)
     if _is_cif(path, format):
         precheck_file(path, "cif", max_atoms)
-        name, entry = choose_block(cif_blocks(path), block, path)
+        name, entry = choose_block(cif_blocks(path, reader), block, path)
         table = block_sites(entry, path, max_atoms=max_atoms)
         check_size(len(table), max_atoms, path)
         return table
