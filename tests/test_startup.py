@@ -62,3 +62,11 @@ def test_a_command_parser_declares_only_that_command_in_full():
     sub = next(a for a in parser._actions if a.__class__.__name__ == "_SubParsersAction")
     assert any(a.dest == "tol" for a in sub.choices["constant"]._actions)
     assert not any(a.dest == "tol" for a in sub.choices["energy"]._actions)
+
+
+def test_crystal_reads_files_when_imported_from_its_own_module():
+    # the structure model does not import the io layer; its from_file still reaches the one loader
+    code = ("import pathlib\nfrom madelung.structure.crystal import Crystal\n"
+            f"c = Crystal.from_file(pathlib.Path({str(__import__('pathlib').Path(__file__).parent.parent / 'structures' / 'rocksalt-NaCl.cif')!r}))\n"
+            "assert len(c) == 8, len(c)")   # conventional rock-salt cell: 4 Na + 4 Cl (fact of the trade)
+    assert "numpy" in _loaded_after(code)

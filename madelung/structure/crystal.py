@@ -12,6 +12,7 @@ ASE initial charges).
 
 from __future__ import annotations
 
+import sys
 from typing import Mapping
 
 import numpy as np
@@ -328,7 +329,7 @@ class Crystal:
         options (``min_distance``, ``occupancy``, ``symmetry_tolerance``, ``allow_net_charge``, ...) are those
         of :func:`madelung.io.read.load`.
         """
-        return _LOADER["ase"](cls, atoms, charges, source=source, max_atoms=max_atoms, **options)
+        return _loader("ase")(cls, atoms, charges, source=source, max_atoms=max_atoms, **options)
 
     @classmethod
     def from_file(cls, path, charges=None, **options) -> "Crystal":
@@ -339,13 +340,22 @@ class Crystal:
         CIF rows that share a position form one site, whatever their elements or oxidation states;
         its charge is the occupancy-weighted sum of the rows' charges.
         """
-        return _LOADER["file"](cls, path, charges, **options)
+        return _loader("file")(cls, path, charges, **options)
 
 
 #: The loader behind :meth:`Crystal.from_file` and :meth:`Crystal.from_ase`. It lives in the io
-#: layer (:mod:`madelung.io.read`), which imports this module and registers itself on import
-#: (``madelung/__init__`` imports it), so the import arrow points one way only.
+#: layer (:mod:`madelung.io.read`), which imports this module and registers itself on import, so
+#: the import arrow points one way only.
 _LOADER = {}
+
+
+def _loader(kind):
+    """The registered loader; if the io layer was not imported yet, the package's public
+    ``madelung.load`` is resolved, which imports and registers it (the package root loads its
+    public names on first use and is always imported before this module)."""
+    if kind not in _LOADER:
+        getattr(sys.modules[__name__.split(".")[0]], "load")
+    return _LOADER[kind]
 
 
 def use_loader(from_file, from_ase):
