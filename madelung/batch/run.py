@@ -34,18 +34,34 @@ Limits: the descriptors are those of a point-charge model (see :mod:`madelung.an
 from __future__ import annotations
 
 import os
+import signal
+import threading
 import time
 from collections import deque
+from contextlib import contextmanager
 
 from ..errors import InputError
-from ..report.files import check_outputs
-from ..report.files import remove_stale_temporaries
+from ..report.files import check_outputs, remove_stale_temporaries
 from .executors import DaskExecutor, LocalPool
 from .inputs import _is_database, _is_glob, count_tasks, iter_tasks
 from .progress import Progress, ScreenSummary
 from .tables import TableLock, TableWriter, _write_back, site_table_columns, table_columns
 from .tasks import ScreenOptions, settings_text
 from ..defaults import SCREENING_TOL
+
+
+@contextmanager
+def _interrupts_deferred():
+    """Hold SIGINT (Ctrl-C) until the block is done, where the platform and thread allow it."""
+    mask = getattr(signal, "pthread_sigmask", None)
+    if mask is None or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = mask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        mask(signal.SIG_SETMASK, previous)
 
 
 def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="file", charge_rules=None,
@@ -184,15 +200,18 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
     databases |= {os.path.normpath(os.fspath(i)) for i in inputs if _is_database(os.fspath(i))}
 
     def flush():
+        # Ctrl-C is held back while a chunk is written: arriving between the table's rename and
+        # the clearing of the pending rows it would write them a second time on the way out
         nonlocal pending_rows, pending_sites, last_flush
-        if site_writer is not None:
-            site_writer.append(pending_sites)
-        table.append(pending_rows)
-        if write_db:
-            for database in databases:
-                _write_back(os.path.normpath(database), pending_rows)
-        pending_rows, pending_sites = [], []
-        last_flush = time.perf_counter()
+        with _interrupts_deferred():
+            if site_writer is not None:
+                site_writer.append(pending_sites)
+            table.append(pending_rows)
+            if write_db:
+                for database in databases:
+                    _write_back(os.path.normpath(database), pending_rows)
+            pending_rows, pending_sites = [], []
+            last_flush = time.perf_counter()
 
     exhausted = False
     try:
