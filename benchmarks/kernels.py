@@ -39,6 +39,27 @@ from madelung.analysis.defects.points import _point_bins  # noqa: E402
 import madelung  # noqa: E402
 
 
+@njit(cache=True, inline="always")
+def _stencil_bin(bin_of, i, offsets, o, counts):
+    """Flat bin and lattice shift reached from row ``i`` of ``bin_of`` by stencil offset o."""
+    c0 = bin_of[i, 0] + offsets[o, 0]
+    c1 = bin_of[i, 1] + offsets[o, 1]
+    c2 = bin_of[i, 2] + offsets[o, 2]
+    s0 = c0 // counts[0]
+    s1 = c1 // counts[1]
+    s2 = c2 // counts[2]
+    b = ((c0 - s0 * counts[0]) * counts[1] + c1 - s1 * counts[1]) * counts[2] + c2 - s2 * counts[2]
+    return b, s0, s1, s2
+
+
+@njit(cache=True, inline="always")
+def _separation(origin, p, positions, j, cell, s0, s1, s2):
+    """origin[p] - positions[j] - (s0 a + s1 b + s2 c)."""
+    return (origin[p, 0] - positions[j, 0] - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0]),
+            origin[p, 1] - positions[j, 1] - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1]),
+            origin[p, 2] - positions[j, 2] - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2]))
+
+
 @njit(cache=True)
 def reference_real_space(positions, charges, cell, counts, offsets, bin_of, bin_start, alpha, r_cut):
     """Plain real-space loop: every atom walks the whole stencil, takes each pair once (lower
@@ -50,19 +71,11 @@ def reference_real_space(positions, charges, cell, counts, offsets, bin_of, bin_
     pairs = 0
     for i in range(n):
         for o in range(offsets.shape[0]):
-            c0 = bin_of[i, 0] + offsets[o, 0]
-            c1 = bin_of[i, 1] + offsets[o, 1]
-            c2 = bin_of[i, 2] + offsets[o, 2]
-            s0 = c0 // counts[0]
-            s1 = c1 // counts[1]
-            s2 = c2 // counts[2]
-            b = ((c0 - s0 * counts[0]) * counts[1] + c1 - s1 * counts[1]) * counts[2] + c2 - s2 * counts[2]
+            b, s0, s1, s2 = _stencil_bin(bin_of, i, offsets, o, counts)
             for j in range(bin_start[b], bin_start[b + 1]):
                 if j < i or (j == i and (s0, s1, s2) <= (0, 0, 0)):
                     continue
-                dx = positions[i, 0] - positions[j, 0] - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0])
-                dy = positions[i, 1] - positions[j, 1] - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1])
-                dz = positions[i, 2] - positions[j, 2] - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
+                dx, dy, dz = _separation(positions, i, positions, j, cell, s0, s1, s2)
                 r2 = dx * dx + dy * dy + dz * dz
                 if r2 >= cut2:
                     continue
@@ -144,19 +157,6 @@ def reference_spread(frac, charges, shape, order):
     return mesh
 
 
-@njit(cache=True, inline="always")
-def _stencil_bin(bin_of, i, offsets, o, counts):
-    """Flat bin and lattice shift reached from row ``i`` of ``bin_of`` by stencil offset o."""
-    c0 = bin_of[i, 0] + offsets[o, 0]
-    c1 = bin_of[i, 1] + offsets[o, 1]
-    c2 = bin_of[i, 2] + offsets[o, 2]
-    s0 = c0 // counts[0]
-    s1 = c1 // counts[1]
-    s2 = c2 // counts[2]
-    b = ((c0 - s0 * counts[0]) * counts[1] + c1 - s1 * counts[1]) * counts[2] + c2 - s2 * counts[2]
-    return b, s0, s1, s2
-
-
 @njit(cache=True)
 def reference_born_mayer(positions, cell, counts, offsets, bin_of, bin_start, big_a, rho, r_cut):
     """Plain Born–Mayer sum A exp(-r/rho): every atom walks the whole stencil and takes every
@@ -172,9 +172,7 @@ def reference_born_mayer(positions, cell, counts, offsets, bin_of, bin_start, bi
             for j in range(bin_start[b], bin_start[b + 1]):
                 if i == j and s0 == 0 and s1 == 0 and s2 == 0:
                     continue
-                dx = positions[i, 0] - positions[j, 0] - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0])
-                dy = positions[i, 1] - positions[j, 1] - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1])
-                dz = positions[i, 2] - positions[j, 2] - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
+                dx, dy, dz = _separation(positions, i, positions, j, cell, s0, s1, s2)
                 r2 = dx * dx + dy * dy + dz * dz
                 if r2 >= cut2:
                     continue
@@ -197,9 +195,7 @@ def reference_points(points, point_bin, positions, charges, cell, counts, offset
         for o in range(offsets.shape[0]):
             b, s0, s1, s2 = _stencil_bin(point_bin, p, offsets, o, counts)
             for j in range(bin_start[b], bin_start[b + 1]):
-                dx = points[p, 0] - positions[j, 0] - (s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0])
-                dy = points[p, 1] - positions[j, 1] - (s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1])
-                dz = points[p, 2] - positions[j, 2] - (s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2])
+                dx, dy, dz = _separation(points, p, positions, j, cell, s0, s1, s2)
                 r2 = dx * dx + dy * dy + dz * dz
                 if r2 < cut2:
                     r = math.sqrt(r2)

@@ -15,7 +15,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .walker import gather_partners, range_capacity, sorted_coordinates, stencil_ranges, stencil_rows, walk_workspace
+from .walker import atom_partners, chunk_members, range_capacity, stencil_ranges, walk_context, walk_workspace
 
 
 #: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
@@ -62,17 +62,13 @@ def nearest_neighbours(positions, charges, cell, counts, offsets, bin_of, bin_st
     nearest = np.full(n, np.inf)
     partner = np.full(n, -1, dtype=np.int64)
     nearest_opposite = np.full(n, np.inf)
-    cut2 = cutoff * cutoff
-    xs, ys, zs = sorted_coordinates(positions)
-    rows = stencil_rows(offsets, False)
+    walk = walk_context(positions, offsets, False, cell, counts, bin_start)
     n_chunks = min(n, 64)
-    chunk = (n + n_chunks - 1) // n_chunks
     for c in prange(n_chunks):
-        work = walk_workspace(rows, counts, bin_start)
+        work = walk_workspace(walk)
         _, _, _, found, qs, _, _, _, r2s = work
-        for i in range(c * chunk, min(n, (c + 1) * chunk)):
-            m = gather_partners(xs[i], ys[i], zs[i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, False, rows, cell,
-                                counts, bin_start, xs, ys, zs, charges, cut2, work)
+        for i in chunk_members(c, n, n_chunks):
+            m = atom_partners(i, bin_of, walk, charges, cutoff * cutoff, work)
             best = np.inf
             best_j = -1
             best_opp = np.inf
@@ -97,10 +93,8 @@ def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut
     ``partner[p]`` the sorted index of the partner, ``distance[p]`` in Å, in the order of the
     walk (``walker.gather_partners`` over the whole stencil).
     """
-    cut2 = r_cut * r_cut
-    xs, ys, zs = sorted_coordinates(positions)
-    rows = stencil_rows(offsets, False)
-    work = walk_workspace(rows, counts, bin_start)
+    walk = walk_context(positions, offsets, False, cell, counts, bin_start)
+    work = walk_workspace(walk)
     _, _, _, found, _, _, _, _, r2s = work
     owner = np.empty(16, dtype=np.int64)
     partner = np.empty(16, dtype=np.int64)
@@ -108,8 +102,7 @@ def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut
     p = 0
     for s in range(sites.shape[0]):
         i = sites[s]
-        m = gather_partners(xs[i], ys[i], zs[i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, False, rows, cell,
-                            counts, bin_start, xs, ys, zs, xs, cut2, work)
+        m = atom_partners(i, bin_of, walk, positions[:, 0], r_cut * r_cut, work)
         if p + m > len(owner):
             room = max(2 * len(owner), p + m)
             owner = _grown(owner, room)
@@ -141,18 +134,16 @@ def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
     compaction: there is no cutoff to apply).
     """
     n = positions.shape[0]
-    rows = stencil_rows(offsets, True)
+    xs, ys, zs, rows, _, _, _, _ = walk_context(positions, offsets, True, cell, counts, bin_start)
     capacity = range_capacity(rows, counts)
-    xs, ys, zs = sorted_coordinates(positions)
     n_chunks = min(n, 64)
-    chunk = (n + n_chunks - 1) // n_chunks
     best = np.full(n_chunks, np.inf)
     for c in prange(n_chunks):
         first = np.empty(capacity, dtype=np.int64)
         end = np.empty(capacity, dtype=np.int64)
         shift = np.empty((capacity, 3))
         lowest = np.inf
-        for i in range(c * chunk, min(n, (c + 1) * chunk)):
+        for i in chunk_members(c, n, n_chunks):
             n_ranges = stencil_ranges(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, True, rows, cell, counts,
                                       bin_start, first, end, shift)
             for g in range(n_ranges):

@@ -17,7 +17,8 @@ recurrence (exp(2 pi i h f) = exp(2 pi i f)^h), so a k-vector costs one complex 
 along a run of consecutive l; the loops run over the block's atoms (vector instructions).
 Real space walks half of the bin stencil with the shared neighbour walk (``walker.py``: rows
 of bins contiguous in memory, partners inside the cutoff compacted without branches) and
-evaluates erfc with a branch-free polynomial (``erfc.py``). Every result is accumulated in a fixed order whatever the number of threads.
+evaluates erfc with a branch-free polynomial (``erfc.py``). Every result is accumulated in a
+fixed order whatever the number of threads.
 """
 
 import math
@@ -27,8 +28,8 @@ from numba import njit, prange
 
 from .erfc import erfc_and_gaussian
 from .geometry_kernels import PRANGE_ONLY
-from .walker import CHUNKS, chunk_parts, chunk_totals, gather_partners, sorted_coordinates, stencil_rows, \
-    walk_workspace
+from .walker import CHUNKS  # noqa: F401  (callers of structure_factors pass kernels.CHUNKS)
+from .walker import atom_partners, chunk_members, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
@@ -55,26 +56,20 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
     P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
     n = positions.shape[0]
-    n_chunks = min(CHUNKS, n)
-    parts = chunk_parts(n, n_chunks, want_forces, want_virial)
-    potential_part, force_part, virial_part, pair_part = parts
-    cut2 = r_cut * r_cut
-    chunk = (n + n_chunks - 1) // n_chunks
-    xs, ys, zs = sorted_coordinates(positions)
-    rows = stencil_rows(offsets, True)
+    walk = walk_context(positions, offsets, True, cell, counts, bin_start)
+    potential_part, force_part, virial_part, pair_part = chunk_parts(n, want_forces, want_virial)
     derivatives = want_forces or want_virial
-    for c in prange(n_chunks):
+    for c in prange(len(pair_part)):
         phi = potential_part[c]
         force = force_part[c]
         virial = virial_part[c]
-        work = walk_workspace(rows, counts, bin_start)
+        work = walk_workspace(walk)
         _, _, _, partner, qs, dxs, dys, dzs, r2s = work
         screened = np.empty(len(r2s))
         slope = np.empty(len(r2s))
         count = 0
-        for i in range(c * chunk, min(n, (c + 1) * chunk)):
-            m = gather_partners(xs[i], ys[i], zs[i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, True, rows, cell,
-                                counts, bin_start, xs, ys, zs, charges, cut2, work)
+        for i in chunk_members(c, n, len(pair_part)):
+            m = atom_partners(i, bin_of, walk, charges, r_cut * r_cut, work)
             count += 2 * m
             qi = charges[i]
             # the pair function, one vectorised loop: erfc(a r)/r and g = -(1/r) d/dr [erfc(a r)/r]
@@ -134,7 +129,7 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
                 virial[i, 4] -= qi * wxz
                 virial[i, 5] -= qi * wxy
         pair_part[c] = count
-    return chunk_totals(parts, want_forces, want_virial)
+    return chunk_totals(potential_part, force_part, virial_part, pair_part, want_forces, want_virial)
 
 
 #: Atoms per block of the reciprocal kernels: their phase tables stay in the fast caches and

@@ -25,12 +25,19 @@ import numpy as np
 from numba import njit, prange
 
 from .erfc import erfc_and_gaussian
-from .walker import gather_partners, sorted_coordinates, stencil_rows, walk_workspace
+from .walker import chunk_members, gather_partners, walk_context, walk_workspace
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
 #: Points per chunk of work (one thread's share at a time, one work space).
 POINTS_PER_CHUNK = 16
+
+
+@njit(cache=True, inline="always")
+def _ions_near(p, points, point_bin, walk, values, cut2, work):
+    """The ions within the cutoff of point p over the whole stencil (``walker.gather_partners``)."""
+    return gather_partners(points[p, 0], points[p, 1], points[p, 2], point_bin[p, 0], point_bin[p, 1],
+                           point_bin[p, 2], -1, walk, values, cut2, work)
 
 
 @njit(parallel=True, cache=True)
@@ -61,19 +68,15 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
     nearest = np.full(m_points, np.inf)
     nearest_index = np.full(m_points, -1, dtype=np.int64)
     pair_count = np.zeros(m_points, dtype=np.int64)
-    cut2 = r_cut * r_cut
     co2 = coincide * coincide
     smeared = beta > 0.0
-    xs, ys, zs = sorted_coordinates(positions)
-    rows = stencil_rows(offsets, False)
+    walk = walk_context(positions, offsets, False, cell, counts, bin_start)
     n_chunks = (m_points + POINTS_PER_CHUNK - 1) // POINTS_PER_CHUNK
     for c in prange(n_chunks):
-        work = walk_workspace(rows, counts, bin_start)
+        work = walk_workspace(walk)
         _, _, _, partner, qs, dxs, dys, dzs, r2s = work
-        for p in range(c * POINTS_PER_CHUNK, min(m_points, (c + 1) * POINTS_PER_CHUNK)):
-            m = gather_partners(points[p, 0], points[p, 1], points[p, 2], point_bin[p, 0], point_bin[p, 1],
-                                point_bin[p, 2], -1, False, rows, cell, counts, bin_start, xs, ys, zs, charges, cut2,
-                                work)
+        for p in chunk_members(c, m_points, n_chunks):
+            m = _ions_near(p, points, point_bin, walk, charges, r_cut * r_cut, work)
             phi = 0.0
             ex = 0.0
             ey = 0.0
@@ -135,17 +138,13 @@ def contact_repulsion_at_points(points, point_bin, positions, radii, cell, count
     m_points = points.shape[0]
     energy = np.zeros(m_points)
     gradient = np.zeros((m_points, 3))
-    cut2 = r_cut * r_cut
-    xs, ys, zs = sorted_coordinates(positions)
-    rows = stencil_rows(offsets, False)
+    walk = walk_context(positions, offsets, False, cell, counts, bin_start)
     n_chunks = (m_points + POINTS_PER_CHUNK - 1) // POINTS_PER_CHUNK
     for c in prange(n_chunks):
-        work = walk_workspace(rows, counts, bin_start)
+        work = walk_workspace(walk)
         _, _, _, _, radius, dxs, dys, dzs, r2s = work
-        for p in range(c * POINTS_PER_CHUNK, min(m_points, (c + 1) * POINTS_PER_CHUNK)):
-            m = gather_partners(points[p, 0], points[p, 1], points[p, 2], point_bin[p, 0], point_bin[p, 1],
-                                point_bin[p, 2], -1, False, rows, cell, counts, bin_start, xs, ys, zs, radii, cut2,
-                                work)
+        for p in chunk_members(c, m_points, n_chunks):
+            m = _ions_near(p, points, point_bin, walk, radii, r_cut * r_cut, work)
             e = 0.0
             gx = 0.0
             gy = 0.0

@@ -15,8 +15,8 @@ Switching (C2-continuous quintic, x = (r - r_on) / (r_cut - r_on))::
     S = 1 - 10 x^3 + 15 x^4 - 6 x^5,   dS/dr = -30 x^2 (1 - x)^2 / (r_cut - r_on)
 
 Half of each pair's energy and virial goes to each ion, the force to both with opposite signs.
-Ions are split into ``walker.CHUNKS`` chunks, each accumulating into its own rows, summed at the
-end in a fixed order (the result does not depend on the number of threads).
+Ions are split into ``walker.CHUNKS`` chunks (``walker.chunk_parts``), each accumulating into its
+own rows, summed at the end in a fixed order (the result does not depend on the number of threads).
 
 References
 ----------
@@ -30,8 +30,7 @@ import numpy as np
 from numba import njit, prange
 
 from .geometry_kernels import PRANGE_ONLY
-from .walker import CHUNKS, chunk_parts, chunk_totals, gather_partners, sorted_coordinates, stencil_rows, \
-    walk_workspace
+from .walker import atom_partners, chunk_members, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 
 @njit(cache=True, inline="always")
@@ -83,24 +82,18 @@ def pair_terms(positions, species, cell, counts, offsets, bin_of, bin_start, tab
     asked for.
     """
     n = positions.shape[0]
-    n_chunks = min(CHUNKS, n)
-    parts = chunk_parts(n, n_chunks, want_forces, want_virial)
-    energy_part, force_part, virial_part, pair_part = parts
-    cut2 = r_cut * r_cut
-    chunk = (n + n_chunks - 1) // n_chunks
-    xs, ys, zs = sorted_coordinates(positions)
     kinds = species.astype(np.float64)
-    rows = stencil_rows(offsets, True)
-    for c in prange(n_chunks):
+    walk = walk_context(positions, offsets, True, cell, counts, bin_start)
+    energy_part, force_part, virial_part, pair_part = chunk_parts(n, want_forces, want_virial)
+    for c in prange(len(pair_part)):
         energy = energy_part[c]
         forces = force_part[c]
         virial = virial_part[c]
-        work = walk_workspace(rows, counts, bin_start)
+        work = walk_workspace(walk)
         _, _, _, partner, kind, dxs, dys, dzs, r2s = work
         count = 0
-        for i in range(c * chunk, min(n, (c + 1) * chunk)):
-            m = gather_partners(xs[i], ys[i], zs[i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, True, rows, cell,
-                                counts, bin_start, xs, ys, zs, kinds, cut2, work)
+        for i in chunk_members(c, n, len(pair_part)):
+            m = atom_partners(i, bin_of, walk, kinds, r_cut * r_cut, work)
             si = species[i]
             for t in range(m):
                 row = table[si, int(kind[t])]
@@ -120,20 +113,15 @@ def pair_terms(positions, species, cell, counts, offsets, bin_of, bin_start, tab
                     dy = dys[t]
                     dz = dzs[t]
                     if want_forces:
-                        forces[i, 0] -= de_over_r * dx
-                        forces[i, 1] -= de_over_r * dy
-                        forces[i, 2] -= de_over_r * dz
-                        forces[j, 0] += de_over_r * dx
-                        forces[j, 1] += de_over_r * dy
-                        forces[j, 2] += de_over_r * dz
+                        separation = (dx, dy, dz)
+                        for a in range(3):
+                            forces[i, a] -= de_over_r * separation[a]
+                            forces[j, a] += de_over_r * separation[a]
                     if want_virial:
                         h = 0.5 * de_over_r
-                        for row_of in (i, j):
-                            virial[row_of, 0] += h * dx * dx
-                            virial[row_of, 1] += h * dy * dy
-                            virial[row_of, 2] += h * dz * dz
-                            virial[row_of, 3] += h * dy * dz
-                            virial[row_of, 4] += h * dx * dz
-                            virial[row_of, 5] += h * dx * dy
+                        products = (dx * dx, dy * dy, dz * dz, dy * dz, dx * dz, dx * dy)
+                        for a in range(6):
+                            virial[i, a] += h * products[a]
+                            virial[j, a] += h * products[a]
         pair_part[c] = count
-    return chunk_totals(parts, want_forces, want_virial)
+    return chunk_totals(energy_part, force_part, virial_part, pair_part, want_forces, want_virial)

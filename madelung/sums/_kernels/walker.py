@@ -15,9 +15,9 @@ would have to compile anew in each process.
    of the sorted atoms, or a few where the row crosses the cell edge (one per periodic image),
    each with the lattice shift of its image. The origin atom itself (same bin, no shift) is left
    out; on the half stencil so are the atoms of its own bin before it.
-3. ``gather_partners``: every candidate of the ranges with its separation and squared distance,
-   compacted without a branch to those inside the cutoff, so that the pair physics after it is
-   a plain loop over contiguous arrays (vector instructions).
+3. ``gather_partners`` (``atom_partners`` around an atom): every candidate of the ranges with
+   its separation and squared distance, compacted without a branch to those inside the cutoff,
+   so that the pair physics after it is a plain loop over contiguous arrays (vector instructions).
 
 The pair physics (Coulomb erfc, short-range forms, nearest-neighbour minima, pair lists) then
 runs over the first ``m`` entries of the work arrays in the entry kernels of ``kernels.py``,
@@ -151,29 +151,39 @@ def stencil_ranges(b0, b1, b2, i, half, rows, cell, counts, bin_start, first, en
 
 
 @njit(cache=True, inline="always")
-def walk_workspace(rows, counts, bin_start):
-    """Work arrays of one thread for ``gather_partners`` over ``rows``: ``(first, end, shift,
-    partner, values, dxs, dys, dzs, r2s)``."""
-    n_range = range_capacity(rows, counts)
-    capacity = partner_capacity(rows, bin_start)
+def walk_context(positions, offsets, half, cell, counts, bin_start):
+    """What every walk over the sorted atoms needs, in one tuple: ``(xs, ys, zs, rows, half,
+    cell, counts, bin_start)``, with the coordinates as contiguous columns and the stencil rows
+    (``stencil_rows``) of the whole stencil or of its half."""
+    return (positions[:, 0].copy(), positions[:, 1].copy(), positions[:, 2].copy(), stencil_rows(offsets, half),
+            half, cell, counts, bin_start)
+
+
+@njit(cache=True, inline="always")
+def walk_workspace(walk):
+    """Work arrays of one thread for ``gather_partners``: ``(first, end, shift, partner, values,
+    dxs, dys, dzs, r2s)``."""
+    rows = walk[3]
+    n_range = range_capacity(rows, walk[6])
+    capacity = partner_capacity(rows, walk[7])
     return (np.empty(n_range, dtype=np.int64), np.empty(n_range, dtype=np.int64), np.empty((n_range, 3)),
             np.empty(capacity, dtype=np.int64), np.empty(capacity), np.empty(capacity), np.empty(capacity),
             np.empty(capacity), np.empty(capacity))
 
 
 @njit(cache=True, inline="always")
-def gather_partners(x, y, z, b0, b1, b2, i, half, rows, cell, counts, bin_start, xs, ys, zs, values, cut2,
-                    work):
+def gather_partners(x, y, z, b0, b1, b2, i, walk, values, cut2, work):
     """Partners within the cutoff of the origin (x, y, z) in bin (b0, b1, b2), compacted.
 
-    The origin is atom ``i`` (sorted index) or a point (-1); ``half`` walks the half stencil
-    (see ``stencil_ranges``). ``xs``, ``ys``, ``zs`` are the sorted atoms' coordinates, ``values``
-    a per-atom number carried along (a charge, a radius). Returns how many partners lie within
-    the cutoff; the first entries of ``work`` (``walk_workspace``) hold, in walking order, their
-    sorted index, value, separation origin - r_j - shift and squared distance.
+    The origin is atom ``i`` (sorted index) or a point (-1); ``walk`` is a ``walk_context`` (whole
+    or half stencil, see ``stencil_ranges``), ``values`` a per-atom number carried along (a charge,
+    a radius). Returns how many partners lie within the cutoff; the first entries of ``work``
+    (``walk_workspace``) hold, in walking order, their sorted index, value, separation
+    origin - r_j - shift and squared distance.
 
     Every candidate is written and the count advances only inside the cutoff: no branch per pair.
     """
+    xs, ys, zs, rows, half, cell, counts, bin_start = walk
     first, end, shift, partner, vs, dxs, dys, dzs, r2s = work
     n_ranges = stencil_ranges(b0, b1, b2, i, half, rows, cell, counts, bin_start, first, end, shift)
     m = 0
@@ -197,9 +207,24 @@ def gather_partners(x, y, z, b0, b1, b2, i, half, rows, cell, counts, bin_start,
 
 
 @njit(cache=True, inline="always")
-def chunk_parts(n, n_chunks, want_forces, want_virial):
-    """Zeroed rows of each chunk: a number per atom (N), forces (N, 3) and virial (N, 6) (one row
-    unless asked) and a pair count."""
+def atom_partners(i, bin_of, walk, values, cut2, work):
+    """``gather_partners`` around sorted atom i."""
+    return gather_partners(walk[0][i], walk[1][i], walk[2][i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, walk,
+                           values, cut2, work)
+
+
+@njit(cache=True, inline="always")
+def chunk_members(c, n, n_chunks):
+    """The items of chunk c when n items are split into n_chunks chunks of equal size (the last shorter)."""
+    size = (n + n_chunks - 1) // n_chunks
+    return range(c * size, min(n, (c + 1) * size))
+
+
+@njit(cache=True, inline="always")
+def chunk_parts(n, want_forces, want_virial):
+    """Zeroed rows of each of min(``CHUNKS``, n) chunks: a number per atom (N), forces (N, 3) and
+    virial (N, 6) (one row unless asked) and a pair count."""
+    n_chunks = min(CHUNKS, n)
     n_force = n if want_forces else 1
     n_virial = n if want_virial else 1
     return (np.zeros((n_chunks, n)), np.zeros((n_chunks, n_force, 3)), np.zeros((n_chunks, n_virial, 6)),
@@ -207,10 +232,14 @@ def chunk_parts(n, n_chunks, want_forces, want_virial):
 
 
 @njit(cache=True, inline="always")
-def chunk_totals(parts, want_forces, want_virial):
+def chunk_totals(per_atom_part, force_part, virial_part, pair_part, want_forces, want_virial):
     """The rows of ``chunk_parts`` summed over chunks in a fixed order: ``(per_atom, forces,
-    virial, pairs)``, forces and virial zeros unless asked."""
-    per_atom_part, force_part, virial_part, pair_part = parts
+    virial, pairs)``, forces and virial zeros unless asked.
+
+    Pass the four arrays, not the tuple ``chunk_parts`` returned: read through a tuple built before
+    a ``prange`` loop, a one-dimensional array written inside the loop (``pair_part[c] = ...``)
+    still shows the values it had before the loop (seen with Numba 0.68).
+    """
     n = per_atom_part.shape[1]
     per_atom = np.zeros(n)
     forces = np.zeros((n, 3))
@@ -222,9 +251,3 @@ def chunk_totals(parts, want_forces, want_virial):
         if want_virial:
             virial += virial_part[c]
     return per_atom, forces, virial, pair_part.sum()
-
-
-@njit(cache=True, inline="always")
-def sorted_coordinates(positions):
-    """The x, y and z columns of (N, 3) positions as three contiguous arrays."""
-    return positions[:, 0].copy(), positions[:, 1].copy(), positions[:, 2].copy()
