@@ -91,37 +91,27 @@ def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut
 
     Returns ``(owner, partner, distance)``: ``owner[p]`` is the position in ``sites``,
     ``partner[p]`` the sorted index of the partner, ``distance[p]`` in Å, in the order of the
-    walk (``walker.gather_partners`` over the whole stencil).
+    walk (``walker.gather_partners`` over the whole stencil). Two passes: count, fill.
     """
     walk = walk_context(positions, offsets, False, cell, counts, bin_start)
     work = walk_workspace(walk)
-    _, _, _, found, _, _, _, _, r2s = work
-    owner = np.empty(16, dtype=np.int64)
-    partner = np.empty(16, dtype=np.int64)
-    distance = np.empty(16)
+    found = work[3]
+    r2s = work[8]
+    total = 0
+    for s in range(sites.shape[0]):
+        total += atom_partners(sites[s], bin_of, walk, walk[0], r_cut * r_cut, work)
+    owner = np.empty(total, dtype=np.int64)
+    partner = np.empty(total, dtype=np.int64)
+    distance = np.empty(total)
     p = 0
     for s in range(sites.shape[0]):
-        i = sites[s]
-        m = atom_partners(i, bin_of, walk, positions[:, 0], r_cut * r_cut, work)
-        if p + m > len(owner):
-            room = max(2 * len(owner), p + m)
-            owner = _grown(owner, room)
-            partner = _grown(partner, room)
-            distance = _grown(distance, room)
+        m = atom_partners(sites[s], bin_of, walk, walk[0], r_cut * r_cut, work)
         for t in range(m):
             owner[p] = s
             partner[p] = found[t]
             distance[p] = math.sqrt(r2s[t])
             p += 1
-    return owner[:p].copy(), partner[:p].copy(), distance[:p].copy()
-
-
-@njit(cache=True)
-def _grown(values, size):
-    """A copy of ``values`` with room for ``size`` entries."""
-    out = np.empty(size, dtype=values.dtype)
-    out[:len(values)] = values
-    return out
+    return owner, partner, distance
 
 
 @njit(parallel=True, cache=True, fastmath={"contract"})

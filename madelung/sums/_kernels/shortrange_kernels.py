@@ -45,6 +45,17 @@ def _switch(r, r_on, r_cut):
     return s, ds
 
 
+@njit(cache=True)
+def _add_virial(virial, row, h, dx, dy, dz):
+    """Add h times the outer product of (dx, dy, dz) to ``virial[row]`` as xx, yy, zz, yz, xz, xy."""
+    virial[row, 0] += h * dx * dx
+    virial[row, 1] += h * dy * dy
+    virial[row, 2] += h * dz * dz
+    virial[row, 3] += h * dy * dz
+    virial[row, 4] += h * dx * dz
+    virial[row, 5] += h * dx * dy
+
+
 @njit(cache=True, inline="always")
 def _pair_energy(row, r, r2):
     """phi(r) and dphi/dr of one table row (B, n, A, 1/rho, C)."""
@@ -113,15 +124,15 @@ def pair_terms(positions, species, cell, counts, offsets, bin_of, bin_start, tab
                     dy = dys[t]
                     dz = dzs[t]
                     if want_forces:
-                        separation = (dx, dy, dz)
-                        for a in range(3):
-                            forces[i, a] -= de_over_r * separation[a]
-                            forces[j, a] += de_over_r * separation[a]
+                        forces[i, 0] -= de_over_r * dx
+                        forces[i, 1] -= de_over_r * dy
+                        forces[i, 2] -= de_over_r * dz
+                        forces[j, 0] += de_over_r * dx
+                        forces[j, 1] += de_over_r * dy
+                        forces[j, 2] += de_over_r * dz
                     if want_virial:
                         h = 0.5 * de_over_r
-                        products = (dx * dx, dy * dy, dz * dz, dy * dz, dx * dz, dx * dy)
-                        for a in range(6):
-                            virial[i, a] += h * products[a]
-                            virial[j, a] += h * products[a]
+                        _add_virial(virial, i, h, dx, dy, dz)
+                        _add_virial(virial, j, h, dx, dy, dz)
         pair_part[c] = count
     return chunk_totals(energy_part, force_part, virial_part, pair_part, want_forces, want_virial)

@@ -100,7 +100,7 @@ def partner_capacity(rows, bin_start):
     return width * largest + 1
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _add_range(g, lo, hi, s0, s1, s2, cell, first, end, shift):
     """Record range g: atoms lo .. hi - 1 seen shifted by s0 a + s1 b + s2 c."""
     first[g] = lo
@@ -109,7 +109,7 @@ def _add_range(g, lo, hi, s0, s1, s2, cell, first, end, shift):
         shift[g, a] = s0 * cell[0, a] + s1 * cell[1, a] + s2 * cell[2, a]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def stencil_ranges(b0, b1, b2, i, half, rows, cell, counts, bin_start, first, end, shift):
     """The atoms over the stencil ``rows`` around bin (b0, b1, b2), as index ranges of the sorted
     atoms: range g is ``first[g]`` to ``end[g] - 1``, its atoms seen shifted by the lattice vector
@@ -150,7 +150,7 @@ def stencil_ranges(b0, b1, b2, i, half, rows, cell, counts, bin_start, first, en
     return g
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def walk_context(positions, offsets, half, cell, counts, bin_start):
     """What every walk over the sorted atoms needs, in one tuple: ``(xs, ys, zs, rows, half,
     cell, counts, bin_start)``, with the coordinates as contiguous columns and the stencil rows
@@ -159,7 +159,7 @@ def walk_context(positions, offsets, half, cell, counts, bin_start):
             half, cell, counts, bin_start)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def walk_workspace(walk):
     """Work arrays of one thread for ``gather_partners``: ``(first, end, shift, partner, values,
     dxs, dys, dzs, r2s)``."""
@@ -171,7 +171,7 @@ def walk_workspace(walk):
             np.empty(capacity), np.empty(capacity))
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def gather_partners(x, y, z, b0, b1, b2, i, walk, values, cut2, work):
     """Partners within the cutoff of the origin (x, y, z) in bin (b0, b1, b2), compacted.
 
@@ -206,7 +206,7 @@ def gather_partners(x, y, z, b0, b1, b2, i, walk, values, cut2, work):
     return m
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def atom_partners(i, bin_of, walk, values, cut2, work):
     """``gather_partners`` around sorted atom i."""
     return gather_partners(walk[0][i], walk[1][i], walk[2][i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, walk,
