@@ -15,7 +15,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .walker import atom_partners, chunk_members, range_capacity, stencil_ranges, walk_context, walk_workspace
+from .walker import atom_partners, chunk_bounds, range_capacity, stencil_ranges, walk_context, walk_workspace
 
 
 #: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
@@ -67,7 +67,8 @@ def nearest_neighbours(positions, charges, cell, counts, offsets, bin_of, bin_st
     for c in prange(n_chunks):
         work = walk_workspace(walk)
         _, _, _, found, qs, _, _, _, r2s = work
-        for i in chunk_members(c, n, n_chunks):
+        start, stop = chunk_bounds(c, n, n_chunks)
+        for i in range(start, stop):
             m = atom_partners(i, bin_of, walk, charges, cutoff * cutoff, work)
             best = np.inf
             best_j = -1
@@ -133,7 +134,8 @@ def closest_distance(positions, cell, counts, offsets, bin_of, bin_start):
         end = np.empty(capacity, dtype=np.int64)
         shift = np.empty((capacity, 3))
         lowest = np.inf
-        for i in chunk_members(c, n, n_chunks):
+        start, stop = chunk_bounds(c, n, n_chunks)
+        for i in range(start, stop):
             n_ranges = stencil_ranges(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, True, rows, cell, counts,
                                       bin_start, first, end, shift)
             for g in range(n_ranges):

@@ -29,7 +29,7 @@ from numba import njit, prange
 from .erfc import erfc_and_gaussian
 from .geometry_kernels import PRANGE_ONLY
 from .walker import CHUNKS  # noqa: F401  (callers of structure_factors pass kernels.CHUNKS)
-from .walker import atom_partners, chunk_members, chunk_parts, chunk_totals, walk_context, walk_workspace
+from .walker import atom_partners, chunk_bounds, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
@@ -68,7 +68,8 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
         screened = np.empty(len(r2s))
         slope = np.empty(len(r2s))
         count = 0
-        for i in chunk_members(c, n, len(pair_part)):
+        start, stop = chunk_bounds(c, n, len(pair_part))
+        for i in range(start, stop):
             m = atom_partners(i, bin_of, walk, charges, r_cut * r_cut, work)
             count += 2 * m
             qi = charges[i]

@@ -25,7 +25,7 @@ import numpy as np
 from numba import njit, prange
 
 from .erfc import erfc_and_gaussian
-from .walker import chunk_members, gather_partners, walk_context, walk_workspace
+from .walker import chunk_bounds, gather_partners, walk_context, walk_workspace
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 
@@ -33,7 +33,7 @@ _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
 POINTS_PER_CHUNK = 16
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def _ions_near(p, points, point_bin, walk, values, cut2, work):
     """The ions within the cutoff of point p over the whole stencil (``walker.gather_partners``)."""
     return gather_partners(points[p, 0], points[p, 1], points[p, 2], point_bin[p, 0], point_bin[p, 1],
@@ -75,7 +75,8 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
     for c in prange(n_chunks):
         work = walk_workspace(walk)
         _, _, _, partner, qs, dxs, dys, dzs, r2s = work
-        for p in chunk_members(c, m_points, n_chunks):
+        start, stop = chunk_bounds(c, m_points, n_chunks)
+        for p in range(start, stop):
             m = _ions_near(p, points, point_bin, walk, charges, r_cut * r_cut, work)
             phi = 0.0
             ex = 0.0
@@ -143,7 +144,8 @@ def contact_repulsion_at_points(points, point_bin, positions, radii, cell, count
     for c in prange(n_chunks):
         work = walk_workspace(walk)
         _, _, _, _, radius, dxs, dys, dzs, r2s = work
-        for p in chunk_members(c, m_points, n_chunks):
+        start, stop = chunk_bounds(c, m_points, n_chunks)
+        for p in range(start, stop):
             m = _ions_near(p, points, point_bin, walk, radii, r_cut * r_cut, work)
             e = 0.0
             gx = 0.0

@@ -30,7 +30,7 @@ import numpy as np
 from numba import njit, prange
 
 from .geometry_kernels import PRANGE_ONLY
-from .walker import atom_partners, chunk_members, chunk_parts, chunk_totals, walk_context, walk_workspace
+from .walker import atom_partners, chunk_bounds, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 
 @njit(cache=True, inline="always")
@@ -103,7 +103,8 @@ def pair_terms(positions, species, cell, counts, offsets, bin_of, bin_start, tab
         work = walk_workspace(walk)
         _, _, _, partner, kind, dxs, dys, dzs, r2s = work
         count = 0
-        for i in chunk_members(c, n, len(pair_part)):
+        start, stop = chunk_bounds(c, n, len(pair_part))
+        for i in range(start, stop):
             m = atom_partners(i, bin_of, walk, kinds, r_cut * r_cut, work)
             si = species[i]
             for t in range(m):

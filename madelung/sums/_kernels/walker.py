@@ -3,10 +3,11 @@ separation -> cutoff.
 
 Atoms are sorted into a grid of bins over the cell in fractional coordinates (``geometry.build_bins``);
 a partner within the cutoff lies in one of the bins of the stencil ``CellBins.offsets`` around the
-bin of the origin (an atom or any point). The walk goes in three steps, each an inline function
-(``inline="always"``): the entry kernels that call them are compiled once with the pair physics
-written in them and cached on disk (``cache=True``), so nothing is passed at run time that Numba
-would have to compile anew in each process.
+bin of the origin (an atom or any point). The walk goes in three steps, each an ordinary Numba function
+compiled once per process (or loaded from the disk cache) for all kernels, which LLVM inlines
+into each entry kernel; the entry kernels are compiled with the pair physics written in them and
+cached on disk (``cache=True``), so nothing is passed at run time that Numba would have to
+compile anew in each process.
 
 1. ``stencil_rows``: the stencil as rows of bins along the last axis, the whole stencil (every
    partner of a point, or of an atom, from its own side) or the half that finds each pair of
@@ -213,14 +214,15 @@ def atom_partners(i, bin_of, walk, values, cut2, work):
                            values, cut2, work)
 
 
-@njit(cache=True, inline="always")
-def chunk_members(c, n, n_chunks):
-    """The items of chunk c when n items are split into n_chunks chunks of equal size (the last shorter)."""
+@njit(cache=True)
+def chunk_bounds(c, n, n_chunks):
+    """First and one-past-last item of chunk c when n items are split into n_chunks chunks of equal
+    size (the last shorter)."""
     size = (n + n_chunks - 1) // n_chunks
-    return range(c * size, min(n, (c + 1) * size))
+    return c * size, min(n, (c + 1) * size)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def chunk_parts(n, want_forces, want_virial):
     """Zeroed rows of each of min(``CHUNKS``, n) chunks: a number per atom (N), forces (N, 3) and
     virial (N, 6) (one row unless asked) and a pair count."""
@@ -231,7 +233,7 @@ def chunk_parts(n, want_forces, want_virial):
             np.zeros(n_chunks, dtype=np.int64))
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def chunk_totals(per_atom_part, force_part, virial_part, pair_part, want_forces, want_virial):
     """The rows of ``chunk_parts`` summed over chunks in a fixed order: ``(per_atom, forces,
     virial, pairs)``, forces and virial zeros unless asked.
