@@ -15,7 +15,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .walker import atom_partners, chunk_bounds, range_capacity, stencil_ranges, walk_context, walk_workspace
+from .walker import shared_atom_partners, chunk_bounds, range_capacity, stencil_ranges, walk_context, walk_workspace
 
 
 #: Parallel options of kernels whose explicit ``prange`` loops are the only parallel work: array
@@ -69,7 +69,7 @@ def nearest_neighbours(positions, charges, cell, counts, offsets, bin_of, bin_st
         _, _, _, found, qs, _, _, _, r2s = work
         start, stop = chunk_bounds(c, n, n_chunks)
         for i in range(start, stop):
-            m = atom_partners(i, bin_of, walk, charges, cutoff * cutoff, work)
+            m = shared_atom_partners(i, bin_of, walk, charges, cutoff * cutoff, work)
             best = np.inf
             best_j = -1
             best_opp = np.inf
@@ -100,13 +100,13 @@ def pairs_from(sites, positions, cell, counts, offsets, bin_of, bin_start, r_cut
     r2s = work[8]
     total = 0
     for s in range(sites.shape[0]):
-        total += atom_partners(sites[s], bin_of, walk, walk[0], r_cut * r_cut, work)
+        total += shared_atom_partners(sites[s], bin_of, walk, walk[0], r_cut * r_cut, work)
     owner = np.empty(total, dtype=np.int64)
     partner = np.empty(total, dtype=np.int64)
     distance = np.empty(total)
     p = 0
     for s in range(sites.shape[0]):
-        m = atom_partners(sites[s], bin_of, walk, walk[0], r_cut * r_cut, work)
+        m = shared_atom_partners(sites[s], bin_of, walk, walk[0], r_cut * r_cut, work)
         for t in range(m):
             owner[p] = s
             partner[p] = found[t]

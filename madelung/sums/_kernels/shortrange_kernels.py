@@ -30,7 +30,7 @@ import numpy as np
 from numba import njit, prange
 
 from .geometry_kernels import PRANGE_ONLY
-from .walker import atom_partners, chunk_bounds, chunk_parts, chunk_totals, walk_context, walk_workspace
+from .walker import shared_atom_partners, chunk_bounds, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 
 @njit(cache=True, inline="always")
@@ -105,7 +105,7 @@ def pair_terms(positions, species, cell, counts, offsets, bin_of, bin_start, tab
         count = 0
         start, stop = chunk_bounds(c, n, len(pair_part))
         for i in range(start, stop):
-            m = atom_partners(i, bin_of, walk, kinds, r_cut * r_cut, work)
+            m = shared_atom_partners(i, bin_of, walk, kinds, r_cut * r_cut, work)
             si = species[i]
             for t in range(m):
                 row = table[si, int(kind[t])]

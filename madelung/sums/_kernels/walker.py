@@ -3,11 +3,12 @@ separation -> cutoff.
 
 Atoms are sorted into a grid of bins over the cell in fractional coordinates (``geometry.build_bins``);
 a partner within the cutoff lies in one of the bins of the stencil ``CellBins.offsets`` around the
-bin of the origin (an atom or any point). The walk goes in three steps, each an ordinary Numba function
-compiled once per process (or loaded from the disk cache) for all kernels, which LLVM inlines
-into each entry kernel; the entry kernels are compiled with the pair physics written in them and
-cached on disk (``cache=True``), so nothing is passed at run time that Numba would have to
-compile anew in each process.
+bin of the origin (an atom or any point). The walk goes in three steps, inline functions
+(``inline="always"``) that the real-space Coulomb kernel takes into its own body (its hot loop);
+the kernels whose pair physics costs more than a call per atom call ``shared_atom_partners``
+instead, one compiled copy for all of them (a shorter cold compile). Every entry kernel is
+compiled with its pair physics written in it and cached on disk (``cache=True``): no function is
+passed at run time that Numba would have to compile anew in each process.
 
 1. ``stencil_rows``: the stencil as rows of bins along the last axis, the whole stencil (every
    partner of a point, or of an atom, from its own side) or the half that finds each pair of
@@ -101,7 +102,7 @@ def partner_capacity(rows, bin_start):
     return width * largest + 1
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _add_range(g, lo, hi, s0, s1, s2, cell, first, end, shift):
     """Record range g: atoms lo .. hi - 1 seen shifted by s0 a + s1 b + s2 c."""
     first[g] = lo
@@ -110,7 +111,7 @@ def _add_range(g, lo, hi, s0, s1, s2, cell, first, end, shift):
         shift[g, a] = s0 * cell[0, a] + s1 * cell[1, a] + s2 * cell[2, a]
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def stencil_ranges(b0, b1, b2, i, half, rows, cell, counts, bin_start, first, end, shift):
     """The atoms over the stencil ``rows`` around bin (b0, b1, b2), as index ranges of the sorted
     atoms: range g is ``first[g]`` to ``end[g] - 1``, its atoms seen shifted by the lattice vector
@@ -151,7 +152,7 @@ def stencil_ranges(b0, b1, b2, i, half, rows, cell, counts, bin_start, first, en
     return g
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def walk_context(positions, offsets, half, cell, counts, bin_start):
     """What every walk over the sorted atoms needs, in one tuple: ``(xs, ys, zs, rows, half,
     cell, counts, bin_start)``, with the coordinates as contiguous columns and the stencil rows
@@ -160,7 +161,7 @@ def walk_context(positions, offsets, half, cell, counts, bin_start):
             half, cell, counts, bin_start)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def walk_workspace(walk):
     """Work arrays of one thread for ``gather_partners``: ``(first, end, shift, partner, values,
     dxs, dys, dzs, r2s)``."""
@@ -172,7 +173,7 @@ def walk_workspace(walk):
             np.empty(capacity), np.empty(capacity))
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def gather_partners(x, y, z, b0, b1, b2, i, walk, values, cut2, work):
     """Partners within the cutoff of the origin (x, y, z) in bin (b0, b1, b2), compacted.
 
@@ -207,11 +208,18 @@ def gather_partners(x, y, z, b0, b1, b2, i, walk, values, cut2, work):
     return m
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def atom_partners(i, bin_of, walk, values, cut2, work):
     """``gather_partners`` around sorted atom i."""
     return gather_partners(walk[0][i], walk[1][i], walk[2][i], bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], i, walk,
                            values, cut2, work)
+
+
+@njit(cache=True)
+def shared_atom_partners(i, bin_of, walk, values, cut2, work):
+    """``atom_partners`` compiled once as an ordinary function for the kernels whose pair physics
+    costs more than a call per atom (short range, neighbours): they share its compiled code."""
+    return atom_partners(i, bin_of, walk, values, cut2, work)
 
 
 @njit(cache=True)
