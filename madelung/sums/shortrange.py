@@ -64,7 +64,7 @@ PARAMETER_UNITS = {"B": "eV Å^n", "n": "1", "A": "eV", "rho": "Å", "C": "eV Å
 DEFAULT_CUTOFF = 10.0
 DEFAULT_SWITCH_WIDTH = 2.0
 #: Rough cost of one examined pair of the short-range sum, ns (an exponential or a power for the
-#: third or so inside the cutoff), for the thread budget.
+#: third or so inside the cutoff), for the thread budget; each pair is examined once (half stencil).
 EXAMINED_PAIR_NS = 12.0
 FILE_KEY = "madelung_repulsion"
 FILE_VERSION = 1
@@ -345,10 +345,10 @@ def shortrange(crystal, model, forces=False, stress=False) -> ShortRangeResult:
     cell = np.ascontiguousarray(crystal.cell, dtype=np.float64)
     bins = build_bins(cell, crystal.positions, model.cutoff)
     r_on = model.cutoff - model.switch_width
-    examined = len(crystal) ** 2 * bins.examined_volume / crystal.volume
+    examined = len(crystal) ** 2 * bins.examined_volume / crystal.volume / 2
     with thread_budget(examined * EXAMINED_PAIR_NS):  # small cells on one thread
         energy, f, w, pairs = shortrange_kernels.pair_terms(
-            bins.positions, np.ascontiguousarray(sites[bins.order]), bins.cell, bins.counts, bins.reach,
+            bins.positions, np.ascontiguousarray(sites[bins.order]), bins.cell, bins.counts, bins.offsets,
             bins.bin_of, bins.bin_start, table, float(r_on), float(model.cutoff), bool(forces), bool(stress))
     site_energies = bins.unsorted(energy)
     force_array = bins.unsorted(f) if forces else None

@@ -15,9 +15,10 @@ Reciprocal space, over half of k-space (k and -k give equal terms)::
 Phases exp(i k.r) come from tables along each reciprocal axis for a block of atoms, built by
 recurrence (exp(2 pi i h f) = exp(2 pi i f)^h), so a k-vector costs one complex product per atom
 along a run of consecutive l; the loops run over the block's atoms (vector instructions).
-Real space walks half of the bin stencil in rows of bins contiguous in memory, compacts the
-partners inside the cutoff without branches and evaluates erfc with a branch-free polynomial
-(``erfc.py``). Every result is accumulated in a fixed order whatever the number of threads.
+Real space walks half of the bin stencil with the shared neighbour walk (``walker.py``: rows
+of bins contiguous in memory, partners inside the cutoff compacted without branches) and
+evaluates erfc with a branch-free polynomial (``erfc.py``). Every result is accumulated in a
+fixed order whatever the number of threads.
 """
 
 import math
@@ -25,58 +26,13 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .geometry_kernels import (PRANGE_ONLY, half_stencil_ranges, half_stencil_rows, range_capacity,
-                                range_origin)
 from .erfc import erfc_and_gaussian
+from .geometry_kernels import PRANGE_ONLY
 from .variants import parallel_kernel
+from .walker import CHUNKS  # noqa: F401  (callers of structure_factors pass kernels.CHUNKS)
+from .walker import atom_partners, chunk_bounds, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
-
-#: Work is split into this many chunks whatever the number of threads, so that the order of
-#: floating-point additions, and with it every digit of the result, does not depend on the machine.
-CHUNKS = 8
-
-
-@njit(cache=True, inline="always")
-def gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_start, cut2,
-                    first, end, shift, partner, qs, dxs, dys, dzs, r2s):
-    """Partners of atom i over the half stencil ``rows`` (``geometry_kernels.half_stencil_ranges``),
-    compacted: returns how many lie within the cutoff; their sorted index, charge, separation
-    r_i - r_j - shift and squared distance are in the first entries of ``partner``, ``qs``,
-    ``dxs``, ``dys``, ``dzs``, ``r2s``. ``first``, ``end``, ``shift`` are work space for the ranges.
-
-    Every candidate is written and the count advances only inside the cutoff: no branch per pair.
-    """
-    n_ranges = half_stencil_ranges(i, rows, cell, counts, bin_of, bin_start, first, end, shift)
-    m = 0
-    for g in range(n_ranges):
-        ox, oy, oz = range_origin(i, g, xs, ys, zs, shift)
-        for j in range(first[g], end[g]):
-            dx = ox - xs[j]
-            dy = oy - ys[j]
-            dz = oz - zs[j]
-            r2 = dx * dx + dy * dy + dz * dz
-            partner[m] = j
-            qs[m] = charges[j]
-            dxs[m] = dx
-            dys[m] = dy
-            dzs[m] = dz
-            r2s[m] = r2
-            m += r2 < cut2
-    return m
-
-
-@njit(cache=True)
-def partner_capacity(rows, bin_start):
-    """Room for the candidates of any atom over the half stencil, plus one spare slot."""
-    largest = 0
-    for b in range(len(bin_start) - 1):
-        largest = max(largest, bin_start[b + 1] - bin_start[b])
-    width = 0
-    for r in range(rows.shape[0]):
-        width += rows[r, 3] - rows[r, 2] + 1
-    return width * largest + 1
-
 
 @parallel_kernel(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"}, error_model="numpy")
 def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_start,
@@ -84,55 +40,38 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
     """Real-space potentials, forces and per-atom virial of the screened Coulomb sum.
 
     Atoms must be sorted by bin and ``offsets`` is the bin stencil (see ``geometry.build_bins``).
-    Each pair (i, j, image) is found once, from the half of the stencil ``half_stencil_rows``
-    keeps, by ``gather_partners``; the pair function over the compacted partners is one
-    branch-free loop (vector instructions, ``erfc.erfc_and_gaussian``); a second loop adds each
-    pair to atom j. Atoms are split into ``CHUNKS`` chunks, each accumulating into its own rows,
-    which are summed at the end in a fixed order (no two threads write one place, and the result
-    does not depend on the number of threads).
+    Each pair (i, j, image) is found once, on the half stencil, by ``walker.gather_partners``; the
+    pair function over the compacted partners is one branch-free loop (vector instructions,
+    ``erfc.erfc_and_gaussian``); a second loop adds each pair to atom j. Atoms are split into
+    ``CHUNKS`` chunks, each accumulating into its own rows, which are summed at the end in a fixed
+    order (no two threads write one place, and the result does not depend on the number of threads).
 
     Returns ``(potential, forces, virial, pairs)``: potential (N,) in e/Å; forces (N, 3) in
     e^2/Å^2 (zeros unless asked); virial (N, 6) as xx, yy, zz, yz, xz, xy of dE/d(strain) in e^2/Å,
     each pair's whole share in the row of one of its atoms (zeros unless asked; the sum over
     atoms is the virial); pairs, the number of (i, j, image) terms inside the cutoff counting
     both orders, as in the double sum.
+
+    References
+    ----------
+    P. P. Ewald, Ann. Phys. 369 (1921) 253.
     """
     n = positions.shape[0]
-    n_chunks = min(CHUNKS, n)
-    n_force = n if want_forces else 1
-    n_virial = n if want_virial else 1
-    potential_part = np.zeros((n_chunks, n))
-    force_part = np.zeros((n_chunks, n_force, 3))
-    virial_part = np.zeros((n_chunks, n_virial, 6))
-    pair_part = np.zeros(n_chunks, dtype=np.int64)
-    cut2 = r_cut * r_cut
-    chunk = (n + n_chunks - 1) // n_chunks
-    xs = positions[:, 0].copy()
-    ys = positions[:, 1].copy()
-    zs = positions[:, 2].copy()
-    rows = half_stencil_rows(offsets)
-    capacity = partner_capacity(rows, bin_start)
-    n_range = range_capacity(rows, counts)
+    walk = walk_context(positions, offsets, True, cell, counts, bin_start)
+    potential_part, force_part, virial_part, pair_part = chunk_parts(n, want_forces, want_virial)
     derivatives = want_forces or want_virial
-    for c in prange(n_chunks):
+    for c in prange(len(pair_part)):
         phi = potential_part[c]
         force = force_part[c]
         virial = virial_part[c]
-        first = np.empty(n_range, dtype=np.int64)
-        end = np.empty(n_range, dtype=np.int64)
-        shift = np.empty((n_range, 3))
-        partner = np.empty(capacity, dtype=np.int64)
-        qs = np.empty(capacity)
-        dxs = np.empty(capacity)
-        dys = np.empty(capacity)
-        dzs = np.empty(capacity)
-        r2s = np.empty(capacity)
-        screened = np.empty(capacity)
-        slope = np.empty(capacity)
+        work = walk_workspace(walk)
+        _, _, _, partner, qs, dxs, dys, dzs, r2s = work
+        screened = np.empty(len(r2s))
+        slope = np.empty(len(r2s))
         count = 0
-        for i in range(c * chunk, min(n, (c + 1) * chunk)):
-            m = gather_partners(i, xs, ys, zs, charges, cell, counts, rows, bin_of, bin_start, cut2,
-                                first, end, shift, partner, qs, dxs, dys, dzs, r2s)
+        start, stop = chunk_bounds(c, n, len(pair_part))
+        for i in range(start, stop):
+            m = atom_partners(i, bin_of, walk, charges, r_cut * r_cut, work)
             count += 2 * m
             qi = charges[i]
             # the pair function, one vectorised loop: erfc(a r)/r and g = -(1/r) d/dr [erfc(a r)/r]
@@ -192,16 +131,7 @@ def real_space_terms(positions, charges, cell, counts, offsets, bin_of, bin_star
                 virial[i, 4] -= qi * wxz
                 virial[i, 5] -= qi * wxy
         pair_part[c] = count
-    potential = np.zeros(n)
-    forces = np.zeros((n, 3))
-    virial_total = np.zeros((n, 6))
-    for c in range(n_chunks):
-        potential += potential_part[c]
-        if want_forces:
-            forces += force_part[c]
-        if want_virial:
-            virial_total += virial_part[c]
-    return potential, forces, virial_total, pair_part.sum()
+    return chunk_totals(potential_part, force_part, virial_part, pair_part, want_forces, want_virial)
 
 
 #: Atoms per block of the reciprocal kernels: their phase tables stay in the fast caches and

@@ -1,8 +1,9 @@
 """Numba kernels for sums at arbitrary points of space (not only at the ions).
 
 The ions are sorted into bins by ``geometry.build_bins``; each point is given its own bin
-(from its wrapped fractional coordinates) and walks the same pruned stencil of neighbour bins (``CellBins.offsets``) with
-``geometry_kernels.neighbour_bin`` that the ion-ion sums use. One thread owns each point.
+(from its wrapped fractional coordinates) and walks the whole pruned stencil of neighbour bins
+(``CellBins.offsets``) with the neighbour walk the ion-ion sums use (``walker.gather_partners``,
+the point being no ion). Points are split into chunks, each thread owning its points.
 
     real space at a point r:   sum_j,n q_j [erfc(alpha d) - erfc(beta d)] / d,   d = |r - r_j - n|
 
@@ -11,6 +12,11 @@ non-positive ``beta`` means point ions (the erfc(beta d) term is left out). The
 reciprocal-space part at points is ``kernels.reciprocal_site_terms`` with unit charges.
 
 Kernels do arithmetic only; the Python side (``madelung.analysis.defects``) validates and chooses.
+
+References
+----------
+P. P. Ewald, Ann. Phys. 369 (1921) 253 (the real-space sum); M. Born and J. E. Mayer, Z. Phys. 75
+(1932) 1 (the exponential contact repulsion).
 """
 
 import math
@@ -18,10 +24,20 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .geometry_kernels import image_shift, neighbour_bin
 from .erfc import erfc_and_gaussian
+from .walker import chunk_bounds, gather_partners, walk_context, walk_workspace
 
 _TWO_OVER_SQRT_PI = 2.0 / math.sqrt(math.pi)
+
+#: Points per chunk of work (one thread's share at a time, one work space).
+POINTS_PER_CHUNK = 16
+
+
+@njit(cache=True)
+def _ions_near(p, points, point_bin, walk, values, cut2, work):
+    """The ions within the cutoff of point p over the whole stencil (``walker.gather_partners``)."""
+    return gather_partners(points[p, 0], points[p, 1], points[p, 2], point_bin[p, 0], point_bin[p, 1],
+                           point_bin[p, 2], -1, walk, values, cut2, work)
 
 
 @njit(parallel=True, cache=True)
@@ -46,44 +62,39 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
     the nearest ion within ``r_cut`` (inf if none), Å; nearest_index (M,) its sorted index (-1);
     pairs, the number of (point, ion, image) terms summed.
     """
-    m = points.shape[0]
-    potential = np.zeros(m)
-    field = np.zeros((m, 3))
-    nearest = np.full(m, np.inf)
-    nearest_index = np.full(m, -1, dtype=np.int64)
-    pair_count = np.zeros(m, dtype=np.int64)
-    cut2 = r_cut * r_cut
+    m_points = points.shape[0]
+    potential = np.zeros(m_points)
+    field = np.zeros((m_points, 3))
+    nearest = np.full(m_points, np.inf)
+    nearest_index = np.full(m_points, -1, dtype=np.int64)
+    pair_count = np.zeros(m_points, dtype=np.int64)
     co2 = coincide * coincide
     smeared = beta > 0.0
-    for p in prange(m):
-        xp = points[p, 0]
-        yp = points[p, 1]
-        zp = points[p, 2]
-        phi = 0.0
-        ex = 0.0
-        ey = 0.0
-        ez = 0.0
-        best = np.inf
-        best_j = -1
-        count = 0
-        for o in range(offsets.shape[0]):
-            b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
-                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
-            sx, sy, sz = image_shift(cell, s0, s1, s2)
-            for j in range(bin_start[b], bin_start[b + 1]):
-                dx = xp - positions[j, 0] - sx
-                dy = yp - positions[j, 1] - sy
-                dz = zp - positions[j, 2] - sz
-                r2 = dx * dx + dy * dy + dz * dz
-                if r2 >= cut2:
-                    continue
+    walk = walk_context(positions, offsets, False, cell, counts, bin_start)
+    n_chunks = (m_points + POINTS_PER_CHUNK - 1) // POINTS_PER_CHUNK
+    for c in prange(n_chunks):
+        work = walk_workspace(walk)
+        _, _, _, partner, qs, dxs, dys, dzs, r2s = work
+        start, stop = chunk_bounds(c, m_points, n_chunks)
+        for p in range(start, stop):
+            m = _ions_near(p, points, point_bin, walk, charges, r_cut * r_cut, work)
+            phi = 0.0
+            ex = 0.0
+            ey = 0.0
+            ez = 0.0
+            best = np.inf
+            best_j = -1
+            count = 0
+            for t in range(m):
+                r2 = r2s[t]
+                j = partner[t]
                 if r2 < best:
                     best = r2
                     best_j = j
                 if j == exclude[p] and r2 < co2:
                     continue
                 count += 1
-                q = charges[j]
+                q = qs[t]
                 if r2 < 1e-24:
                     # only reachable for smeared ions (points on point ions are refused)
                     if smeared:
@@ -101,18 +112,18 @@ def real_space_at_points(points, point_bin, exclude, positions, charges, cell, c
                     g -= (wide + _TWO_OVER_SQRT_PI * beta * gaussian_b) / r2
                 phi += q * screened
                 if want_field:
-                    ex += q * g * dx
-                    ey += q * g * dy
-                    ez += q * g * dz
-        potential[p] = phi
-        pair_count[p] = count
-        if best_j >= 0:
-            nearest[p] = math.sqrt(best)
-            nearest_index[p] = best_j
-        if want_field:
-            field[p, 0] = ex
-            field[p, 1] = ey
-            field[p, 2] = ez
+                    ex += q * g * dxs[t]
+                    ey += q * g * dys[t]
+                    ez += q * g * dzs[t]
+            potential[p] = phi
+            pair_count[p] = count
+            if best_j >= 0:
+                nearest[p] = math.sqrt(best)
+                nearest_index[p] = best_j
+            if want_field:
+                field[p, 0] = ex
+                field[p, 1] = ey
+                field[p, 2] = ez
     return potential, field, nearest, nearest_index, pair_count.sum()
 
 
@@ -125,42 +136,37 @@ def contact_repulsion_at_points(points, point_bin, positions, radii, cell, count
     d = |r - r_j - n|. Returns energy (M,) in the units of ``prefactor`` and the gradient
     dE/dr (M, 3) per Å (zeros unless asked).
     """
-    m = points.shape[0]
-    energy = np.zeros(m)
-    gradient = np.zeros((m, 3))
-    cut2 = r_cut * r_cut
-    for p in prange(m):
-        xp = points[p, 0]
-        yp = points[p, 1]
-        zp = points[p, 2]
-        e = 0.0
-        gx = 0.0
-        gy = 0.0
-        gz = 0.0
-        for o in range(offsets.shape[0]):
-            b, s0, s1, s2 = neighbour_bin(point_bin[p, 0], point_bin[p, 1], point_bin[p, 2],
-                                          offsets[o, 0], offsets[o, 1], offsets[o, 2], counts)
-            sx, sy, sz = image_shift(cell, s0, s1, s2)
-            for j in range(bin_start[b], bin_start[b + 1]):
-                dx = xp - positions[j, 0] - sx
-                dy = yp - positions[j, 1] - sy
-                dz = zp - positions[j, 2] - sz
-                r2 = dx * dx + dy * dy + dz * dz
-                if r2 >= cut2 or r2 < 1e-24:
+    m_points = points.shape[0]
+    energy = np.zeros(m_points)
+    gradient = np.zeros((m_points, 3))
+    walk = walk_context(positions, offsets, False, cell, counts, bin_start)
+    n_chunks = (m_points + POINTS_PER_CHUNK - 1) // POINTS_PER_CHUNK
+    for c in prange(n_chunks):
+        work = walk_workspace(walk)
+        _, _, _, _, radius, dxs, dys, dzs, r2s = work
+        start, stop = chunk_bounds(c, m_points, n_chunks)
+        for p in range(start, stop):
+            m = _ions_near(p, points, point_bin, walk, radii, r_cut * r_cut, work)
+            e = 0.0
+            gx = 0.0
+            gy = 0.0
+            gz = 0.0
+            for t in range(m):
+                if r2s[t] < 1e-24:
                     continue
-                r = math.sqrt(r2)
-                term = prefactor * math.exp((radii[j] + probe_radius - r) / softness)
+                r = math.sqrt(r2s[t])
+                term = prefactor * math.exp((radius[t] + probe_radius - r) / softness)
                 e += term
                 if want_gradient:
                     h = -term / (softness * r)
-                    gx += h * dx
-                    gy += h * dy
-                    gz += h * dz
-        energy[p] = e
-        if want_gradient:
-            gradient[p, 0] = gx
-            gradient[p, 1] = gy
-            gradient[p, 2] = gz
+                    gx += h * dxs[t]
+                    gy += h * dys[t]
+                    gz += h * dzs[t]
+            energy[p] = e
+            if want_gradient:
+                gradient[p, 0] = gx
+                gradient[p, 1] = gy
+                gradient[p, 2] = gz
     return energy, gradient
 
 

@@ -1,21 +1,27 @@
 """Numba kernels of the short-range pair terms (repulsion and dispersion).
 
-Arithmetic only. For every ion i (sorted by bin, see ``geometry.build_bins``) the kernel
-walks the partners j and images within the cutoff through ``geometry_kernels.neighbour_bin``,
-exactly like the real-space Coulomb kernel, and sums the pair energy
+Arithmetic only. The ions (sorted by bin, see ``geometry.build_bins``) walk the half of the
+bin stencil with the neighbour walk the real-space Coulomb kernel uses (``walker.gather_partners``),
+so each pair (i, j, image) within the cutoff is found once, and the pair energy
 
     phi(r) = B r^-n + A exp(-r / rho) - C r^-6
 
 times a switching function S(r) that takes the pair terms smoothly to zero between
-``r_on`` and ``r_cut``. Each pair species (s_i, s_j) has its row ``table[s_i, s_j]`` =
-(B, n, A, 1/rho, C); a form that is not used has zero prefactors.
+``r_on`` and ``r_cut`` is added to both ions. Each pair species (s_i, s_j) has its row
+``table[s_i, s_j]`` = (B, n, A, 1/rho, C); a form that is not used has zero prefactors.
 
 Switching (C2-continuous quintic, x = (r - r_on) / (r_cut - r_on))::
 
     S = 1 - 10 x^3 + 15 x^4 - 6 x^5,   dS/dr = -30 x^2 (1 - x)^2 / (r_cut - r_on)
 
-Each thread owns ion i and writes only row i: half of each pair's energy and virial goes
-to each ion, the whole force on i from j goes to i.
+Half of each pair's energy and virial goes to each ion, the force to both with opposite signs.
+Ions are split into ``walker.CHUNKS`` chunks (``walker.chunk_parts``), each accumulating into its
+own rows, summed at the end in a fixed order (the result does not depend on the number of threads).
+
+References
+----------
+M. Born and A. Landé, Verh. Dtsch. Phys. Ges. 20 (1918) 210; M. Born and J. E. Mayer, Z. Phys. 75
+(1932) 1; R. A. Buckingham, Proc. R. Soc. Lond. A 168 (1938) 264 (the pair forms).
 """
 
 import math
@@ -23,7 +29,8 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .geometry_kernels import neighbour_bin
+from .geometry_kernels import PRANGE_ONLY
+from .walker import shared_atom_partners, chunk_bounds, chunk_parts, chunk_totals, walk_context, walk_workspace
 
 
 @njit(cache=True, inline="always")
@@ -38,110 +45,95 @@ def _switch(r, r_on, r_cut):
     return s, ds
 
 
+@njit(cache=True)
+def _add_virial(virial, row, h, dx, dy, dz):
+    """Add h times the outer product of (dx, dy, dz) to ``virial[row]`` as xx, yy, zz, yz, xz, xy."""
+    virial[row, 0] += h * dx * dx
+    virial[row, 1] += h * dy * dy
+    virial[row, 2] += h * dz * dz
+    virial[row, 3] += h * dy * dz
+    virial[row, 4] += h * dx * dz
+    virial[row, 5] += h * dx * dy
+
+
 @njit(cache=True, inline="always")
-def _ion_terms(i, positions, species, cell, counts, reach, bin_of, bin_start, table, r_on, r_cut,
-               want_forces, want_virial, energy, forces, virial, pair_count):
-    """Sum the pair terms of ion i into row i of the output arrays."""
-    cut2 = r_cut * r_cut
-    xi = positions[i, 0]
-    yi = positions[i, 1]
-    zi = positions[i, 2]
-    si = species[i]
-    e = 0.0
-    fx = 0.0
-    fy = 0.0
-    fz = 0.0
-    wxx = 0.0
-    wyy = 0.0
-    wzz = 0.0
-    wyz = 0.0
-    wxz = 0.0
-    wxy = 0.0
-    count = 0
-    for d0 in range(-reach[0], reach[0] + 1):
-        for d1 in range(-reach[1], reach[1] + 1):
-            for d2 in range(-reach[2], reach[2] + 1):
-                b, s0, s1, s2 = neighbour_bin(bin_of[i, 0], bin_of[i, 1], bin_of[i, 2], d0, d1, d2, counts)
-                sx = s0 * cell[0, 0] + s1 * cell[1, 0] + s2 * cell[2, 0]
-                sy = s0 * cell[0, 1] + s1 * cell[1, 1] + s2 * cell[2, 1]
-                sz = s0 * cell[0, 2] + s1 * cell[1, 2] + s2 * cell[2, 2]
-                for j in range(bin_start[b], bin_start[b + 1]):
-                    dx = xi - positions[j, 0] - sx
-                    dy = yi - positions[j, 1] - sy
-                    dz = zi - positions[j, 2] - sz
-                    r2 = dx * dx + dy * dy + dz * dz
-                    if r2 >= cut2 or (j == i and s0 == 0 and s1 == 0 and s2 == 0):
-                        continue
-                    sj = species[j]
-                    big_b = table[si, sj, 0]
-                    power = table[si, sj, 1]
-                    big_a = table[si, sj, 2]
-                    inv_rho = table[si, sj, 3]
-                    big_c = table[si, sj, 4]
-                    if big_b == 0.0 and big_a == 0.0 and big_c == 0.0:
-                        continue
-                    r = math.sqrt(r2)
-                    phi = 0.0
-                    dphi = 0.0
-                    if big_b != 0.0:
-                        t = big_b * r ** (-power)
-                        phi += t
-                        dphi -= power * t / r
-                    if big_a != 0.0:
-                        t = big_a * math.exp(-r * inv_rho)
-                        phi += t
-                        dphi -= inv_rho * t
-                    if big_c != 0.0:
-                        t = big_c / (r2 * r2 * r2)
-                        phi -= t
-                        dphi += 6.0 * t / r
-                    s, ds = _switch(r, r_on, r_cut)
-                    e += 0.5 * phi * s
-                    count += 1
-                    if want_forces or want_virial:
-                        de_over_r = (dphi * s + phi * ds) / r
-                        if want_forces:
-                            fx -= de_over_r * dx
-                            fy -= de_over_r * dy
-                            fz -= de_over_r * dz
-                        if want_virial:
-                            h = 0.5 * de_over_r
-                            wxx += h * dx * dx
-                            wyy += h * dy * dy
-                            wzz += h * dz * dz
-                            wyz += h * dy * dz
-                            wxz += h * dx * dz
-                            wxy += h * dx * dy
-    energy[i] = e
-    pair_count[i] = count
-    if want_forces:
-        forces[i, 0] = fx
-        forces[i, 1] = fy
-        forces[i, 2] = fz
-    if want_virial:
-        virial[i, 0] = wxx
-        virial[i, 1] = wyy
-        virial[i, 2] = wzz
-        virial[i, 3] = wyz
-        virial[i, 4] = wxz
-        virial[i, 5] = wxy
+def _pair_energy(row, r, r2):
+    """phi(r) and dphi/dr of one table row (B, n, A, 1/rho, C)."""
+    big_b = row[0]
+    power = row[1]
+    big_a = row[2]
+    inv_rho = row[3]
+    big_c = row[4]
+    phi = 0.0
+    dphi = 0.0
+    if big_b != 0.0:
+        t = big_b * r ** (-power)
+        phi += t
+        dphi -= power * t / r
+    if big_a != 0.0:
+        t = big_a * math.exp(-r * inv_rho)
+        phi += t
+        dphi -= inv_rho * t
+    if big_c != 0.0:
+        t = big_c / (r2 * r2 * r2)
+        phi -= t
+        dphi += 6.0 * t / r
+    return phi, dphi
 
 
-@njit(parallel=True, cache=True)
-def pair_terms(positions, species, cell, counts, reach, bin_of, bin_start, table,
+@njit(parallel=PRANGE_ONLY, cache=True, error_model="numpy")
+def pair_terms(positions, species, cell, counts, offsets, bin_of, bin_start, table,
                r_on, r_cut, want_forces, want_virial):
     """Short-range energy per ion (eV), forces (N, 3) (eV/Å) and per-ion virial (N, 6)
-    as xx, yy, zz, yz, xz, xy of dE/d(strain) (eV), and the number of (i, j, image) terms.
+    as xx, yy, zz, yz, xz, xy of dE/d(strain) (eV), and the number of (i, j, image) terms
+    counting both orders.
 
-    ``species`` (N,) int64 indexes ``table`` (S, S, 5) float64 rows (B, n, A, 1/rho, C).
-    Forces and virial are zeros unless asked for. One thread per ion.
+    ``species`` (N,) int64 indexes ``table`` (S, S, 5) float64 rows (B, n, A, 1/rho, C);
+    ``offsets`` is the bin stencil (``CellBins.offsets``). Forces and virial are zeros unless
+    asked for.
     """
     n = positions.shape[0]
-    energy = np.zeros(n)
-    forces = np.zeros((n, 3))
-    virial = np.zeros((n, 6))
-    pair_count = np.zeros(n, dtype=np.int64)
-    for i in prange(n):
-        _ion_terms(i, positions, species, cell, counts, reach, bin_of, bin_start, table, r_on, r_cut,
-                   want_forces, want_virial, energy, forces, virial, pair_count)
-    return energy, forces, virial, pair_count.sum()
+    kinds = species.astype(np.float64)
+    walk = walk_context(positions, offsets, True, cell, counts, bin_start)
+    energy_part, force_part, virial_part, pair_part = chunk_parts(n, want_forces, want_virial)
+    for c in prange(len(pair_part)):
+        energy = energy_part[c]
+        forces = force_part[c]
+        virial = virial_part[c]
+        work = walk_workspace(walk)
+        _, _, _, partner, kind, dxs, dys, dzs, r2s = work
+        count = 0
+        start, stop = chunk_bounds(c, n, len(pair_part))
+        for i in range(start, stop):
+            m = shared_atom_partners(i, bin_of, walk, kinds, r_cut * r_cut, work)
+            si = species[i]
+            for t in range(m):
+                row = table[si, int(kind[t])]
+                if row[0] == 0.0 and row[2] == 0.0 and row[4] == 0.0:
+                    continue
+                j = partner[t]
+                r = math.sqrt(r2s[t])
+                phi, dphi = _pair_energy(row, r, r2s[t])
+                s, ds = _switch(r, r_on, r_cut)
+                half_energy = 0.5 * phi * s
+                energy[i] += half_energy
+                energy[j] += half_energy
+                count += 2
+                if want_forces or want_virial:
+                    de_over_r = (dphi * s + phi * ds) / r
+                    dx = dxs[t]
+                    dy = dys[t]
+                    dz = dzs[t]
+                    if want_forces:
+                        forces[i, 0] -= de_over_r * dx
+                        forces[i, 1] -= de_over_r * dy
+                        forces[i, 2] -= de_over_r * dz
+                        forces[j, 0] += de_over_r * dx
+                        forces[j, 1] += de_over_r * dy
+                        forces[j, 2] += de_over_r * dz
+                    if want_virial:
+                        h = 0.5 * de_over_r
+                        _add_virial(virial, i, h, dx, dy, dz)
+                        _add_virial(virial, j, h, dx, dy, dz)
+        pair_part[c] = count
+    return chunk_totals(energy_part, force_part, virial_part, pair_part, want_forces, want_virial)
