@@ -208,14 +208,14 @@ def plot(summary):
 
 
 def calibrate():
-    """Nanoseconds of one thread per unit of work of the mesh part (constants in mesh.py)."""
+    """Nanoseconds of one thread per unit of work of the mesh part (constants in madelung/sums/tuning.py)."""
     import numba
-    import scipy.fft
 
     from calibrate_cost import cpu_time as cpu
     from common import rattled_rock_salt
 
     from madelung.sums import mesh as mesh_module
+    from madelung.sums import tuning
     from madelung.sums._kernels import mesh_kernels
     from madelung.sums.geometry import wrapped_fractional
 
@@ -230,25 +230,28 @@ def calibrate():
         shape = np.array([k, k, k], np.int64)
         points = float(k ** 3)
         frac = wrapped_fractional(cell, crystal.positions)
-        slabs = mesh_module._slabs(frac[:, 0], k, order, 1)
-        spread, grid = cpu(lambda: mesh_kernels.spread_charges(frac, q, *slabs, shape, order))
-        fft, spectrum = cpu(lambda: scipy.fft.rfftn(grid, workers=1))
+        atoms, start, slabs = mesh_module._slabs(frac[:, 0], k, order, 1)
+        spectrum, real = mesh_module.mesh_buffer(shape)
+
+        def spread():
+            real[...] = 0.0
+            mesh_kernels.spread_into(real, frac, q, atoms, start, slabs, shape, order)
+
+        spread_s, _ = cpu(spread)
+        fft, _ = cpu(lambda: (mesh_module.forward_transform(spectrum, real, shape, 1),
+                              mesh_module.inverse_transform(spectrum, real, shape, 1)))
         recip = np.ascontiguousarray(np.linalg.inv(cell).T)
         moduli = [np.ascontiguousarray(mesh_module.bspline_moduli(k, order))] * 3
-        influence, _ = cpu(lambda: mesh_kernels.apply_influence(spectrum.copy(), recip, shape, *moduli, alpha,
+        influence, _ = cpu(lambda: mesh_kernels.apply_influence(spectrum, recip, shape, *moduli, alpha,
                                                                 crystal.volume, False))
-        psi = np.ascontiguousarray(scipy.fft.irfftn(spectrum, s=(k, k, k), workers=1))
-        interpolate, _ = cpu(lambda: mesh_kernels.mesh_site_terms(frac, q, psi, shape, order, recip, True))
-        spline_ns = 1e9 * (spread + interpolate) / (2 * n * order ** 3)
-        fft_ns = 1e9 * fft / (points * math.log2(points))
+        interpolate, _ = cpu(lambda: mesh_kernels.interpolate(frac, q, real, shape, order, recip, True, atoms))
+        spline_ns = 1e9 * (spread_s + interpolate) / (2 * n * order ** 3)
+        fft_ns = 1e9 * fft / (2 * points * math.log2(points))
         point_ns = 1e9 * influence / points
         rows.append([n, f"{k}^3", f"{spline_ns:.2f}", f"{fft_ns:.2f}", f"{point_ns:.2f}"])
     print_table(["N", "mesh", "ns / spline point", "ns / FFT point log2", "ns / mesh point"], rows,
                 title="One-thread process time per unit of work (order 8, forces on)")
-    m = mesh_module
-    print(f"\nmesh.py uses: {m.SPLINE_POINT_NS:.2f}, {m.FFT_POINT_LOG_NS:.2f}, {m.MESH_POINT_NS:.2f}")
-
-
+    print(f"\ntuning.py uses: {tuning.SPLINE_POINT_NS:.2f}, {tuning.FFT_POINT_LOG_NS:.2f}, {tuning.MESH_POINT_NS:.2f}")
 
 #: Stages of one mesh sum and the functions whose CPU time counts to each. Time inside a nested
 #: stage counts to the innermost one only; "check" keeps everything it calls (its own small mesh

@@ -16,6 +16,15 @@ analytic gradient of the weights W_i, the stress from the strain derivative of E
 is laid on the plan's reduced basis (:mod:`.plan`); its size and error estimate come from the
 Miller indices the sum needs (:mod:`.tuning`).
 
+Memory and order of work. The charge mesh, its spectrum and the potential mesh psi are one array:
+the half spectrum (K0, K1, K2 // 2 + 1) of complex numbers, whose real view has rows of
+2 (K2 // 2 + 1) numbers. The charges are spread into the first K2 entries of each row, the
+transform runs in place (real-to-complex along the last axis a few planes at a time, then
+complex along the first two axes), the influence function multiplies it in place, and the
+inverse brings psi back into the same rows: about 8 bytes per mesh point for the whole mesh part.
+Ions are spread and interpolated in the order of the plan's bins, so ions near in space read and
+write the same mesh rows one after the other.
+
 The check. Unless switched off, every mesh sum is checked against an independent direct
 reciprocal sum at the same splitting parameter, and the mesh refined if the check misses the
 target:
