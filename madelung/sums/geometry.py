@@ -196,8 +196,8 @@ def shortest_distance(cell, positions) -> float:
     The same value as the minimum of :func:`nearest_neighbour_distances`, without the per-atom
     bookkeeping. The search reaches :data:`PACKING_DISTANCE_FACTOR` ^ (1/3) times the mean spacing
     (V / N)^(1/3), which always holds the closest pair, so one pass over bins at least that thick
-    does it (``_kernels.distance_kernels``: a counting sort into bins and a half-stencil walk);
-    the search would widen if rounding ever left the closest pair outside.
+    does it (a counting sort into bins, ``_kernels.distance_kernels``, and the shared half-stencil
+    walk); the search would widen if rounding ever left the closest pair outside.
 
     References
     ----------
@@ -215,12 +215,10 @@ def shortest_distance(cell, positions) -> float:
         counts = np.maximum(1, np.floor(spacing / cutoff)).astype(np.int64)
         reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 1)
         offsets = stencil_offsets(cell, counts, reach, cutoff)
-        later = (offsets[:, 0] > 0) | ((offsets[:, 0] == 0) & ((offsets[:, 1] > 0)
-                                                               | ((offsets[:, 1] == 0) & (offsets[:, 2] >= 0))))
-        offsets = np.ascontiguousarray(offsets[later])
-        examined = n * len(offsets) * n / float(np.prod(counts))
+        wrapped, bin_of, start = dk.counting_sort_into_bins(positions, inverse, cell, counts)
+        examined = n * len(offsets) * n / float(np.prod(counts)) / 2
         with thread_budget(examined * EXAMINED_PAIR_NS):
-            found = dk.shortest_pair_distance(positions, inverse, cell, counts, offsets)
+            found = gk.closest_distance(wrapped, cell, counts, offsets, bin_of, start)
         if found <= cutoff:
             return float(found)
         cutoff *= 2.0
