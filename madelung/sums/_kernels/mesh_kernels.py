@@ -234,7 +234,7 @@ def apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, vo
     return total[0], total[1:].copy()
 
 
-@njit(parallel=PRANGE_ONLY, cache=True)
+@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"})
 def interpolate(frac, charges, psi, shape, order, recip, want_forces, atoms):
     """Potential at each ion, sum_g W_i(g) psi(g) (N,), and forces -q_i grad_i of it (N, 3).
 
@@ -259,14 +259,12 @@ def interpolate(frac, charges, psi, shape, order, recip, want_forces, atoms):
         d2 = np.empty(order)
         r2 = np.empty(order)
         e2 = np.empty(order)
+        rows = np.empty(order * order, dtype=np.int64)
         b0, b1, b2 = _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2)
         _reversed(v2, order, r2)
         _reversed(d2, order, e2)
         first = b2 - (order - 1)
-        phi = 0.0
-        du0 = 0.0
-        du1 = 0.0
-        du2 = 0.0
+        # where each of the order^2 rows along the last axis the ion reads starts
         for j0 in range(order):
             g0 = b0 - j0
             if g0 < 0:
@@ -275,11 +273,18 @@ def interpolate(frac, charges, psi, shape, order, recip, want_forces, atoms):
                 g1 = b1 - j1
                 if g1 < 0:
                     g1 += k1
-                base = (g0 * k1 + g1) * row
+                rows[j0 * order + j1] = (g0 * k1 + g1) * row
+        phi = 0.0
+        du0 = 0.0
+        du1 = 0.0
+        du2 = 0.0
+        for j0 in range(order):
+            for j1 in range(order):
+                start = rows[j0 * order + j1]
                 s = 0.0
                 s2 = 0.0
                 if first >= 0:
-                    start = base + first
+                    start += first
                     if want_forces:
                         for t2 in range(order):
                             p = flat[start + t2]
@@ -293,7 +298,7 @@ def interpolate(frac, charges, psi, shape, order, recip, want_forces, atoms):
                         g2 = first + t2
                         if g2 < 0:
                             g2 += k2
-                        p = flat[base + g2]
+                        p = flat[start + g2]
                         s += r2[t2] * p
                         s2 += e2[t2] * p
                 w01 = v0[j0] * v1[j1]
