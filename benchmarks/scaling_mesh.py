@@ -182,15 +182,13 @@ def side_by_side(tols=(1e-6, 1e-8), repeats=REPEATS, largest=False, direct_max=1
 def plot(summary):
     """Time against N for both engines and tols, log-log, into benchmarks/results/scaling_mesh.png."""
     try:
-        import matplotlib
-
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
+        from matplotlib.figure import Figure
     except ImportError:
         return
     from common import RESULTS
 
-    figure, axes = plt.subplots(figsize=(6.4, 4.4))
+    figure = Figure(figsize=(6.4, 4.4))
+    axes = figure.subplots()
     for (tol, s), colour in zip(summary.items(), ("tab:blue", "tab:red")):
         axes.loglog(s["sizes"], s["mesh"], "o-", color=colour, label=f"mesh, tol {tol:g}")
         direct = [(n, t) for n, t in zip(s["sizes"], s["direct"]) if t is not None]
