@@ -17,6 +17,7 @@ memory of N = 10^6 within 4 GB.
 
     python benchmarks/scaling_mesh.py            # up to N = 314432
     python benchmarks/scaling_mesh.py --largest  # also N = 10^6 (a few minutes more)
+    python benchmarks/scaling_mesh.py --stages   # N = 10^6: CPU s by stage, peak memory, 1 and 2 threads
     python benchmarks/scaling_mesh.py --calibrate  # seconds per unit of work for madelung/sums/mesh.py
 """
 
@@ -181,15 +182,13 @@ def side_by_side(tols=(1e-6, 1e-8), repeats=REPEATS, largest=False, direct_max=1
 def plot(summary):
     """Time against N for both engines and tols, log-log, into benchmarks/results/scaling_mesh.png."""
     try:
-        import matplotlib
-
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
+        from matplotlib.figure import Figure
     except ImportError:
         return
     from common import RESULTS
 
-    figure, axes = plt.subplots(figsize=(6.4, 4.4))
+    figure = Figure(figsize=(6.4, 4.4))
+    axes = figure.subplots()
     for (tol, s), colour in zip(summary.items(), ("tab:blue", "tab:red")):
         axes.loglog(s["sizes"], s["mesh"], "o-", color=colour, label=f"mesh, tol {tol:g}")
         direct = [(n, t) for n, t in zip(s["sizes"], s["direct"]) if t is not None]
@@ -207,14 +206,14 @@ def plot(summary):
 
 
 def calibrate():
-    """Nanoseconds of one thread per unit of work of the mesh part (constants in mesh.py)."""
+    """Nanoseconds of one thread per unit of work of the mesh part (constants in madelung/sums/tuning.py)."""
     import numba
-    import scipy.fft
 
     from calibrate_cost import cpu_time as cpu
     from common import rattled_rock_salt
 
     from madelung.sums import mesh as mesh_module
+    from madelung.sums import tuning
     from madelung.sums._kernels import mesh_kernels
     from madelung.sums.geometry import wrapped_fractional
 
@@ -229,30 +228,196 @@ def calibrate():
         shape = np.array([k, k, k], np.int64)
         points = float(k ** 3)
         frac = wrapped_fractional(cell, crystal.positions)
-        slabs = mesh_module._slabs(frac[:, 0], k, order, 1)
-        spread, grid = cpu(lambda: mesh_kernels.spread_charges(frac, q, *slabs, shape, order))
-        fft, spectrum = cpu(lambda: scipy.fft.rfftn(grid, workers=1))
+        atoms, start, slabs = mesh_module._slabs(frac[:, 0], k, order, 1)
+        spectrum, real = mesh_module.mesh_buffer(shape)
+
+        def spread():
+            real[...] = 0.0
+            mesh_kernels.spread_into(real, frac, q, atoms, start, slabs, shape, order)
+
+        spread_s, _ = cpu(spread)
+        fft, _ = cpu(lambda: (mesh_module.forward_transform(spectrum, real, shape, 1),
+                              mesh_module.inverse_transform(spectrum, real, shape, 1)))
         recip = np.ascontiguousarray(np.linalg.inv(cell).T)
         moduli = [np.ascontiguousarray(mesh_module.bspline_moduli(k, order))] * 3
-        influence, _ = cpu(lambda: mesh_kernels.apply_influence(spectrum.copy(), recip, shape, *moduli, alpha,
+        influence, _ = cpu(lambda: mesh_kernels.apply_influence(spectrum, recip, shape, *moduli, alpha,
                                                                 crystal.volume, False))
-        psi = np.ascontiguousarray(scipy.fft.irfftn(spectrum, s=(k, k, k), workers=1))
-        interpolate, _ = cpu(lambda: mesh_kernels.mesh_site_terms(frac, q, psi, shape, order, recip, True))
-        spline_ns = 1e9 * (spread + interpolate) / (2 * n * order ** 3)
-        fft_ns = 1e9 * fft / (points * math.log2(points))
+        interpolate, _ = cpu(lambda: mesh_kernels.interpolate(frac, q, real, shape, order, recip, True, atoms))
+        spline_ns = 1e9 * (spread_s + interpolate) / (2 * n * order ** 3)
+        fft_ns = 1e9 * fft / (2 * points * math.log2(points))
         point_ns = 1e9 * influence / points
         rows.append([n, f"{k}^3", f"{spline_ns:.2f}", f"{fft_ns:.2f}", f"{point_ns:.2f}"])
     print_table(["N", "mesh", "ns / spline point", "ns / FFT point log2", "ns / mesh point"], rows,
                 title="One-thread process time per unit of work (order 8, forces on)")
-    m = mesh_module
-    print(f"\nmesh.py uses: {m.SPLINE_POINT_NS:.2f}, {m.FFT_POINT_LOG_NS:.2f}, {m.MESH_POINT_NS:.2f}")
+    print(f"\ntuning.py uses: {tuning.SPLINE_POINT_NS:.2f}, {tuning.FFT_POINT_LOG_NS:.2f}, {tuning.MESH_POINT_NS:.2f}")
+
+#: Stages of one mesh sum and the functions whose CPU time counts to each. Time inside a nested
+#: stage counts to the innermost one only; "check" keeps everything it calls (its own small mesh
+#: sum and direct reciprocal sum). Attributes missing from a version of the code are skipped.
+STAGE_FUNCTIONS = [
+    ("madelung.sums.dispatch", "plan_for", "plan"),
+    ("madelung.sums.plan", "shortest_distance", "shortest distance"),
+    ("madelung.sums.plan", "build_bins", "bins"),
+    ("madelung.sums.mesh", "real_space_part", "real space"),
+    ("madelung.sums.mesh", "_slabs", "spreading"),
+    ("madelung.sums.mesh", "mesh_buffer", "spreading"),
+    ("madelung.sums._kernels.mesh_kernels", "spread_charges", "spreading"),
+    ("madelung.sums._kernels.mesh_kernels", "spread_into", "spreading"),
+    ("scipy.fft", "rfftn", "FFT"),
+    ("scipy.fft", "irfftn", "FFT"),
+    ("madelung.sums.mesh", "forward_transform", "FFT"),
+    ("madelung.sums.mesh", "inverse_transform", "FFT"),
+    ("madelung.sums.mesh", "bspline_moduli", "influence"),
+    ("madelung.sums._kernels.mesh_kernels", "apply_influence", "influence"),
+    ("madelung.sums._kernels.mesh_kernels", "mesh_site_terms", "interpolation"),
+    ("madelung.sums._kernels.mesh_kernels", "interpolate", "interpolation"),
+    ("madelung.sums.mesh", "proxy_check", "check"),
+    ("madelung.sums.mesh", "subsample_check", "check"),
+]
+STAGES = ["plan", "shortest distance", "bins", "real space", "spreading", "FFT", "influence", "interpolation",
+          "check", "other"]
+
+
+class StageClock:
+    """CPU and wall time per stage (exclusive of nested stages) and the peak resident memory
+    reached during each (VmHWM read and reset at every stage boundary, Linux)."""
+
+    def __init__(self):
+        self.cpu = dict.fromkeys(STAGES, 0.0)
+        self.wall = dict.fromkeys(STAGES, 0.0)
+        self.peak_mb = dict.fromkeys(STAGES, 0.0)
+        self.stack = []
+
+    @staticmethod
+    def _status(key):
+        with open("/proc/self/status") as status:
+            for line in status:
+                if line.startswith(key):
+                    return int(line.split()[1]) / 1024.0
+        return 0.0
+
+    def boundary(self):
+        """Attribute the peak since the last boundary to the running stage, then reset it."""
+        name = self.stack[-1][0] if self.stack else "other"
+        self.peak_mb[name] = max(self.peak_mb[name], self._status("VmHWM:"))
+        try:
+            with open("/proc/self/clear_refs", "w") as refs:
+                refs.write("5")
+        except OSError:
+            pass
+
+    def wrap(self, function, name):
+        def timed(*args, **kwargs):
+            if any(frame[0] == "check" for frame in self.stack):
+                return function(*args, **kwargs)
+            self.boundary()
+            self.stack.append([name, time.process_time(), time.perf_counter(), 0.0, 0.0])
+            try:
+                return function(*args, **kwargs)
+            finally:
+                self.boundary()
+                _, cpu0, wall0, child_cpu, child_wall = self.stack.pop()
+                cpu, wall = time.process_time() - cpu0, time.perf_counter() - wall0
+                self.cpu[name] += cpu - child_cpu
+                self.wall[name] += wall - child_wall
+                if self.stack:
+                    self.stack[-1][3] += cpu
+                    self.stack[-1][4] += wall
+        return timed
+
+    def install(self):
+        import importlib
+
+        for module_name, attribute, stage in STAGE_FUNCTIONS:
+            module = importlib.import_module(module_name)
+            if hasattr(module, attribute):
+                setattr(module, attribute, self.wrap(getattr(module, attribute), stage))
+
+
+def _run_stages(reps, tol, threads, lift_limit=False):
+    """Inside the subprocess: one mesh sum with forces, timed by stage; JSON on stdout.
+    ``lift_limit``: let the plan take a mesh above the memory bound (to measure what it costs)."""
+    import numba
+
+    from common import rattled_rock_salt
+
+    import madelung
+
+    from madelung.sums import mesh as mesh_module
+
+    if lift_limit:
+        from madelung.sums import plan as plan_module
+
+        plan_module.check_mesh = lambda shape: None
+    numba.set_num_threads(threads)
+    warm = madelung.ewald(rattled_rock_salt(3), tol=tol, forces=True, method="mesh")  # load the kernels
+    mesh_module.proxy_check(warm.plan, warm.plan.mesh, warm.plan.order, rattled_rock_salt(3).charges)
+    crystal = rattled_rock_salt(reps)
+    clock = StageClock()
+    clock.install()
+    base_mb = clock._status("VmRSS:")
+    clock.boundary()
+    cpu0, wall0 = time.process_time(), time.perf_counter()
+    result = madelung.ewald(crystal, tol=tol, forces=True, method="mesh")
+    cpu, wall = time.process_time() - cpu0, time.perf_counter() - wall0
+    clock.boundary()
+    clock.cpu["other"] = cpu - sum(v for k, v in clock.cpu.items() if k != "other")
+    clock.wall["other"] = wall - sum(v for k, v in clock.wall.items() if k != "other")
+    p = result.params
+    print(json.dumps({"n": len(crystal), "tol": tol, "threads": threads, "cpu": clock.cpu, "wall": clock.wall,
+                      "cpu_total": cpu, "wall_total": wall, "peak_mb": clock.peak_mb, "base_mb": base_mb,
+                      "mesh": p.extra.get("mesh"), "order": p.extra.get("order"), "alpha": p.alpha,
+                      "r_cut": p.real_cutoff, "pairs": p.real_space_pairs,
+                      "check": (p.extra.get("check") or {}).get("kind"), "energy": result.energy,
+                      "scale": result.energy_scale}))
+
+
+def stage_table(reps=LARGEST, tols=(1e-6, 1e-8), thread_counts=(1, 2), cpu_target=8.0, memory_target_mb=2048.0,
+                lift_limit=False):
+    """CPU seconds by stage and peak memory of one large mesh sum per tol and thread count."""
+    env = dict(os.environ, PYTHONPATH=ROOT + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    reports = []
+    for tol in tols:
+        for threads in thread_counts:
+            out = subprocess.run([sys.executable, os.path.abspath(__file__), "--stage-case", str(reps), repr(tol),
+                                  str(threads), "lift" if lift_limit else "keep"], capture_output=True, text=True, env=env, timeout=3600)
+            if out.returncode != 0:
+                raise RuntimeError(f"stage case {reps} {tol} {threads} failed:\n{out.stderr[-2000:]}")
+            reports.append(json.loads(out.stdout.strip().splitlines()[-1]))
+    headers = ["stage"] + [f"{r['tol']:g}/{r['threads']}t" for r in reports]
+    rows = [[stage] + [f"{r['cpu'][stage]:.2f}" for r in reports] for stage in STAGES]
+    rows.append(["CPU total / s"] + [f"{r['cpu_total']:.2f}" for r in reports])
+    rows.append(["wall total / s"] + [f"{r['wall_total']:.2f}" for r in reports])
+    rows.append(["peak RSS / MB"] + [f"{max(r['peak_mb'].values()):.0f}" for r in reports])
+    rows.append(["  before sum / MB"] + [f"{r['base_mb']:.0f}" for r in reports])
+    rows.append(["  stage at peak"] + [max(r["peak_mb"], key=r["peak_mb"].get) for r in reports])
+    rows.append(["mesh, order"] + ["x".join(map(str, r["mesh"])) + f", {r['order']}" for r in reports])
+    rows.append(["alpha, r_cut"] + [f"{r['alpha']:.3f}, {r['r_cut']:.2f}" for r in reports])
+    rows.append(["check"] + [str(r["check"]) for r in reports] )
+    print_table(headers, rows, title=f"\nN = {reports[0]['n']} rattled rock salt, mesh engine with forces: "
+                                     "CPU s by stage (tol/threads; CPU of all threads)")
+    peaks = [[stage] + [f"{r['peak_mb'][stage]:.0f}" for r in reports] for stage in STAGES]
+    print_table(headers, peaks, title="\nPeak resident memory reached during each stage, MB (whole process)")
+    print("\ntargets:")
+    for r in reports:
+        peak = max(r["peak_mb"].values())
+        print(f"  tol {r['tol']:g}, {r['threads']} thread(s): CPU {r['cpu_total']:.2f} s under {cpu_target:g} s — "
+              f"{verdict(r['cpu_total'] < cpu_target)}; peak {peak:.0f} MB under {memory_target_mb:.0f} MB — "
+              f"{verdict(peak < memory_target_mb)}")
+    return reports
 
 
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--case", nargs=4, metavar=("METHOD", "REPEATS", "TOL", "FORCES_NPY"), help=argparse.SUPPRESS)
     parser.add_argument("--largest", action="store_true", help="also run N = 10^6 (mesh only)")
+    parser.add_argument("--stage-case", nargs=4, metavar=("REPEATS", "TOL", "THREADS", "LIMIT"), help=argparse.SUPPRESS)
+    parser.add_argument("--lift-mesh-limit", action="store_true",
+                        help="with --stages: let the plan take a mesh above the memory bound")
+    parser.add_argument("--stages", action="store_true",
+                        help="CPU time by stage and peak memory of N = 8 x 50^3 = 10^6 (1 and 2 threads)")
     parser.add_argument("--calibrate", action="store_true", help="print seconds per unit of work")
+    parser.add_argument("--stage-repeats", type=int, default=LARGEST, help="repeats of the --stages case")
     parser.add_argument("--tols", type=float, nargs="*", default=[1e-6, 1e-8])
     parser.add_argument("--repeats", type=int, nargs="*", default=REPEATS)
     parser.add_argument("--direct-max", type=int, default=100_000, help="largest N for the direct engine")
@@ -261,6 +426,13 @@ def main(argv=None):
     if args.case:
         method, reps, tol, path = args.case
         _run_case(method, int(reps), float(tol), path)
+        return 0
+    if args.stage_case:
+        reps, tol, threads, limit = args.stage_case
+        _run_stages(int(reps), float(tol), int(threads), limit == "lift")
+        return 0
+    if args.stages:
+        stage_table(args.stage_repeats, args.tols, lift_limit=args.lift_mesh_limit)
         return 0
     if args.calibrate:
         calibrate()

@@ -384,9 +384,10 @@ def test_a_temporary_left_by_a_killed_run_is_removed_by_the_next_but_links_are_n
 
 
 def test_a_mesh_beyond_the_memory_limit_is_refused_before_it_is_allocated():
-    # ions 0.04 Å apart with the distance check off: the planned mesh has about 10^8 points
+    # ions 0.01 Å apart with the distance check off: the planned mesh has about 7 x 10^9 points
+    # (at 0.04 Å, 10^8 points: 1 GB since the mesh part takes 8 B per point, within the limit)
     primitive = 0.5 * 5.6402 * np.array([[0, 1, 1], [1, 0, 1], [1, 1, 0]])
-    crystal = madelung.Crystal(primitive, [[0, 0, 0], [0.04, 0, 0]], [1, -1], ["Na", "Cl"], min_distance=0)
+    crystal = madelung.Crystal(primitive, [[0, 0, 0], [0.01, 0, 0]], [1, -1], ["Na", "Cl"], min_distance=0)
     with pytest.raises(madelung.InputError, match="particle mesh .* above the limit"):
         madelung.plan_for(crystal, 1e-10, method="mesh")   # the plan only: nothing is allocated
     assert madelung.plan_for(crystal, 1e-10).method == "direct"   # auto takes the direct sum

@@ -33,9 +33,11 @@ MAX_CELL_ASPECT = 1.0e3
 #: the Minkowski-reduced cell / plane spacing of that basis). The periodic images a walk visits grow
 #: with it (about 2 s at 1e4, minutes at 1e6).
 MAX_BASIS_SKEW = 1.0e4
-#: Peak memory of a particle-mesh sum per mesh point, bytes (measured: about 50 B per point for a
-#: 160^3 mesh, charge mesh, its transform, the potential and the spline work arrays together).
-MESH_BYTES_PER_POINT = 64
+#: Peak memory of a particle-mesh sum per mesh point, bytes: the charge mesh, its transform and the
+#: potential mesh share one half-spectrum array of 8 B per point (sums/mesh.py); measured with the
+#: ions' arrays, 8.2 to 8.8 B per point for 10^6 ions on 400^3 and 500^3 meshes
+#: (benchmarks/scaling_mesh.py --stages), rounded up.
+MESH_BYTES_PER_POINT = 10
 #: Largest peak memory a mesh may take, bytes.
 MAX_MESH_BYTES = 2.0e9
 #: Largest charge magnitude on one site, e.

@@ -16,6 +16,7 @@ import numpy as np
 import spglib
 
 from ..structure.lattice import plane_spacings, reduced_basis, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
+from ._kernels import distance_kernels as dk
 from ._kernels import geometry_kernels as gk
 
 def _choose_threading():
@@ -181,22 +182,43 @@ def nearest_neighbour_distances(cell, positions, charges):
         cutoff *= 2.0
 
 
+#: The closest pair of N points in a periodic cell of volume V is at most (sqrt(2) V / N)^(1/3)
+#: apart: spheres of that diameter round every point would otherwise fill more than pi / sqrt(18)
+#: of space, the densest packing of equal spheres (Hales 2005). A search to this distance, times a
+#: margin for rounding, always holds the closest pair.
+PACKING_DISTANCE_FACTOR = 2.0 ** 0.5
+PACKING_MARGIN = 1.0 + 1e-9
+
+
 def shortest_distance(cell, positions) -> float:
     """Shortest interionic distance, periodic images included, Å (one pass over each pair once).
 
     The same value as the minimum of :func:`nearest_neighbour_distances`, without the per-atom
-    bookkeeping: the search starts at twice the mean spacing and doubles until a pair is found.
+    bookkeeping. The search reaches :data:`PACKING_DISTANCE_FACTOR` ^ (1/3) times the mean spacing
+    (V / N)^(1/3), which always holds the closest pair, so one pass over bins at least that thick
+    does it (a counting sort into bins, ``_kernels.distance_kernels``, and the shared half-stencil
+    walk); the search would widen if rounding ever left the closest pair outside.
+
+    References
+    ----------
+    T. C. Hales, Ann. Math. 162 (2005) 1065 (the densest packing of equal spheres, pi / sqrt(18)).
     """
-    cell = np.ascontiguousarray(cell, dtype=np.float64)
-    positions = np.asarray(positions, dtype=np.float64)
+    cell, _ = reduced_basis(np.ascontiguousarray(cell, dtype=np.float64))
+    cell = np.ascontiguousarray(cell)
+    positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
-    cutoff = 2.0 * (abs(np.linalg.det(cell)) / n) ** (1.0 / 3.0)
+    volume = abs(float(np.linalg.det(cell)))
+    inverse = np.ascontiguousarray(np.linalg.inv(cell))
+    spacing = plane_spacings(cell)
+    cutoff = (PACKING_DISTANCE_FACTOR * volume / n) ** (1.0 / 3.0) * PACKING_MARGIN
     while True:
-        bins = build_bins(cell, positions, cutoff)
-        examined = n * n * bins.examined_volume / abs(np.linalg.det(cell)) / 2
+        counts = np.maximum(1, np.floor(spacing / cutoff)).astype(np.int64)
+        reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 1)
+        offsets = stencil_offsets(cell, counts, reach, cutoff)
+        wrapped, bin_of, start = dk.counting_sort_into_bins(positions, inverse, cell, counts)
+        examined = n * len(offsets) * n / float(np.prod(counts)) / 2
         with thread_budget(examined * EXAMINED_PAIR_NS):
-            found = gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
-                                        bins.bin_start)
+            found = gk.closest_distance(wrapped, cell, counts, offsets, bin_of, start)
         if found <= cutoff:
             return float(found)
         cutoff *= 2.0

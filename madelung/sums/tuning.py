@@ -52,6 +52,7 @@ import numpy as np
 import scipy.fft
 
 from ..errors import InputError
+from ..structure.bounds import MAX_MESH_BYTES, MESH_BYTES_PER_POINT
 
 #: Aim this far below the requested error (crystal errors are systematic, not random).
 SAFETY = 0.05
@@ -99,8 +100,8 @@ MESH_POINT_NS = 8.0
 #: At least this many times the spline order of mesh points along each axis.
 MIN_MESH_PER_ORDER = 2
 
-#: Largest mesh the tuner picks, in bytes of peak mesh memory (16 bytes per point).
-MESH_MEMORY_LIMIT_BYTES = 2.0e9
+#: The tuner picks no mesh above the memory bound the plan enforces (structure/bounds.py):
+#: MESH_BYTES_PER_POINT per point, at most MAX_MESH_BYTES.
 
 
 @dataclass(frozen=True)
@@ -385,7 +386,7 @@ def choose_mesh(target, sums, volume, lengths, d_min, k_e, alpha=None, mesh=None
         good = [c for c in candidates if c.mesh_error <= mesh_share]
         candidates = good or [min(candidates, key=lambda c: c.mesh_error)]
     else:
-        small = [c for c in candidates if 16.0 * np.prod(c.shape) <= MESH_MEMORY_LIMIT_BYTES]
+        small = [c for c in candidates if MESH_BYTES_PER_POINT * np.prod(c.shape) <= MAX_MESH_BYTES]
         candidates = small or [min(candidates, key=lambda c: np.prod(c.shape))]
     return min(candidates, key=lambda c: c.predicted_ns)
 

@@ -7,6 +7,9 @@ it puts weight ``M_n(u_0 - g_0) M_n(u_1 - g_1) M_n(u_2 - g_2)`` on mesh point g,
 cardinal B-spline of order n (support [0, n]). With w = u - floor(u) the n points reached along
 an axis are ``floor(u) - j`` (j = 0 .. n-1, wrapped) with weights ``M_n(w + j)``.
 
+The mesh may be the real view of the buffer an in-place real-to-complex transform works in
+(rows padded to 2 (K2 // 2 + 1) entries); the kernels touch the first K2 entries of each row only.
+
 Race-free spreading: the ions are grouped into slabs of mesh planes along axis 0, each slab at
 least n - 1 planes thick and an even number of slabs. An ion of slab s writes only into slabs
 s - 1 and s, so all even slabs can be filled at once by different threads, then all odd slabs.
@@ -84,15 +87,27 @@ def _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2):
     return b0, b1, b2
 
 
-@njit(parallel=PRANGE_ONLY, cache=True)
-def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
-    """Charge mesh Q(g) = sum_i q_i prod_a M_n(u_ia - g_a) (periodic), shape (K0, K1, K2).
+@njit(cache=True, inline="always")
+def _reversed(values, order, out):
+    """out[t] = values[order - 1 - t]: the weights of the points floor(u) - (order - 1) + t."""
+    for t in range(order):
+        out[t] = values[order - 1 - t]
+
+
+@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"})
+def spread_into(mesh, frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
+    """Add Q(g) = sum_i q_i prod_a M_n(u_ia - g_a) (periodic) to ``mesh``, shape (K0, K1, L >= K2).
 
     ``order_of_atoms`` lists the ions slab by slab, ``slab_start`` (n_slabs + 1) where each slab's
     ions begin in it; ``n_slabs`` is 1 (serial) or even with slabs >= order - 1 planes thick.
+    Only the first K2 entries of each row are touched, so ``mesh`` may be the real view of the
+    half-spectrum buffer of an in-place real-to-complex transform (rows of L = 2 (K2 // 2 + 1)).
+    The n points an ion reaches along the last axis are contiguous unless they wrap round the
+    cell edge, so its innermost loop is a plain run of n memory cells.
     """
     k0, k1, k2 = shape[0], shape[1], shape[2]
-    mesh = np.zeros((k0, k1, k2))
+    row = mesh.shape[2]
+    flat = mesh.reshape(mesh.size)
     if n_slabs == 1:
         phases = 1
         per_phase = 1
@@ -106,10 +121,16 @@ def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, or
             v1 = np.empty(order)
             v2 = np.empty(order)
             d = np.empty(order)
+            r2 = np.empty(order)
+            weights = np.empty(order * order)
+            rows = np.empty(order * order, dtype=np.int64)
             for idx in range(slab_start[s], slab_start[s + 1]):
                 i = order_of_atoms[idx]
                 b0, b1, b2 = _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d, d, d)
+                _reversed(v2, order, r2)
+                first = b2 - (order - 1)
                 q = charges[i]
+                # the order^2 rows along the last axis the ion reaches: where each starts, its weight
                 for j0 in range(order):
                     g0 = b0 - j0
                     if g0 < 0:
@@ -119,12 +140,30 @@ def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, or
                         g1 = b1 - j1
                         if g1 < 0:
                             g1 += k1
-                        a1 = a0 * v1[j1]
-                        for j2 in range(order):
-                            g2 = b2 - j2
+                        weights[j0 * order + j1] = a0 * v1[j1]
+                        rows[j0 * order + j1] = (g0 * k1 + g1) * row
+                if first >= 0:
+                    for p in range(order * order):
+                        start = rows[p] + first
+                        a = weights[p]
+                        for t2 in range(order):
+                            flat[start + t2] += a * r2[t2]
+                else:
+                    for p in range(order * order):
+                        a = weights[p]
+                        for t2 in range(order):
+                            g2 = first + t2
                             if g2 < 0:
                                 g2 += k2
-                            mesh[g0, g1, g2] += a1 * v2[j2]
+                            flat[rows[p] + g2] += a * r2[t2]
+
+
+@njit(cache=True)
+def spread_charges(frac, charges, order_of_atoms, slab_start, n_slabs, shape, order):
+    """Charge mesh Q(g) = sum_i q_i prod_a M_n(u_ia - g_a) (periodic), shape (K0, K1, K2)
+    (see :func:`spread_into`)."""
+    mesh = np.zeros((shape[0], shape[1], shape[2]))
+    spread_into(mesh, frac, charges, order_of_atoms, slab_start, n_slabs, shape, order)
     return mesh
 
 
@@ -195,29 +234,37 @@ def apply_influence(spectrum, recip, shape, moduli0, moduli1, moduli2, alpha, vo
     return total[0], total[1:].copy()
 
 
-@njit(parallel=PRANGE_ONLY, cache=True)
-def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
+@njit(parallel=PRANGE_ONLY, cache=True, fastmath={"contract"})
+def interpolate(frac, charges, psi, shape, order, recip, want_forces, atoms):
     """Potential at each ion, sum_g W_i(g) psi(g) (N,), and forces -q_i grad_i of it (N, 3).
 
-    ``psi`` is dE/dQ on the mesh; the gradient of the weights is taken through the chain rule
-    du_a/dr = K_a recip_a. Each ion is handled by one thread and written once.
+    ``psi`` is dE/dQ on the mesh, shape (K0, K1, L >= K2) (only the first K2 entries of each row
+    are read); the gradient of the weights is taken through the chain rule du_a/dr = K_a recip_a.
+    The ions are visited in the order ``atoms`` (a permutation: neighbours in space one after the
+    other read the same mesh rows); each is handled by one thread and written once.
     """
     n = frac.shape[0]
     k0, k1, k2 = shape[0], shape[1], shape[2]
+    row = psi.shape[2]
+    flat = psi.reshape(psi.size)
     potential = np.zeros(n)
-    forces = np.zeros((n, 3))
-    for i in prange(n):
+    forces = np.zeros((n, 3) if want_forces else (1, 3))
+    for idx in prange(n):
+        i = atoms[idx]
         v0 = np.empty(order)
         v1 = np.empty(order)
         v2 = np.empty(order)
         d0 = np.empty(order)
         d1 = np.empty(order)
         d2 = np.empty(order)
+        r2 = np.empty(order)
+        e2 = np.empty(order)
+        rows = np.empty(order * order, dtype=np.int64)
         b0, b1, b2 = _ion_splines(frac, i, k0, k1, k2, order, v0, v1, v2, d0, d1, d2)
-        phi = 0.0
-        du0 = 0.0
-        du1 = 0.0
-        du2 = 0.0
+        _reversed(v2, order, r2)
+        _reversed(d2, order, e2)
+        first = b2 - (order - 1)
+        # where each of the order^2 rows along the last axis the ion reads starts
         for j0 in range(order):
             g0 = b0 - j0
             if g0 < 0:
@@ -226,20 +273,40 @@ def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
                 g1 = b1 - j1
                 if g1 < 0:
                     g1 += k1
+                rows[j0 * order + j1] = (g0 * k1 + g1) * row
+        phi = 0.0
+        du0 = 0.0
+        du1 = 0.0
+        du2 = 0.0
+        for j0 in range(order):
+            for j1 in range(order):
+                start = rows[j0 * order + j1]
                 s = 0.0
                 s2 = 0.0
-                for j2 in range(order):
-                    g2 = b2 - j2
-                    if g2 < 0:
-                        g2 += k2
-                    p = psi[g0, g1, g2]
-                    s += v2[j2] * p
-                    s2 += d2[j2] * p
-                phi += v0[j0] * v1[j1] * s
+                if first >= 0:
+                    start += first
+                    if want_forces:
+                        for t2 in range(order):
+                            p = flat[start + t2]
+                            s += r2[t2] * p
+                            s2 += e2[t2] * p
+                    else:
+                        for t2 in range(order):
+                            s += r2[t2] * flat[start + t2]
+                else:
+                    for t2 in range(order):
+                        g2 = first + t2
+                        if g2 < 0:
+                            g2 += k2
+                        p = flat[start + g2]
+                        s += r2[t2] * p
+                        s2 += e2[t2] * p
+                w01 = v0[j0] * v1[j1]
+                phi += w01 * s
                 if want_forces:
                     du0 += d0[j0] * v1[j1] * s
                     du1 += v0[j0] * d1[j1] * s
-                    du2 += v0[j0] * v1[j1] * s2
+                    du2 += w01 * s2
         potential[i] = phi
         if want_forces:
             q = charges[i]
@@ -248,5 +315,12 @@ def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
             g2 = du2 * k2
             for c in range(3):
                 forces[i, c] = -q * (g0 * recip[0, c] + g1 * recip[1, c] + g2 * recip[2, c])
+    if not want_forces:
+        forces = np.zeros((n, 3))
     return potential, forces
 
+
+@njit(cache=True)
+def mesh_site_terms(frac, charges, psi, shape, order, recip, want_forces):
+    """Potentials and forces of every ion in index order (see :func:`interpolate`)."""
+    return interpolate(frac, charges, psi, shape, order, recip, want_forces, np.arange(frac.shape[0]))
