@@ -65,12 +65,20 @@ def test_every_value_matches_the_library(library):
             "electron affinity": elements.electron_affinity(symbol),
             "ionisation energies": elements.ionisation_energies(symbol),
         }
-        # every tabulated Shannon radius, by charge and coordination (first listed where two spins share one)
-        for charge, coordination, radius in zip(radii.get("charge", []), radii.get("coordination", []),
-                                                radii.get("ionic_radius", [])):
-            key = f"Shannon {int(charge):+d} {coordination}"
+        # every tabulated Shannon radius, by charge, coordination and spin state where one is given;
+        # by default the high-spin value where the library lists both
+        for charge, coordination, radius, spin in zip(radii.get("charge", []), radii.get("coordination", []),
+                                                      radii.get("ionic_radius", []), radii.get("spin", [])):
+            if _missing(radius):
+                continue
+            spin = None if _missing(spin) or not spin else str(spin)
+            key = f"Shannon {int(charge):+d} {coordination} {spin}"
             expected.setdefault(key, radius / 100)
-            found[key] = elements.shannon_radius(symbol, int(charge), coordination)
+            found[key] = elements.shannon_radius(symbol, int(charge), coordination, spin)
+            default = f"Shannon {int(charge):+d} {coordination} default"
+            if spin == "HS" or default not in expected:
+                expected[default] = radius / 100
+            found[default] = elements.shannon_radius(symbol, int(charge), coordination)
         mismatches += [f"{symbol} {k}: file {found[k]!r}, library {v!r}" for k, v in expected.items() if found[k] != v]
     assert not mismatches, "; ".join(mismatches[:10])
 
@@ -82,13 +90,17 @@ def test_the_file_matches_the_library_element_objects(symbol):
     assert elements.common_oxidation_states(symbol) == tuple(sorted(element.oxidation_states("main")))
     assert elements.ionisation_energies(symbol) == {int(k): float(v) for k, v in element.ionenergies.items()}
     record = elements._row(symbol)["shannon_radii_pm"]
-    assert record == [[int(r.charge), str(r.coordination), float(r.ionic_radius)] for r in element.ionic_radii]
+    assert record == [[int(r.charge), str(r.coordination), float(r.ionic_radius), r.spin or ""]
+                      for r in element.ionic_radii if r.ionic_radius is not None]
 
 
 def test_facts_of_the_trade():
     # Shannon (1976): O2- in VI 1.40 Å, Na+ in VI 1.02 Å; Pauling: F 3.98; NaCl-type values from memory
     assert elements.shannon_radius("O", -2) == pytest.approx(1.40)
     assert elements.shannon_radius("Na", 1, "VI") == pytest.approx(1.02)
+    # Shannon (1976), from memory: Fe2+ in VI is 0.78 Å high spin and 0.61 Å low spin; FeO is high spin
+    assert elements.shannon_radius("Fe", 2) == pytest.approx(0.78)
+    assert elements.shannon_radius("Fe", 2, spin="LS") == pytest.approx(0.61)
     assert elements.electronegativity("F") == pytest.approx(3.98)
     assert elements.ionisation_energies("Na")[1] == pytest.approx(5.139, abs=1e-3)  # NIST, from memory
     assert elements.common_oxidation_states("Fe") == (2, 3)

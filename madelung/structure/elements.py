@@ -87,18 +87,30 @@ def electron_affinity(symbol) -> float | None:
 
 
 @lru_cache(maxsize=None)
-def shannon_radius(symbol, charge, coordination=None) -> float:
-    """Shannon effective ionic radius in Å for an ion of given charge and coordination
-    (roman numeral such as "VI"; default: VI if tabulated, else the first listed; where two spin
-    states are tabulated, the first the library lists)."""
-    radii = [(n, r) for c, n, r in _row(symbol)["shannon_radii_pm"] if c == int(charge)]
+def shannon_radius(symbol, charge, coordination=None, spin=None) -> float:
+    """Shannon effective ionic radius in Å for an ion of given charge and coordination.
+
+    ``coordination``: roman numeral such as "VI"; default VI if tabulated, else the first listed.
+    ``spin``: "HS" or "LS" where the table lists both spin states of the ion in that coordination;
+    default high spin, the usual state of 3d ions among oxide and halide ligands (weak field;
+    common practice, e.g. Fe2+ in FeO, Mn2+ in MnO). Ions with one entry ignore ``spin``.
+
+    References
+    ----------
+    R. D. Shannon, Acta Cryst. A32 (1976) 751 (the table, both spin states where known).
+    """
+    if spin is not None and str(spin).upper() not in ("HS", "LS"):
+        raise InputError(f"spin {spin!r} must be 'HS' (high spin) or 'LS' (low spin)")
+    radii = [(n, r, s) for c, n, r, s in _row(symbol)["shannon_radii_pm"] if c == int(charge)]
     if not radii:
         raise InputError(f"no Shannon radius is tabulated for {symbol}{int(charge):+d}")
     if coordination is not None:
-        chosen = [r for n, r in radii if n == str(coordination)]
-        if not chosen:
+        rows = [(r, s) for n, r, s in radii if n == str(coordination)]
+        if not rows:
             raise InputError(f"no Shannon radius is tabulated for {symbol}{int(charge):+d} "
                              f"in coordination {coordination}")
     else:
-        chosen = [r for n, r in radii if n == "VI"] or [r for _, r in radii]
+        rows = [(r, s) for n, r, s in radii if n == "VI"] or [(r, s) for _, r, s in radii[:1]]
+    wanted = "HS" if spin is None else str(spin).upper()
+    chosen = [r for r, s in rows if s == wanted] or [r for r, _ in rows]
     return float(chosen[0]) / 100.0  # pm -> Å

@@ -60,8 +60,9 @@ def element_records() -> dict:
             "electron_affinity_eV": _number(row.electron_affinity),
             "ionisation_energies_eV": [[int(k) + 1, float(v)] for k, v in
                                        zip(own_energies["ion_charge"], own_energies["ionization_energy"])],
-            "shannon_radii_pm": [[int(c), str(n), float(r)] for c, n, r in
-                                 zip(own_radii["charge"], own_radii["coordination"], own_radii["ionic_radius"])
+            "shannon_radii_pm": [[int(c), str(n), float(r), "" if s is None or s != s else str(s)]
+                                 for c, n, r, s in zip(own_radii["charge"], own_radii["coordination"],
+                                                       own_radii["ionic_radius"], own_radii["spin"])
                                  if _number(r) is not None],
         }
     return records
