@@ -151,3 +151,30 @@ def test_corrupted_cif_gives_a_clean_error_or_a_valid_result(tmp_path, text):
     assert code in (0, 2), err
     if code == 2:
         assert len([line for line in err.strip().splitlines() if "warning:" not in line]) == 1
+
+
+def _with_operators(operators):
+    """A two-ion rock-salt-like P1 cell listing the given symmetry operators (after x,y,z)."""
+    rows = "\n".join(f"'{op}'" for op in ("x,y,z",) + tuple(operators))
+    return ("data_t\n_cell_length_a 5\n_cell_length_b 5\n_cell_length_c 5\n_cell_angle_alpha 90\n"
+            "_cell_angle_beta 90\n_cell_angle_gamma 90\nloop_\n_space_group_symop_operation_xyz\n" + rows +
+            "\nloop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n_atom_site_fract_y\n"
+            "_atom_site_fract_z\nNa1 Na+ 0 0 0\nCl1 Cl- 0.5 0.5 0.5\n")
+
+
+def test_a_symmetry_operator_dividing_by_zero_is_refused_in_one_line(tmp_path):
+    path = tmp_path / "zero.cif"
+    path.write_text(_with_operators(["x+1/0,y,z"]))
+    code, _, err = run(["energy", str(path)])
+    assert code == 2
+    assert err.strip().count("\n") == 0 and str(path) in err and "not understood" in err
+
+
+def test_an_operator_that_is_no_lattice_operation_is_left_out_with_a_warning(tmp_path):
+    # a space-group operation maps the lattice onto itself: integer rotation part, determinant +-1
+    # (fact of the trade); '2x,y,z' is none, and must not make sites
+    path = tmp_path / "scaled.cif"
+    path.write_text(_with_operators(["2x,y,z"]))
+    with pytest.warns(MadelungWarning, match="left out"):
+        crystal = Crystal.from_file(path)
+    assert len(crystal) == 2

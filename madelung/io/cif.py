@@ -237,11 +237,14 @@ def _parsed_operator(text):
                 raise ValueError(f"symmetry operator {text!r} not understood")
             sign, number, axis = match.groups()
             factor = -1.0 if sign == "-" else 1.0
-            if axis:
+            try:
                 value = float(Fraction(number)) if number else 1.0
+            except (ZeroDivisionError, OverflowError, ValueError):
+                raise ValueError(f"symmetry operator {text!r} not understood (the number {number!r})") from None
+            if axis:
                 rotation[row, "xyz".index(axis)] += factor * value
             elif number:
-                translation[row] += factor * float(Fraction(number))
+                translation[row] += factor * value
             else:
                 raise ValueError(f"symmetry operator {text!r} not understood")
             position = match.end()
@@ -258,8 +261,15 @@ def _operators(block, path):
             ops = [parse_operator(op) for op in listed]
         except (ValueError, ZeroDivisionError) as exc:
             raise InputError(f"{path}: {exc}") from None
-        determinants = np.linalg.det(np.array([op[0] for op in ops]))
-        return [op for op, d in zip(ops, determinants) if abs(abs(d) - 1) < 1e-6] or [(np.eye(3), np.zeros(3))]
+        # a symmetry operation of a lattice has an integer rotation part of determinant +-1
+        valid = [bool(np.all(np.abs(op[0] - np.rint(op[0])) < 1e-9) and abs(abs(np.linalg.det(op[0])) - 1) < 1e-6)
+                 for op in ops]
+        dropped = [text for text, ok in zip(listed, valid) if not ok]
+        if dropped:
+            warnings.warn(f"{path}: {len(dropped)} symmetry operator(s) left out, not operations of a lattice "
+                          f"(the rotation part must be an integer matrix of determinant +-1): "
+                          f"{', '.join(repr(str(x)) for x in dropped[:3])}", MadelungWarning, stacklevel=2)
+        return [op for op, ok in zip(ops, valid) if ok] or [(np.eye(3), np.zeros(3))]
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
