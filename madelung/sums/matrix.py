@@ -168,14 +168,15 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
                           bins=plan.bins)
     ks = plan.kspace
     # sqrt(w(k)) exp(i k . r_j) for every site and k-vector, as products of one table of
-    # exp(2 pi i h f_a) per lattice direction (fewer exponentials than one per site and k-vector)
-    waves = np.sqrt(ks.weights).astype(complex)
+    # exp(2 pi i h f_a) per lattice direction (fewer exponentials than one per site and k-vector);
+    # one row per k-vector, so that picking the rows of a table copies whole rows
+    waves = np.sqrt(ks.weights)[:, None].astype(complex)
     for axis in range(3):
-        table = np.exp(2j * math.pi * np.outer(plan.frac[:, axis], np.arange(-ks.hmax[axis], ks.hmax[axis] + 1)))
-        waves = waves * table[:, ks.hkl[:, axis] + ks.hmax[axis]]
-    waves = np.concatenate([waves.real, waves.imag], axis=1)
+        table = np.exp(2j * math.pi * np.outer(np.arange(-ks.hmax[axis], ks.hmax[axis] + 1), plan.frac[:, axis]))
+        waves = waves * table[ks.hkl[:, axis] + ks.hmax[axis]]
+    waves = np.concatenate([waves.real, waves.imag], axis=0)
     with blas_budget(2.0 * n * n * len(ks.weights)):
-        recip = waves @ waves.T     # sum_k w(k) cos(k . (r_i - r_j)), twice over the half space
+        recip = waves.T @ waves     # sum_k w(k) cos(k . (r_i - r_j)), twice over the half space
     matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (plan.volume * a * a)
     matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
     return matrix
