@@ -286,6 +286,26 @@ def shortest_distance(cell, positions) -> float:
     cell = np.ascontiguousarray(cell)
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
+    key = (cell.tobytes(), positions.tobytes()) if n <= SHORTEST_KEEP_MAX_ATOMS else None
+    found = _SHORTEST.get(key)
+    if found is None:
+        found = _shortest_distance(cell, positions)
+        if key is not None:
+            if len(_SHORTEST) >= _SHORTEST_KEEP:
+                _SHORTEST.pop(next(iter(_SHORTEST)))
+            _SHORTEST[key] = found
+    return found
+
+
+#: Recent shortest distances (bytes of the reduced cell and the positions -> Å) of cells up to
+#: this many atoms: a crystal's overlap check finds it, and the plan of its first sum needs it.
+SHORTEST_KEEP_MAX_ATOMS = 1000
+_SHORTEST = {}
+_SHORTEST_KEEP = 64
+
+
+def _shortest_distance(cell, positions) -> float:
+    n = len(positions)
     volume = abs(float(np.linalg.det(cell)))
     inverse = np.ascontiguousarray(np.linalg.inv(cell))
     spacing = plane_spacings(cell)
