@@ -15,6 +15,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import madelung
+from ase.geometry import minkowski_reduce
+from madelung.structure.lattice import niggli_reduced
 from madelung.sums import tuning
 from madelung.sums.matrix import coulomb_matrix, potentials_for_charge_sets
 from madelung.sums.mesh import ewald_mesh
@@ -183,3 +185,18 @@ def test_a_strongly_skewed_basis_gives_the_same_neighbours_and_sums():
     result = madelung.ewald(skewed, tol=tol, forces=True)
     assert abs(result.energy - reference.energy) <= 2 * tol * reference.energy_scale
     assert np.allclose(result.forces, reference.forces, atol=1e-6)
+
+
+def test_niggli_cell_has_the_minkowski_lengths():
+    """The cell checks take the reduced lengths from spglib's Niggli cell: they must be those of
+    ASE's Minkowski reduction (reference library) for oblique and sheared bases alike."""
+    rng = np.random.default_rng(11)
+    for k in range(200):
+        cell = rng.normal(size=(3, 3)) * rng.uniform(1.0, 10.0)
+        if k % 2:
+            cell = (np.eye(3, dtype=int) + np.triu(rng.integers(-4, 5, size=(3, 3)), 1)) @ cell
+        niggli = niggli_reduced(cell)
+        assert niggli is not None
+        minkowski, _ = minkowski_reduce(cell)
+        assert np.allclose(np.sort(np.linalg.norm(niggli, axis=1)), np.sort(np.linalg.norm(minkowski, axis=1)),
+                           rtol=1e-9, atol=0)

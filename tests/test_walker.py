@@ -10,7 +10,7 @@ from scipy.spatial import cKDTree
 from conftest import random_crystal
 from madelung.structure.lattice import plane_spacings
 from madelung.sums._kernels import kernels, point_kernels
-from madelung.sums.geometry import build_bins, neighbour_pairs
+from madelung.sums.geometry import build_bins, nearest_neighbour_distances, neighbour_pairs, shared_bins
 from madelung.sums.shortrange import shortrange
 
 
@@ -78,3 +78,33 @@ def test_points_see_every_ion_within_cutoff():
         0.5, 0.0, cutoff, 1e-4, False)
     assert pairs == sum(len(d) for d in expected)
     assert np.allclose(nearest, [d[0] for d in expected], rtol=1e-12, atol=0)
+
+
+@pytest.mark.parametrize("seed", [4, 9])
+def test_searches_sharing_bins_find_every_pair(seed):
+    """Inside shared_bins a shorter search walks the bins of a longer one (kept from the first);
+    its pairs and nearest distances still match scipy's cKDTree (reference library) on the tiled cell."""
+    rng = np.random.default_rng(seed)
+    crystal = random_crystal(rng)
+    cell = np.asarray(crystal.cell, float)
+    positions = np.asarray(crystal.positions, float)
+    long_cutoff = 1.5 * float(plane_spacings(cell).max())
+    short_cutoff = 0.45 * long_cutoff
+    with shared_bins():
+        to_any, _, _ = nearest_neighbour_distances(cell, positions, crystal.charges)
+        neighbour_pairs(cell, positions, long_cutoff)
+        owner, partner, distance = neighbour_pairs(cell, positions, short_cutoff)
+    expected = _reference_distances(cell, positions, positions, short_cutoff)
+    assert len(owner) == sum(len(d) for d in expected)
+    for i, reference in enumerate(expected):
+        assert np.allclose(np.sort(distance[owner == i]), reference, rtol=1e-12, atol=0)
+    nearest = _reference_distances(cell, positions, positions, long_cutoff)
+    assert np.allclose(to_any, [d[0] for d in nearest], rtol=1e-12, atol=0)
+
+
+def test_bins_given_must_cover_the_cutoff():
+    crystal = random_crystal(np.random.default_rng(2))
+    cell, positions = np.asarray(crystal.cell, float), np.asarray(crystal.positions, float)
+    bins = build_bins(cell, positions, 2.0)
+    with pytest.raises(ValueError):
+        neighbour_pairs(cell, positions, 3.0, bins=bins)

@@ -75,6 +75,7 @@ import numpy as np
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 from ..structure.crystal import Crystal
+from ..sums.geometry import shared_bins
 from ..sums.matrix import blas_budget, coulomb_matrix, site_plan, MAX_MATRIX_SITES
 from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from .madelung_constants import madelung_constants
@@ -263,21 +264,25 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
     """
     if not isinstance(crystal, Crystal):
         raise InputError(f"describe() needs a madelung.Crystal, got {type(crystal).__name__}")
-    # salts of polyatomic ions are described with each ion one charge at its centre, as the
-    # command line and madelung_constants do by default
-    found = find_polyatomic_ions(crystal)
-    if found.found:
-        crystal = centred_crystal(crystal, found)
-    n = len(crystal)
-    # one plan of the sites, tuned for unit charges on every site: the Coulomb matrix of the
-    # spectrum needs it, and it is at least as accurate for the crystal's own charges, so the
-    # energy and the Madelung constants run on it too (bins and k-vectors built once); the
-    # nearest distances the constants need give the plan its shortest distance
-    nearest = crystal.nearest_distances()
-    plan = None
-    if spectrum_length and n <= MAX_MATRIX_SITES:
-        plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=float(np.min(nearest[0])))
-    constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan, nearest=nearest)
+    with shared_bins():
+        # the neighbour searches of one structure sort its atoms once: the bond search for
+        # polyatomic ions and the first shells walk the bins of the nearest-distance search
+        nearest = crystal.nearest_distances()
+        # salts of polyatomic ions are described with each ion one charge at its centre, as the
+        # command line and madelung_constants do by default
+        found = find_polyatomic_ions(crystal)
+        if found.found:
+            crystal = centred_crystal(crystal, found)
+            nearest = crystal.nearest_distances()
+        n = len(crystal)
+        # one plan of the sites, tuned for unit charges on every site: the Coulomb matrix of the
+        # spectrum needs it, and it is at least as accurate for the crystal's own charges, so the
+        # energy and the Madelung constants run on it too (bins and k-vectors built once); the
+        # nearest distances the constants need give the plan its shortest distance
+        plan = None
+        if spectrum_length and n <= MAX_MATRIX_SITES:
+            plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=float(np.min(nearest[0])))
+        constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan, nearest=nearest)
     result = constants.ewald
     q = np.asarray(crystal.charges, dtype=float)
     phi = np.asarray(result.potentials)

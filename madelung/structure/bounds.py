@@ -20,7 +20,7 @@ import re
 import numpy as np
 
 from ..errors import InputError
-from .lattice import plane_spacings, reduced_basis
+from .lattice import niggli_reduced, plane_spacings, reduced_basis
 
 #: Longest lattice vector accepted, Å (a micrometre; real periodic models stay far below).
 MAX_CELL_LENGTH = 1.0e4
@@ -194,8 +194,10 @@ def check_cell(cell, positions, source=None, min_distance=0.0):
 
     References
     ----------
-    H. Minkowski, J. Reine Angew. Math. 129, 220 (1905) -- the reduction (done by
-    ``ase.geometry.minkowski_reduce``).
+    H. Minkowski, J. Reine Angew. Math. 129, 220 (1905) -- the reduction (the lengths of the
+    Niggli cell of spglib, I. Křivý and B. Gruber, Acta Cryst. A32 (1976) 297, which are those of a
+    Minkowski-reduced basis in three dimensions; ``ase.geometry.minkowski_reduce`` where spglib
+    cannot reduce the cell).
     """
     where = _where(source)
     lengths = np.linalg.norm(cell, axis=1)
@@ -203,12 +205,16 @@ def check_cell(cell, positions, source=None, min_distance=0.0):
     if longest > MAX_CELL_LENGTH:
         raise InputError(f"{where}a lattice vector is {longest:.4g} Å long, above the limit of "
                          f"{MAX_CELL_LENGTH:g} Å")
-    from ase.geometry import minkowski_reduce
+    # the Niggli cell the sums reduce to anyway (kept, so no second reduction): its vector lengths
+    # are those of the Minkowski-reduced cell; where spglib cannot reduce, ASE's Minkowski reduction
+    reduced = niggli_reduced(cell)
+    if reduced is None:
+        from ase.geometry import minkowski_reduce
 
-    try:
-        reduced, _ = minkowski_reduce(np.array(cell, dtype=float))
-    except Exception:   # the reduction gives up on nearly degenerate cells
-        reduced = np.array(cell, dtype=float)
+        try:
+            reduced, _ = minkowski_reduce(np.array(cell, dtype=float))
+        except Exception:   # the reduction gives up on nearly degenerate cells
+            reduced = np.array(cell, dtype=float)
     reduced_lengths = np.linalg.norm(reduced, axis=1)
     shortest = float(reduced_lengths.min())
     if shortest < MIN_CELL_LENGTH:

@@ -307,9 +307,13 @@ class Crystal:
         return nearest_neighbour_distances(self.cell, self.positions, self.charges)
 
     def _check_overlaps(self):
-        from ..sums.geometry import closest_pair_within
+        from ..sums.geometry import closest_pair_within, shortest_distance
 
         limit = max(self.min_distance, COINCIDENT_DISTANCE)   # coincident ions: always refused
+        # one pass for the shortest distance (kept for the sum's plan); the pair is looked for
+        # only when it is too short, to be named
+        if shortest_distance(self.cell, self.positions) >= limit:
+            return
         pair = closest_pair_within(self.cell, self.positions, limit)
         if pair is not None:
             i, j, d = pair

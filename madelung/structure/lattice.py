@@ -21,6 +21,26 @@ def reduced_basis(cell):
     """``(reduced cell, integer basis change)`` with ``reduced = change @ cell``: the
     Niggli-reduced, right-handed basis of the lattice (Křivý & Gruber, Acta Cryst. A32 (1976)
     297), or the cell itself if spglib cannot reduce it."""
+    found = _reduction(cell)
+    return found[0].copy(), found[1].copy()
+
+
+def niggli_reduced(cell):
+    """The Niggli-reduced basis of :func:`reduced_basis`, or None where spglib could not reduce
+    the cell (the same kept reduction: no second call of spglib).
+
+    Its vectors are three shortest non-coplanar lattice vectors (a Niggli cell is a Buerger cell),
+    so in three dimensions their lengths are those of a Minkowski-reduced basis.
+
+    References
+    ----------
+    I. Křivý and B. Gruber, Acta Cryst. A32 (1976) 297; M. J. Buerger, Z. Kristallogr. 109 (1957) 42.
+    """
+    found = _reduction(cell)
+    return found[0].copy() if found[2] else None
+
+
+def _reduction(cell):
     cell = np.ascontiguousarray(cell, dtype=float)
     key = cell.tobytes()
     found = _REDUCED.get(key)
@@ -29,10 +49,11 @@ def reduced_basis(cell):
         if len(_REDUCED) >= _REDUCED_KEEP:
             _REDUCED.pop(next(iter(_REDUCED)))
         _REDUCED[key] = found
-    return found[0].copy(), found[1].copy()
+    return found
 
 
 def _reduce(cell):
+    """``(reduced, change, reduced by spglib)``."""
     try:
         with warnings.catch_warnings():  # spglib 2.x warns about its error-handling switch on every call
             warnings.simplefilter("ignore", DeprecationWarning)
@@ -40,13 +61,13 @@ def _reduce(cell):
     except Exception:  # spglib reports failures as None or as an error depending on its version
         reduced = None
     if reduced is None:
-        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64), False
     change = np.rint(np.asarray(reduced) @ np.linalg.inv(cell)).astype(np.int64)
     if round(abs(np.linalg.det(change))) != 1:
-        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64)
+        return np.ascontiguousarray(cell), np.eye(3, dtype=np.int64), False
     if np.linalg.det(change @ cell) < 0:
         change = -change
-    return np.ascontiguousarray(change @ cell), change
+    return np.ascontiguousarray(change @ cell), change, True
 
 
 def plane_spacings(cell) -> np.ndarray:

@@ -7,6 +7,7 @@ walk pairs through the same :class:`CellBins`; only their kernels differ.
 from __future__ import annotations
 
 import os
+import threading
 import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -107,6 +108,29 @@ class CellBins:
         return volume * len(self.offsets) / float(np.prod(self.counts))
 
 
+#: Bin-offset grids by reach (reach -> (offsets, squared gaps)), kept: a stencil is the grid
+#: filtered by the cell's metric, and the grid itself depends on the reach alone.
+_OFFSET_GRIDS = {}
+_OFFSET_GRIDS_KEEP = 64
+
+
+def _offset_grid(reach):
+    """Every bin offset within ``reach`` and its squared gap ``sum_a max(|d_a| - 1, 0)^2`` (read-only)."""
+    key = tuple(int(r) for r in reach)
+    found = _OFFSET_GRIDS.get(key)
+    if found is None:
+        grids = np.meshgrid(*[np.arange(-r, r + 1) for r in key], indexing="ij")
+        offsets = np.stack([g.ravel() for g in grids], axis=1).astype(np.int64)
+        gap = np.maximum(np.abs(offsets) - 1, 0).astype(float)
+        found = (offsets, np.einsum("ij,ij->i", gap, gap))
+        for array in found:
+            array.setflags(write=False)
+        if len(_OFFSET_GRIDS) >= _OFFSET_GRIDS_KEEP:
+            _OFFSET_GRIDS.pop(next(iter(_OFFSET_GRIDS)))
+        _OFFSET_GRIDS[key] = found
+    return found
+
+
 def stencil_offsets(cell, counts, reach, cutoff):
     """Bin offsets within ``reach`` whose bins may hold two points closer than ``cutoff``.
 
@@ -117,10 +141,8 @@ def stencil_offsets(cell, counts, reach, cutoff):
     """
     edges = np.asarray(cell, float) / np.asarray(counts, float)[:, None]
     smallest = max(float(np.linalg.eigvalsh(edges @ edges.T)[0]), 0.0)
-    grids = np.meshgrid(*[np.arange(-r, r + 1) for r in reach], indexing="ij")
-    offsets = np.stack([g.ravel() for g in grids], axis=1).astype(np.int64)
-    gap = np.maximum(np.abs(offsets) - 1, 0).astype(float)
-    keep = smallest * np.einsum("ij,ij->i", gap, gap) <= cutoff * cutoff * (1 + 1e-12)
+    offsets, gap2 = _offset_grid(reach)
+    keep = smallest * gap2 <= cutoff * cutoff * (1 + 1e-12)
     return np.ascontiguousarray(offsets[keep])
 
 
@@ -131,6 +153,7 @@ def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0
     compact stencil whatever basis the cell is written in; positions and results are Cartesian.
     """
     cell, _ = reduced_basis(cell)
+    positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
     spacing = plane_spacings(cell)
     counts = np.maximum(1, np.floor(bins_per_cutoff * spacing / cutoff)).astype(np.int64)
@@ -145,8 +168,64 @@ def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0
                     float(cutoff))
 
 
-def _nearest(cell, positions, charges, cutoff):
+#: Bins kept by :func:`shared_bins` for the current thread (a list while a scope is open).
+_SHARED = threading.local()
+
+#: A neighbour search inside :func:`shared_bins` walks bins kept for a longer cutoff when they
+#: examine at most this many candidate pairs (about the cost of sorting a small cell anew).
+SHARED_BINS_PAIRS = 4e4
+
+
+@contextmanager
+def shared_bins():
+    """Let the neighbour searches inside reuse each other's bins for the same cell and positions.
+
+    The bins that a neighbour search (:func:`neighbour_pairs`, :func:`nearest_neighbour_distances`,
+    :func:`closest_pair_within`) builds inside are kept until the scope closes; a later search of
+    the same reduced cell and positions walks kept bins built for the same cutoff, or a longer one
+    when the walk stays small (:data:`SHARED_BINS_PAIRS`), instead of sorting the atoms again. The
+    searches find the same pairs and distances (pairs possibly in another order). Only the
+    searches inside the scope share, and scopes nest (the outermost one keeps), so a result never
+    depends on what ran before the scope opened. Kept bins are never written to (they stay
+    writeable: Numba would compile every kernel again for read-only arrays).
+    """
+    if getattr(_SHARED, "bins", None) is not None:
+        yield
+        return
+    _SHARED.bins = []
+    try:
+        yield
+    finally:
+        _SHARED.bins = None
+
+
+def _search_bins(cell, positions, cutoff) -> CellBins:
+    """Bins for a neighbour search within ``cutoff``: kept ones inside :func:`shared_bins` where
+    they serve, else new ones."""
+    kept = getattr(_SHARED, "bins", None)
+    if kept:
+        reduced, _ = reduced_basis(cell)
+        positions = np.ascontiguousarray(positions, dtype=np.float64)
+        key = (reduced.tobytes(), positions.tobytes())
+        n = len(positions)
+        best = None
+        for cell_key, positions_key, bins in kept:
+            if (cell_key, positions_key) != key or bins.cutoff < cutoff:
+                continue
+            examined = float(n) * n * len(bins.offsets) / float(np.prod(bins.counts))
+            if bins.cutoff <= cutoff * (1 + 1e-12) or examined <= SHARED_BINS_PAIRS:
+                if best is None or bins.cutoff < best.cutoff:
+                    best = bins
+        if best is not None:
+            return best
     bins = build_bins(cell, positions, cutoff)
+    if kept is not None:
+        kept.append((bins.cell.tobytes(), np.ascontiguousarray(positions, dtype=np.float64).tobytes(), bins))
+    return bins
+
+
+def _nearest(cell, positions, charges, cutoff):
+    bins = _search_bins(cell, positions, cutoff)
     examined = len(positions) ** 2 * bins.examined_volume / abs(np.linalg.det(bins.cell))
     with thread_budget(examined * EXAMINED_PAIR_NS):
         nearest, partner, opposite = gk.nearest_neighbours(
@@ -207,6 +286,26 @@ def shortest_distance(cell, positions) -> float:
     cell = np.ascontiguousarray(cell)
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
+    key = (cell.tobytes(), positions.tobytes()) if n <= SHORTEST_KEEP_MAX_ATOMS else None
+    found = _SHORTEST.get(key)
+    if found is None:
+        found = _shortest_distance(cell, positions)
+        if key is not None:
+            if len(_SHORTEST) >= _SHORTEST_KEEP:
+                _SHORTEST.pop(next(iter(_SHORTEST)))
+            _SHORTEST[key] = found
+    return found
+
+
+#: Recent shortest distances (bytes of the reduced cell and the positions -> Å) of cells up to
+#: this many atoms: a crystal's overlap check finds it, and the plan of its first sum needs it.
+SHORTEST_KEEP_MAX_ATOMS = 1000
+_SHORTEST = {}
+_SHORTEST_KEEP = 64
+
+
+def _shortest_distance(cell, positions) -> float:
+    n = len(positions)
     volume = abs(float(np.linalg.det(cell)))
     inverse = np.ascontiguousarray(np.linalg.inv(cell))
     spacing = plane_spacings(cell)
@@ -234,8 +333,11 @@ def closest_pair_within(cell, positions, limit):
     return None
 
 
-def neighbour_pairs(cell, positions, cutoff, sites=None):
+def neighbour_pairs(cell, positions, cutoff, sites=None, bins=None):
     """Every partner within ``cutoff`` of each site in ``sites`` (default: all), images included.
+
+    ``bins``: bins of these positions (:func:`build_bins`) built for ``cutoff`` or a longer one,
+    if at hand (e.g. a sum plan's); else they are built, or taken from :func:`shared_bins`.
 
     Returns ``(owner, partner, distance)`` arrays, one entry per pair: ``owner`` indexes ``sites``,
     ``partner`` is the original index of the partner atom, ``distance`` is in Å. A site is not
@@ -243,7 +345,11 @@ def neighbour_pairs(cell, positions, cutoff, sites=None):
     """
     n = len(positions)
     sites = np.arange(n) if sites is None else np.asarray(sites, dtype=np.int64)
-    bins = build_bins(cell, positions, cutoff)
+    if bins is None:
+        bins = _search_bins(cell, positions, cutoff)
+    elif bins.cutoff < cutoff * (1 - 1e-12) or len(bins.order) != n:
+        raise ValueError(f"bins built for {len(bins.order)} atoms within {bins.cutoff:g} Å cannot serve a search "
+                         f"of {n} atoms within {cutoff:g} Å")
     rank = np.empty(n, dtype=np.int64)
     rank[bins.order] = np.arange(n)
     owner, partner, distance = gk.pairs_from(np.ascontiguousarray(rank[sites]), bins.positions, bins.cell,

@@ -104,14 +104,15 @@ def potentials_for_charge_sets(cell, positions, charge_sets, tol=SUM_TOL, d_min=
     return out
 
 
-def screened_pairs(cell, positions, types, alpha_by_type, r_cut):
+def screened_pairs(cell, positions, types, alpha_by_type, r_cut, bins=None):
     """(N, N) sum over images of ``erfc(alpha_ij r) / r`` within ``r_cut`` (Å^-1, no Coulomb constant),
-    ``alpha_ij = alpha_by_type[types[i], types[j]]``; the site itself is left out, its images are not."""
+    ``alpha_ij = alpha_by_type[types[i], types[j]]``; the site itself is left out, its images are not
+    (``bins``: these positions' bins for ``r_cut``, if built already)."""
     from scipy.special import erfc
 
     n = len(positions)
     owner, partner, distance = neighbour_pairs(np.ascontiguousarray(cell, dtype=np.float64),
-                                               np.ascontiguousarray(positions, dtype=np.float64), r_cut)
+                                               np.ascontiguousarray(positions, dtype=np.float64), r_cut, bins=bins)
     types = np.asarray(types, dtype=np.int64)
     alpha = np.asarray(alpha_by_type, dtype=np.float64)[types[owner], types[partner]]
     return np.bincount(owner * n + partner, weights=erfc(alpha * distance) / distance, minlength=n * n).reshape(n, n)
@@ -162,17 +163,20 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     elif plan.method != "direct" or plan.n_atoms != n:
         raise ValueError(f"the Coulomb matrix of {n} sites needs a direct-sum plan of those sites")
     a = plan.alpha
-    real = screened_pairs(plan.cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), plan.real_cutoff)
+    # the plan's own bins (built for its real-space cutoff, and already by a sum of the same plan)
+    real = screened_pairs(plan.cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), plan.real_cutoff,
+                          bins=plan.bins)
     ks = plan.kspace
     # sqrt(w(k)) exp(i k . r_j) for every site and k-vector, as products of one table of
-    # exp(2 pi i h f_a) per lattice direction (fewer exponentials than one per site and k-vector)
-    waves = np.sqrt(ks.weights).astype(complex)
+    # exp(2 pi i h f_a) per lattice direction (fewer exponentials than one per site and k-vector);
+    # one row per k-vector, so that picking the rows of a table copies whole rows
+    waves = np.sqrt(ks.weights)[:, None].astype(complex)
     for axis in range(3):
-        table = np.exp(2j * math.pi * np.outer(plan.frac[:, axis], np.arange(-ks.hmax[axis], ks.hmax[axis] + 1)))
-        waves = waves * table[:, ks.hkl[:, axis] + ks.hmax[axis]]
-    waves = np.concatenate([waves.real, waves.imag], axis=1)
+        table = np.exp(2j * math.pi * np.outer(np.arange(-ks.hmax[axis], ks.hmax[axis] + 1), plan.frac[:, axis]))
+        waves = waves * table[ks.hkl[:, axis] + ks.hmax[axis]]
+    waves = np.concatenate([waves.real, waves.imag], axis=0)
     with blas_budget(2.0 * n * n * len(ks.weights)):
-        recip = waves @ waves.T     # sum_k w(k) cos(k . (r_i - r_j)), twice over the half space
+        recip = waves.T @ waves     # sum_k w(k) cos(k . (r_i - r_j)), twice over the half space
     matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (plan.volume * a * a)
     matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
     return matrix

@@ -261,9 +261,10 @@ class SumPlan:
                                                                  self.volume, k_e)) / safety,
             rounding_error=float(tuning.rounding_error(scale, _terms_per_ion(self, sums, self.volume, "direct"))),
             predicted_seconds=dict(self.predicted_seconds), extra=dict(self.extra))
-        for name in ("bins", "kspace"):   # built once, for the sites; the charges do not enter
-            if name in self.__dict__:
-                plan.__dict__[name] = self.__dict__[name]
+        # built once, for the sites, and kept by both plans (the charges do not enter): the sum
+        # of the new charges needs them, and so does a later use of this plan (the Coulomb matrix)
+        for name in ("bins", "kspace"):
+            plan.__dict__[name] = getattr(self, name)
         return plan
 
     def to_dict(self) -> dict:
