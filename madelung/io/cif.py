@@ -30,7 +30,6 @@ from fractions import Fraction
 
 import numpy as np
 from ase.data import chemical_symbols
-from ase.io.cif import parse_cif
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
@@ -163,6 +162,8 @@ def cif_blocks(path, reader=None):
         raise InputError(f"{path}: not a CIF (no data_ block)")
     blocks = fast_blocks(text) if cif_reader(reader) == "fast" else None
     if blocks is None:
+        # imported here: any ase.io module runs ase.io/__init__ (about 0.2 s), which the fast reader avoids
+        from ase.io.cif import parse_cif
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
@@ -250,9 +251,15 @@ def _parsed_operator(text):
     return rotation, translation
 
 
+#: Tags that list a block's symmetry operators, in the order the general reader looks for them.
+_OPERATOR_TAGS = ("_space_group_symop_operation_xyz", "_space_group_symop.operation_xyz", "_symmetry_equiv_pos_as_xyz")
+
+
 def _operators(block, path):
     """The symmetry operators of a block: listed ones, else those of its space group (via ASE's tables)."""
-    listed = block._get_sitesym()
+    listed = next((block[tag] for tag in _OPERATOR_TAGS if tag in block), None)
+    if isinstance(listed, str):
+        listed = [listed]
     if listed:
         try:
             ops = [parse_operator(op) for op in listed]
