@@ -30,9 +30,6 @@ from fractions import Fraction
 
 import numpy as np
 from ase.data import chemical_symbols
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
-from scipy.spatial import cKDTree
 
 from ..structure.crystal import ion_text
 from ..errors import InputError, MadelungWarning
@@ -378,26 +375,52 @@ def _cell(block, path):
                      [c * cb, c * (ca - cb * cg) / sg, c * np.sqrt(cz) / sg]])
 
 
+#: Up to this many points the close pairs are found by comparing every pair (a symmetry orbit has
+#: at most 192 images); above it by a k-d tree, whose import (scipy.spatial, about 0.1 s) a small
+#: structure need not pay.
+ALL_PAIRS_UP_TO = 400
+
+
+def _close_pairs(frac, cell, tolerance):
+    """``(m, 2)`` index pairs ``i < j`` of ``frac`` whose nearest periodic images lie within
+    ``tolerance`` Å (each fractional difference taken to its nearest integer shift)."""
+    n = len(frac)
+    if n <= ALL_PAIRS_UP_TO:
+        first, second = np.triu_indices(n, 1)
+    else:
+        from scipy.spatial import cKDTree   # only for a large set of points (see ALL_PAIRS_UP_TO)
+        spacing = 1.0 / np.linalg.norm(np.linalg.inv(cell).T, axis=1)
+        radius = tolerance / float(np.min(spacing))   # no fractional component of a close pair exceeds it
+        tree = cKDTree(np.mod(frac, 1.0) % 1.0, boxsize=1.0 + 1e-12)
+        pairs = tree.query_pairs(radius, p=np.inf, output_type="ndarray").reshape(-1, 2)
+        first, second = pairs[:, 0], pairs[:, 1]
+    delta = frac[first] - frac[second]
+    delta -= np.round(delta)
+    close = np.linalg.norm(delta @ cell, axis=1) <= tolerance
+    return np.stack([first[close], second[close]], axis=1)
+
+
 def _gather(frac, cell, tolerance):
     """Groups of indices of ``frac`` (wrapped) that lie within ``tolerance`` Å of each other (linked
     through chains of such pairs), each group in increasing order, the groups by their first index."""
     n = len(frac)
     if n <= 1:
         return [[0]] if n else []
-    spacing = 1.0 / np.linalg.norm(np.linalg.inv(cell).T, axis=1)
-    radius = tolerance / float(np.min(spacing))
-    tree = cKDTree(np.mod(frac, 1.0) % 1.0, boxsize=1.0 + 1e-12)
-    pairs = tree.query_pairs(radius, p=np.inf, output_type="ndarray")
-    if len(pairs):
-        delta = frac[pairs[:, 0]] - frac[pairs[:, 1]]
-        delta -= np.round(delta)
-        pairs = pairs[np.linalg.norm(delta @ cell, axis=1) <= tolerance]
+    pairs = _close_pairs(frac, cell, tolerance)
     if not len(pairs):
         return [[i] for i in range(n)]
-    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
-    _, component = connected_components(graph, directed=False)
-    order = np.argsort(component, kind="stable")
-    groups = np.split(order, np.flatnonzero(np.diff(component[order])) + 1)
+    # connected components: every point takes the smallest index it is linked to, until none changes
+    owner = np.arange(n)
+    while True:
+        lowest = owner.copy()
+        np.minimum.at(lowest, pairs[:, 0], owner[pairs[:, 1]])
+        np.minimum.at(lowest, pairs[:, 1], owner[pairs[:, 0]])
+        lowest = lowest[lowest]                # follow each new owner one step further
+        if np.array_equal(lowest, owner):
+            break
+        owner = lowest
+    order = np.argsort(owner, kind="stable")
+    groups = np.split(order, np.flatnonzero(np.diff(owner[order])) + 1)
     groups.sort(key=lambda group: group[0])
     return [group.tolist() for group in groups]
 
