@@ -49,8 +49,9 @@ def test_an_argument_error_loads_no_sums_and_no_numba(argv):
                                           ("fluorite-CaF2.cif", {"Ca": 4, "F": 8})])
 def test_every_pair_and_the_kd_tree_gather_the_same_sites(monkeypatch, name, counts):
     path = STRUCTURES / name
+    monkeypatch.setattr(cif, "_by_all_pairs", lambda n: True)
     by_all_pairs = read_sites(path)
-    monkeypatch.setattr(cif, "ALL_PAIRS_UP_TO", 0)      # every set of points takes the k-d tree
+    monkeypatch.setattr(cif, "_by_all_pairs", lambda n: False)     # every set of points takes the k-d tree
     by_tree = read_sites(path)
     found = {}
     for parts in by_all_pairs.species:
@@ -60,7 +61,9 @@ def test_every_pair_and_the_kd_tree_gather_the_same_sites(monkeypatch, name, cou
     assert np.allclose(by_tree.positions, by_all_pairs.positions, rtol=0, atol=1e-12)
 
 
-def test_gathering_links_chains_of_close_points():
+@pytest.mark.parametrize("all_pairs", [True, False])
+def test_gathering_links_chains_of_close_points(monkeypatch, all_pairs):
+    monkeypatch.setattr(cif, "_by_all_pairs", lambda n: all_pairs)
     # three points 0.04 Å apart in a row (0 and 2 are 0.08 Å apart) are one site at a tolerance of
     # 0.05 Å; a point across the periodic boundary joins its neighbour too
     cell = 10.0 * np.eye(3)
