@@ -38,10 +38,12 @@ def test_the_constant_command_on_a_plain_cif_loads_no_fft_no_ase_io_no_kd_tree()
 
 
 @pytest.mark.parametrize("argv", [["constant", "missing.cif"], ["constant", str(NACL), "--tol", "abc"]])
-def test_an_argument_error_loads_no_sums_and_no_numba(argv):
+def test_an_argument_error_loads_no_sums_no_numba_no_structure_libraries(argv):
     code = ("from madelung.cli import main\ntry:\n"
             f"    code = main({argv!r})\nexcept SystemExit as exc:\n    code = exc.code\nassert code == 2, code")
-    assert _modules_after(code, "madelung.cli.energy", "madelung.sums.direct", "numba") == ["madelung.cli.energy"]
+    loaded = _modules_after(code, "madelung.cli.energy", "madelung.sums.direct", "madelung.structure.crystal", "numba",
+                            "spglib", "ase")
+    assert loaded == ["madelung.cli.energy"]
 
 
 @pytest.mark.parametrize("name, counts", [("rocksalt-NaCl.cif", {"Na": 4, "Cl": 4}),
