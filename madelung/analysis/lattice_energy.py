@@ -24,6 +24,7 @@ from ..errors import InputError
 from ..sums.dispatch import ewald
 from ..sums.shortrange import load_repulsion, shortrange
 from ..units import COULOMB_CONSTANT, EV_PER_A3_TO_GPA, EV_TO_KJ_PER_MOL, kj_per_mol_to_ev
+from ..units import pressure_from_stress  # noqa: F401  (defined with the units; part of this module's API)
 from .madelung_constants import madelung_constants
 from ..defaults import SUM_TOL
 
@@ -165,21 +166,6 @@ def kapustinskii_of_ions(cation, z_cation, cation_count, anion, z_anion, anion_c
     except InputError:
         return None
     return kapustinskii_energy(cation_count + anion_count, z_cation, z_anion, *radii)
-
-
-def pressure_from_stress(stress) -> float:
-    """Pressure, GPa, from a stress tensor in eV/Å^3 with ASE's sign (tension positive):
-    P = -tr(sigma) / 3, positive when the structure wants to expand.
-
-    References
-    ----------
-    O. H. Nielsen and R. M. Martin, Phys. Rev. B 32 (1985) 3780 (stress in a periodic solid; the
-    pressure is minus a third of its trace).
-    """
-    stress = np.asarray(stress, dtype=float)
-    if stress.shape != (3, 3):
-        raise InputError(f"a stress tensor is 3x3, got shape {stress.shape}")
-    return float(-np.trace(stress) / 3.0 * EV_PER_A3_TO_GPA)
 
 
 @dataclass(frozen=True)

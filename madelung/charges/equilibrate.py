@@ -61,7 +61,6 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import erf
 
 from ..structure import elements
 from ..errors import InputError, MadelungWarning
@@ -297,6 +296,7 @@ def equilibrate_group(symbols, positions, total_charge, parameters=None):
     A. K. Rappé and W. A. Goddard III, J. Phys. Chem. 95 (1991) 3358; R. S. Mulliken,
     J. Chem. Phys. 2 (1934) 782; D. M. York and W. Yang, J. Chem. Phys. 104 (1996) 159.
     """
+    from scipy.special import erf   # here: scipy.special takes ~0.1 s to import, and only this function needs it
     positions = np.asarray(positions, dtype=float).reshape(-1, 3)
     values = [tuple(parameters[el]) if parameters and el in parameters else mulliken_parameters(el) for el in symbols]
     chi = np.array([v[0] for v in values])

@@ -9,9 +9,8 @@ import os
 import numpy as np
 
 from ..analysis.conventions import CONVENTION_TEXT
-from ..analysis.lattice_energy import pressure_from_stress
 from ..errors import InputError
-from ..units import EV_TO_KJ_PER_MOL
+from ..units import EV_TO_KJ_PER_MOL, pressure_from_stress
 from .loading import _ions_as_units, _polyatomic_ions, load_crystal
 from .options import _common, _polyatomic_option
 from .output import (

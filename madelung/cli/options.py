@@ -6,10 +6,11 @@ import argparse
 
 import numpy as np
 
-from ..structure.crystal import DEFAULT_MAX_ATOMS
+# the defaults straight from their one place: the structure modules would load spglib before parsing
+from ..defaults import MAX_ATOMS as DEFAULT_MAX_ATOMS
 from ..defaults import MIN_DISTANCE, SCREENING_TOL, SUM_TOL
+from ..defaults import SYMMETRY_TOLERANCE as DEFAULT_SYMMETRY_TOLERANCE
 from ..report.files import check_outputs
-from ..structure.symmetry import DEFAULT_SYMMETRY_TOLERANCE
 
 #: Defaults of the shared options, one place. ``--tol``: relative accuracy of the sums; ``charges``,
 #: ``screen``, ``map`` and ``interstitials`` use the looser COARSE_TOL (they sum many candidates,

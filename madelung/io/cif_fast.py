@@ -13,9 +13,13 @@ None and is read by the general parser, which also gives every error message for
 file. Values are converted as the general parser converts them (quotes dropped, integers, floats,
 uncertainties in parentheses dropped), on first use.
 
-The blocks returned are :class:`ase.io.cif.CIFBlock` objects, so everything downstream
-(:func:`madelung.io.cif.block_sites`, space groups by name or number) is the same code for both
-readers. Only gemmi's parser is used, not its symmetry expansion: that keeps rows which share a
+The blocks returned are read-only mappings of tag to value like the general parser's blocks
+(:class:`ase.io.cif.CIFBlock`), so everything downstream (:func:`madelung.io.cif.block_sites`) is
+the same code for both readers; a block that lists no symmetry operators takes its space group
+from ASE's tables by name or number, as the general reader's blocks do. ASE's CIF module is
+imported only then, or when the general reader runs: importing any ``ase.io`` module runs
+``ase.io/__init__``, which loads ASE's trajectories, constraints and space groups and with them
+``scipy.integrate`` (about 0.2 s), which a plain file needs none of. Only gemmi's parser is used, not its symmetry expansion: that keeps rows which share a
 position as separate sites (wüstite's Fe2+ and Fe3+ rows give 12 sites there, 8 here; the
 manganite's La/Sr and Mn3+/Mn4+ rows 7 there, 5 here), while :mod:`madelung.io.cif` gathers them
 into one mixed site.
@@ -29,10 +33,8 @@ M. Wojdyr, J. Open Source Softw. 7 (2022) 4200 (GEMMI: a library for structural 
 from __future__ import annotations
 
 import re
-import warnings
 from collections.abc import Mapping
 
-from ase.io.cif import CIFBlock, convert_value
 
 #: Characters the general parser rewrites (HTML entities, TeX-like escapes, tags, sub/superscripts,
 #: ``--``, ``+-`` and ``-+`` as dashes and plus-minus signs); a file holding any of them takes the general reader.
@@ -43,6 +45,8 @@ _QUOTED_LINE = re.compile(r"""(?:(?:'[^']*'|"[^"]*"|[^\s'"]+)(?:\s+|$))*""")
 _TOKEN = re.compile(r"""'[^']*'|"[^"]*"|[^\s'"]+""")
 _INTEGER = re.compile(r"[+-]?\d+$")
 _DECIMAL = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?$")
+_QUOTED = re.compile(r"(\".*\")|('.*')$")
+_UNCERTAIN = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?\(\d+\)?$")
 
 
 def _tokens(line):
@@ -177,7 +181,7 @@ def plain_layout(text):
 
 
 def _value(raw):
-    """A raw CIF token as the general parser gives it (see :func:`ase.io.cif.convert_value`)."""
+    """A raw CIF token as the general parser gives it (see :func:`_converted`)."""
     if raw[:1] in ("'", '"') and len(raw) >= 2 and raw[-1] == raw[0]:
         return raw[1:-1]
     if raw[:1] == ";":
@@ -186,11 +190,9 @@ def _value(raw):
         return int(raw)
     if _DECIMAL.match(raw):
         return float(raw)
-    if "(" not in raw and "~" not in raw and "^" not in raw:
+    if "(" not in raw:
         return raw      # a word: the general parser keeps it as it is
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        return convert_value(raw)
+    return _converted(raw)
 
 
 def _text_field(raw):
@@ -198,9 +200,24 @@ def _text_field(raw):
     dropped, then converted like any value."""
     lines = raw[1:].split("\n")[:-1]          # the last line is the closing ';'
     kept = [lines[0].strip()] + [line.strip() for line in lines[1:] if line]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        return convert_value("\n".join(kept).strip())
+    return _converted("\n".join(kept).strip())
+
+
+def _converted(value):
+    """A value as the general parser converts it (:func:`ase.io.cif.convert_value`): quotes
+    dropped, integers, floats, a number's uncertainty in parentheses dropped (also when the closing
+    parenthesis is missing), anything else kept. Its sub- and superscript rewriting (``~``, ``^``)
+    is left out: a file holding those characters never reaches this reader (see ``_REWRITTEN``)."""
+    value = value.strip()
+    if _QUOTED.match(value):
+        return value[1:-1]
+    if _INTEGER.match(value):
+        return int(value)
+    if _DECIMAL.match(value):
+        return float(value)
+    if _UNCERTAIN.match(value):
+        return float(value[:value.index("(")])
+    return value
 
 
 class _Tags(Mapping):
@@ -232,8 +249,37 @@ class _Tags(Mapping):
         return len(self._raw)
 
 
+class FastBlock(Mapping):
+    """One data block read by gemmi: its name and a read-only mapping of lower-case tag to value
+    (a number, a string, or a list of them for a loop column), as the general parser's blocks."""
+
+    __slots__ = ("name", "_tags")
+
+    def __init__(self, name, tags):
+        self.name = name
+        self._tags = tags
+
+    def __getitem__(self, key):
+        return self._tags[key]
+
+    def __iter__(self):
+        return iter(self._tags)
+
+    def __len__(self):
+        return len(self._tags)
+
+    def __repr__(self):
+        return f"FastBlock({self.name!r}, {len(self._tags)} tags)"
+
+    def get_spacegroup(self, subtrans_included):
+        """The space group named or numbered in the block, from ASE's tables (only for a block that
+        lists no symmetry operators; ASE's CIF module is imported here, see the module docstring)."""
+        from ase.io.cif import CIFBlock
+        return CIFBlock(self.name, self._tags).get_spacegroup(subtrans_included)
+
+
 def fast_blocks(text):
-    """Every data block of a CIF ``text`` as ``[CIFBlock, ...]`` read by gemmi, or None when the file
+    """Every data block of a CIF ``text`` as ``[FastBlock, ...]`` read by gemmi, or None when the file
     must take the general parser (no gemmi, a layout the two could read differently, or a file
     gemmi refuses)."""
     try:
@@ -271,5 +317,5 @@ def fast_blocks(text):
             value = raw.get(tag)
             if value is None or (len(value) if isinstance(value, list) else 1) != count:
                 return None
-        blocks.append(CIFBlock(name, _Tags(raw)))
+        blocks.append(FastBlock(name, _Tags(raw)))
     return blocks

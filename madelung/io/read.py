@@ -31,7 +31,6 @@ import warnings
 from dataclasses import dataclass
 from typing import Mapping
 
-import ase.io
 import numpy as np
 
 from ..structure.bounds import precheck_file
@@ -69,6 +68,7 @@ def _check_path(path):
 
 def _read_frames(path, format, max_atoms):
     precheck_file(path, format, max_atoms)   # numbers and claimed sizes no reader should trust
+    import ase.io   # here: ase.io takes about 0.2 s to import, and a CIF read by the fast reader needs none of it
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")

@@ -59,7 +59,6 @@ import time
 
 import numba
 import numpy as np
-import scipy.fft
 
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT
@@ -159,6 +158,7 @@ def forward_transform(spectrum, real, shape, threads):
     """The discrete Fourier transform of the real mesh in ``real[:, :, :K2]``, in place into
     ``spectrum`` (the same memory): real-to-complex along the last axis a few planes at a time,
     then complex along the first two axes in place."""
+    import scipy.fft    # here, not at the top: only a mesh sum needs FFTs, and scipy.fft takes ~0.1 s to import
     k0, k2 = int(shape[0]), int(shape[2])
     for p in range(0, k0, PLANES_PER_CALL):
         q = min(k0, p + PLANES_PER_CALL)
@@ -169,6 +169,7 @@ def forward_transform(spectrum, real, shape, threads):
 def inverse_transform(spectrum, real, shape, threads):
     """The unnormalised inverse of :func:`forward_transform`, in place: afterwards ``real[:, :, :K2]``
     holds sum_m spectrum(m) exp(2 pi i m.g / K)."""
+    import scipy.fft    # only a mesh sum needs FFTs (see forward_transform)
     k0, k2 = int(shape[0]), int(shape[2])
     _into(scipy.fft.ifftn(spectrum, axes=(0, 1), norm="forward", workers=threads, overwrite_x=True), spectrum)
     for p in range(0, k0, PLANES_PER_CALL):
@@ -355,6 +356,7 @@ def run_mesh(crystal, plan, forces=False, stress=False, check="auto") -> EwaldRe
 
 def _refined(shape, excess, order):
     """A finer mesh for an error ``excess`` times the target (the error falls about as K^-order)."""
+    import scipy.fft    # only a mesh sum needs FFTs (see forward_transform)
     grow = excess ** (1.0 / order) * 1.1
     return tuple(int(scipy.fft.next_fast_len(int(math.ceil(k * grow)), real=True)) for k in shape)
 

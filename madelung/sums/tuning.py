@@ -49,7 +49,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft
 
 from ..errors import InputError
 from ..structure.bounds import MAX_MESH_BYTES, MESH_BYTES_PER_POINT
@@ -322,6 +321,7 @@ def mesh_error(alpha, steps, order, sums, k_e):
 def mesh_shape_for(alpha, order, target, lengths, sums, k_e):
     """Smallest FFT-friendly mesh meeting ``target`` (eV) at this alpha and order: equal steps
     ``|a_a| / K_a`` along every lattice vector, at least two spline widths per axis."""
+    import scipy.fft    # here, not at the top: only a mesh sum needs it, and it takes ~0.1 s to import
     prefactor, power = MESH_ERROR_MODEL[order]
     x = (target / (k_e * 0.5 * sums.square_sum * alpha * prefactor)) ** (1.0 / power)
     h = x * math.pi / alpha
