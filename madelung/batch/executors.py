@@ -19,7 +19,7 @@ from .tasks import failed_row, prepare_process, screen_task
 #: Numba kernel there is another matter: its OpenMP runtime does not survive a fork).
 PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis.madelung_constants",
            "madelung.sums.matrix", "madelung.structure.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib",
-           "scipy.special", "gemmi")
+           "scipy.special", "scipy.spatial", "gemmi")   # scipy.spatial: the k-d tree of CIF site grouping
 
 
 def _worker_main(connection, options):
