@@ -44,12 +44,18 @@ def sort_into_bins(frac, counts):
                 b = 0
             bin_of[i, a] = b
         flat[i] = (bin_of[i, 0] * counts[1] + bin_of[i, 1]) * counts[2] + bin_of[i, 2]
-    order = np.argsort(flat, kind="mergesort")
     start = np.zeros(n_bins + 1, dtype=np.int64)
     for i in range(n):
         start[flat[i] + 1] += 1
     for b in range(n_bins):
         start[b + 1] += start[b]
+    # a counting sort, stable (atoms keep their input order within a bin): no general sort is
+    # compiled, and it is O(N)
+    fill = start[:-1].copy()
+    order = np.empty(n, dtype=np.int64)
+    for i in range(n):
+        order[fill[flat[i]]] = i
+        fill[flat[i]] += 1
     return bin_of[order], order, start
 
 

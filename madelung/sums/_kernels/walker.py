@@ -59,7 +59,16 @@ def stencil_rows(offsets, half):
     key = np.empty(k, dtype=np.int64)
     for o in range(k):
         key[o] = ((offsets[o, 0] - low) * width + offsets[o, 1] - low) * width + offsets[o, 2] - low
-    order = np.argsort(key)
+    # insertion sort of the (distinct) keys: linear for the stencils built in lexicographic order,
+    # and no general sort to compile
+    order = np.arange(k)
+    for p in range(1, k):
+        o = order[p]
+        q = p - 1
+        while q >= 0 and key[order[q]] > key[o]:
+            order[q + 1] = order[q]
+            q -= 1
+        order[q + 1] = o
     rows = np.empty((k, 4), dtype=np.int64)
     n_rows = 0
     for p in range(k):
