@@ -17,7 +17,6 @@ import numpy as np
 import spglib
 
 from ..structure.lattice import plane_spacings, reduced_basis, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
-from ._kernels import distance_kernels as dk
 from ._kernels import geometry_kernels as gk
 
 def _choose_threading():
@@ -161,9 +160,8 @@ def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0
     while np.prod(counts.astype(float)) > limit:
         counts = np.maximum(1, counts // 2)
     reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 0)
-    frac = wrapped_fractional(cell, positions)
-    bin_of, order, start = gk.sort_into_bins(frac, counts)
-    wrapped = np.ascontiguousarray(frac[order] @ cell)
+    inverse = np.ascontiguousarray(np.linalg.inv(cell))
+    wrapped, bin_of, order, start = gk.sort_into_bins(positions, inverse, np.ascontiguousarray(cell), counts)
     return CellBins(cell, wrapped, order, counts, reach, stencil_offsets(cell, counts, reach, cutoff), bin_of, start,
                     float(cutoff))
 
@@ -275,7 +273,7 @@ def shortest_distance(cell, positions) -> float:
     The same value as the minimum of :func:`nearest_neighbour_distances`, without the per-atom
     bookkeeping. The search reaches :data:`PACKING_DISTANCE_FACTOR` ^ (1/3) times the mean spacing
     (V / N)^(1/3), which always holds the closest pair, so one pass over bins at least that thick
-    does it (a counting sort into bins, ``_kernels.distance_kernels``, and the shared half-stencil
+    does it (the bins of :func:`build_bins`, one cutoff thick, and the shared half-stencil
     walk); the search would widen if rounding ever left the closest pair outside.
 
     References
@@ -307,17 +305,13 @@ _SHORTEST_KEEP = 64
 def _shortest_distance(cell, positions) -> float:
     n = len(positions)
     volume = abs(float(np.linalg.det(cell)))
-    inverse = np.ascontiguousarray(np.linalg.inv(cell))
-    spacing = plane_spacings(cell)
     cutoff = (PACKING_DISTANCE_FACTOR * volume / n) ** (1.0 / 3.0) * PACKING_MARGIN
     while True:
-        counts = np.maximum(1, np.floor(spacing / cutoff)).astype(np.int64)
-        reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 1)
-        offsets = stencil_offsets(cell, counts, reach, cutoff)
-        wrapped, bin_of, start = dk.counting_sort_into_bins(positions, inverse, cell, counts)
-        examined = n * len(offsets) * n / float(np.prod(counts)) / 2
+        bins = build_bins(cell, positions, cutoff, bins_per_cutoff=1)
+        examined = n * len(bins.offsets) * n / float(np.prod(bins.counts)) / 2
         with thread_budget(examined * EXAMINED_PAIR_NS):
-            found = gk.closest_distance(wrapped, cell, counts, offsets, bin_of, start)
+            found = gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                        bins.bin_start)
         if found <= cutoff:
             return float(found)
         cutoff *= 2.0

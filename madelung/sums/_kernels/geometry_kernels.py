@@ -28,35 +28,51 @@ PRANGE_ONLY = {"prange": True, "reduction": True, "numpy": False, "setitem": Fal
 
 
 @njit(cache=True)
-def sort_into_bins(frac, counts):
-    """Bin index of each atom (fractional coordinates in [0, 1)), the order that sorts atoms by bin,
-    and the start of each bin in that order (length n_bins + 1)."""
-    n = frac.shape[0]
-    n_bins = counts[0] * counts[1] * counts[2]
-    bin_of = np.empty((n, 3), dtype=np.int64)
+def sort_into_bins(positions, inverse, cell, counts):
+    """Atoms wrapped into the cell and sorted by bin with a counting sort (stable: atoms keep their
+    input order within a bin; O(N), and no general sort to compile).
+
+    ``inverse`` maps Cartesian to fractional coordinates (f = r @ inverse), ``counts`` the bins
+    along each lattice vector (rows of ``cell``). Returns ``(wrapped Cartesian positions in bin
+    order (N, 3), the bin of each sorted atom (N, 3), the original index of each sorted atom (N,),
+    the start of each bin in that order (n_bins + 1))``, bins in the order (b0 * k1 + b1) * k2 + b2.
+    """
+    n = positions.shape[0]
+    k0, k1, k2 = counts[0], counts[1], counts[2]
     flat = np.empty(n, dtype=np.int64)
+    frac = np.empty((n, 3))
+    start = np.zeros(k0 * k1 * k2 + 1, dtype=np.int64)
     for i in range(n):
+        key = 0
         for a in range(3):
-            b = int(frac[i, a] * counts[a])
+            f = positions[i, 0] * inverse[0, a] + positions[i, 1] * inverse[1, a] + positions[i, 2] * inverse[2, a]
+            f -= math.floor(f)
+            if f >= 1.0:
+                f = 0.0
+            frac[i, a] = f
+            b = int(f * counts[a])
             if b >= counts[a]:
                 b = counts[a] - 1
-            if b < 0:
-                b = 0
-            bin_of[i, a] = b
-        flat[i] = (bin_of[i, 0] * counts[1] + bin_of[i, 1]) * counts[2] + bin_of[i, 2]
-    start = np.zeros(n_bins + 1, dtype=np.int64)
-    for i in range(n):
-        start[flat[i] + 1] += 1
-    for b in range(n_bins):
+            key = key * counts[a] + b
+        flat[i] = key
+        start[key + 1] += 1
+    for b in range(k0 * k1 * k2):
         start[b + 1] += start[b]
-    # a counting sort, stable (atoms keep their input order within a bin): no general sort is
-    # compiled, and it is O(N)
     fill = start[:-1].copy()
+    wrapped = np.empty((n, 3))
+    bin_of = np.empty((n, 3), dtype=np.int64)
     order = np.empty(n, dtype=np.int64)
     for i in range(n):
-        order[fill[flat[i]]] = i
-        fill[flat[i]] += 1
-    return bin_of[order], order, start
+        key = flat[i]
+        slot = fill[key]
+        fill[key] += 1
+        order[slot] = i
+        for c in range(3):
+            wrapped[slot, c] = frac[i, 0] * cell[0, c] + frac[i, 1] * cell[1, c] + frac[i, 2] * cell[2, c]
+        bin_of[slot, 0] = key // (k1 * k2)
+        bin_of[slot, 1] = (key // k2) % k1
+        bin_of[slot, 2] = key % k2
+    return wrapped, bin_of, order, start
 
 
 @parallel_kernel(parallel=True, cache=True)
