@@ -22,6 +22,15 @@ PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis
            "madelung.sums.matrix", "madelung.structure.symmetry", "madelung.charges", "ase.io", "ase.io.cif", "ase.db", "spglib",
            "scipy.special", "scipy.spatial", "gemmi")   # scipy.spatial: the k-d tree of CIF site grouping
 
+#: Of those, what every structure needs whatever its input (imported once before forking
+#: workers); the ASE readers and the database load in a worker when its input needs them.
+FORK_PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis.madelung_constants",
+                "madelung.sums.matrix", "madelung.structure.symmetry", "madelung.charges", "spglib", "scipy.special",
+                "gemmi")
+
+#: Imported by each worker as it starts, side by side (see :func:`madelung.io.cif._by_all_pairs`).
+WORKER_PRELOAD = ("scipy.spatial",)
+
 
 def _worker_main(connection, options):
     """Loop of a pool worker: receive a task, send back its result; stop at None or a closed pipe."""
@@ -29,6 +38,7 @@ def _worker_main(connection, options):
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides what an interrupt means
     prepare_process()
+    _import_all(WORKER_PRELOAD)
     while True:
         try:
             task = connection.recv()
@@ -94,6 +104,16 @@ def _numba_threads_started():
     return parallel is not None and bool(getattr(parallel, "_is_initialized", True))
 
 
+def _import_all(names):
+    import importlib
+
+    for name in names:
+        try:
+            importlib.import_module(name)
+        except ImportError:   # an optional reader (gemmi): the worker does without it as well
+            pass
+
+
 def _load_before_fork():
     """Import what every worker needs, once, in this process before it forks them.
 
@@ -102,13 +122,7 @@ def _load_before_fork():
     kernels themselves load from Numba's on-disk cache in each worker (running one here would
     start Numba's thread pool and rule out the fork).
     """
-    import importlib
-
-    for name in PRELOAD:
-        try:
-            importlib.import_module(name)
-        except ImportError:   # an optional reader (gemmi): the worker does without it as well
-            pass
+    _import_all(FORK_PRELOAD)
     try:
         from numba.core.registry import cpu_target
 
