@@ -157,6 +157,9 @@ class Crystal:
             array.setflags(write=False)
 
         self.min_distance = float(min_distance)
+        # kept: the descriptors of one structure ask for them a dozen times
+        self._volume = volume
+        self._element_counts = None
         self._check_overlaps()
 
     # ------------------------------------------------------------------ basics
@@ -170,7 +173,7 @@ class Crystal:
     @property
     def volume(self) -> float:
         """Cell volume, Å^3."""
-        return abs(float(np.linalg.det(self.cell)))
+        return self._volume
 
     @property
     def net_charge(self) -> float:
@@ -189,10 +192,13 @@ class Crystal:
         return "".join(f"{el}{'' if c == 1 else c}" for el, c in counts.items())
 
     def element_counts(self) -> dict:
-        counts: dict[str, int] = {}
-        for s in self.symbols:
-            counts[s] = counts.get(s, 0) + 1
-        return counts
+        """``{element: sites}`` in order of first appearance."""
+        if self._element_counts is None:
+            counts: dict[str, int] = {}
+            for s in self.symbols:
+                counts[s] = counts.get(s, 0) + 1
+            self._element_counts = counts
+        return dict(self._element_counts)
 
     @property
     def formula_units(self) -> int:
