@@ -188,6 +188,10 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
             lock.release()
         raise
 
+    # while the workers load their kernels, this process loads its table writers
+    for writer in (table, site_writer):
+        if writer is not None:
+            writer.load()
     meter = Progress(total - len(done_sources), enabled=progress, every=progress_every)
     started = time.perf_counter()
     tasks = (t for t in iter_tasks(inputs, db, select) if t.source not in done_sources)

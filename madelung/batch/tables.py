@@ -118,6 +118,12 @@ class TableWriter:
         if not os.path.isdir(folder):
             raise InputError(f"{self.path}: folder {folder} does not exist")
 
+    def load(self):
+        """Import the writer of this format now (pyarrow.parquet: about 0.1 s), not at the first chunk,
+        when the workers would wait for it."""
+        if self.format == "parquet":
+            import pyarrow.parquet  # noqa: F401
+
     # reading back (for resume)
     def read(self):
         """Every row of the table on disk as dicts (``[]`` if there is no file)."""
