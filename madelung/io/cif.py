@@ -304,6 +304,10 @@ def _number(value, what):
     if text in ("?", "."):
         raise InputError(f"{what} is {text!r} (unknown)")
     try:
+        return float(text)   # no uncertainty in parentheses (float() takes none): most values
+    except ValueError:
+        pass
+    try:
         return float(re.sub(r"\(\d+\)$", "", text))
     except ValueError:
         raise InputError(f"{what} is {text!r}, not a number") from None
@@ -490,7 +494,7 @@ def _block_sites(block, path, max_atoms, tolerance):
     else:
         frac, owners = _orbits(rows, rotations, translations, cell, tolerance, max_atoms, where)
     groups = sorted(_gather(frac, cell, tolerance), key=min)
-    positions, labels, species = [], [], []
+    firsts, labels, species = [], [], []
     merged_once = set()
     for group in groups:
         members = sorted(owners[group].tolist())
@@ -514,10 +518,10 @@ def _block_sites(block, path, max_atoms, tolerance):
             raise InputError(f"{where}site {name} holds {shown}: total occupancy {total:g}, above 1")
         if total > 1:
             parts = [(el, occ / total, st) for el, occ, st in parts]
-        first = group[0]
-        positions.append(frac[first] - np.floor(frac[first] + 1e-9))
+        firsts.append(group[0])
         labels.append(name)
         species.append(tuple(parts))
     info = {str(k): v for k, v in block.items() if isinstance(v, (str, int, float))}
-    return SiteTable(cell=cell, positions=np.array(positions) @ cell, labels=tuple(labels),
+    positions = frac[firsts] - np.floor(frac[firsts] + 1e-9)     # each group's first image, wrapped
+    return SiteTable(cell=cell, positions=positions.reshape(-1, 3) @ cell, labels=tuple(labels),
                      species=tuple(species), block=block.name, info=info)
