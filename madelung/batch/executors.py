@@ -32,10 +32,19 @@ FORK_PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.ana
 WORKER_PRELOAD = ("scipy.spatial",)
 
 
+#: This process's ends of the pipes to its workers. A forked worker closes its copies first thing:
+#: holding the other end of its own pipe, it would never see the pipe close when the parent dies,
+#: and would wait for a task for ever.
+_PARENT_ENDS = []
+
+
 def _worker_main(connection, options):
     """Loop of a pool worker: receive a task, send back its result; stop at None or a closed pipe."""
     import signal
 
+    for end in _PARENT_ENDS:     # empty in a worker from the fork server
+        end.close()
+    _PARENT_ENDS.clear()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides what an interrupt means
     prepare_process()
     _import_all(WORKER_PRELOAD)
@@ -142,6 +151,7 @@ class _Worker:
     def __init__(self, options, fork=True):
         context = _start_context(fork)
         self.connection, child = context.Pipe()
+        _PARENT_ENDS.append(self.connection)
         self.process = context.Process(target=_worker_main, args=(child, options), daemon=True)
         with _main_module_hidden():
             self.process.start()
@@ -162,6 +172,8 @@ class _Worker:
             self.process.kill()
             self.process.join()
         self.connection.close()
+        if self.connection in _PARENT_ENDS:
+            _PARENT_ENDS.remove(self.connection)
 
 
 class LocalPool:
