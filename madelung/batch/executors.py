@@ -231,19 +231,21 @@ class LocalPool:
         ready = set(wait_for([w.connection for w in busy] + [w.process.sentinel for w in busy], timeout=wait))
         done = []
         for worker in busy:
-            while worker.tasks and (worker.connection in ready or worker.connection.poll()):
-                ready.discard(worker.connection)
-                try:
-                    _, result = worker.connection.recv()
-                except (EOFError, OSError):
+            # one result per call from a pipe found ready (a second one is found by the next call
+            # at once; each poll() of a pipe costs as much as the wait above)
+            if worker.connection in ready:
+                self._receive(worker, done)
+            if not worker.tasks:
+                continue
+            dead = worker.process.sentinel in ready or not worker.process.is_alive()
+            while dead and worker.tasks and worker.connection.poll():   # results sent before it died
+                if not self._receive(worker, done):
                     break
-                done.append((worker.tasks.popleft(), result))
-                worker.started = time.perf_counter()
             if not worker.tasks:
                 continue
             now = time.perf_counter()
             task = worker.tasks[0]
-            if worker.process.sentinel in ready or not worker.process.is_alive():
+            if dead:
                 worker.process.join(timeout=1)
                 code = worker.process.exitcode
                 status = f"worker crashed (exit code {code}) while screening this structure"
@@ -254,6 +256,17 @@ class LocalPool:
                 done.append((task, (failed_row(task, status, self.options, now - worker.started), [])))
                 self._replace(worker, kill=True)
         return done
+
+    @staticmethod
+    def _receive(worker, done):
+        """Take one result from ``worker`` into ``done``; False if the pipe is closed."""
+        try:
+            _, result = worker.connection.recv()
+        except (EOFError, OSError):
+            return False
+        done.append((worker.tasks.popleft(), result))
+        worker.started = time.perf_counter()
+        return True
 
     def close(self, kill=False):
         for worker in self.workers:

@@ -61,7 +61,8 @@ def _arrow_schema(columns):
 
 
 def _arrow_table(rows, columns, schema):
-    """The rows as an Arrow table of ``schema``, column by column from NumPy buffers (None: null).
+    """The rows as an Arrow table of ``schema``, column by column from NumPy buffers (None or a
+    missing key: null).
 
     ``pyarrow.array`` of Python values imports pandas on first use (0.3 s of CPU, spent while the
     workers wait for their next task); buffers need nothing beyond pyarrow.
@@ -72,7 +73,7 @@ def _arrow_table(rows, columns, schema):
     n = len(rows)
     arrays = []
     for name, kind in columns.items():
-        values = [row[name] for row in rows]
+        values = [row.get(name) for row in rows]
         valid = np.array([v is not None for v in values], dtype=bool)
         mask = None if valid.all() else pa.py_buffer(np.packbits(valid, bitorder="little"))
         if kind == "str":
@@ -119,9 +120,10 @@ class TableWriter:
             raise InputError(f"{self.path}: folder {folder} does not exist")
 
     def load(self):
-        """Import the writer of this format now (pyarrow.parquet: about 0.1 s), not at the first chunk,
-        when the workers would wait for it."""
+        """Import the writer of this format now (pyarrow.parquet, and pyarrow.compute that casting the
+        kept row groups needs: about 0.15 s), not at the first chunks, when the workers would wait."""
         if self.format == "parquet":
+            import pyarrow.compute  # noqa: F401
             import pyarrow.parquet  # noqa: F401
 
     # reading back (for resume)
@@ -167,8 +169,9 @@ class TableWriter:
         unpredictable name, never through a link) and rename it over the old one; a failed write
         (a full disk) leaves the old table as it was and no partial file."""
         old = self.path if keep_old and os.path.exists(self.path) else None
-        rows = [{name: row.get(name) for name in self.columns} for row in rows]
         binary = self.format == "parquet"
+        if not binary:
+            rows = [{name: row.get(name) for name in self.columns} for row in rows]
         with atomic_output(self.path, binary=binary) as (handle, _):
             if binary:
                 import pyarrow.parquet as pq
