@@ -36,7 +36,7 @@ import numpy as np
 
 from ..structure import elements
 from ..errors import InputError
-from ..sums.geometry import neighbour_pairs, plane_spacings
+from ..sums.geometry import neighbour_pairs, plane_spacings, shortest_distance
 
 #: Allowance added to the sum of covalent radii, Å (see the module docstring for the reasoning).
 DEFAULT_BOND_TOLERANCE = 0.40
@@ -152,6 +152,10 @@ def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=()) ->
     if not limits:
         return empty
     cutoff = max(limits.values())
+    if shortest_distance(crystal.cell, crystal.positions) > cutoff * (1 + 1e-9):
+        # no two atoms (nor an atom and its image) come within the longest bond: nothing to look
+        # for (the shortest distance is kept from the crystal's overlap check; most salts)
+        return empty
     owner, partner, _ = neighbour_pairs(crystal.cell, crystal.positions, cutoff, sites)
     owner = sites[owner]
     wanted = [(int(i), int(j)) for i, j in zip(owner, partner)
