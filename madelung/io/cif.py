@@ -49,6 +49,7 @@ _CHEMICAL_SYMBOLS = frozenset(chemical_symbols[1:])
 _DATA_LINE = re.compile(r"^\s*data_", flags=re.MULTILINE | re.IGNORECASE)
 
 
+@functools.lru_cache(maxsize=4096)   # the same few symbols and labels in every file of a batch
 def element_of(text):
     """The element a CIF type symbol or site label names (``Fe3+`` -> Fe, ``O1`` -> O, ``CL2`` -> Cl),
     or None."""
@@ -62,6 +63,7 @@ def element_of(text):
     return two[0] if two[0] in _CHEMICAL_SYMBOLS else None
 
 
+@functools.lru_cache(maxsize=4096)
 def parse_typed_symbol(text):
     """Split a CIF type symbol such as ``Fe3+``, ``O2-``, ``Cl-``, ``Cs+1`` or ``Cl-1`` into
     (element, charge); ``(element, None)`` when the symbol carries no charge (``Fe``, ``Fe1``)."""
@@ -359,7 +361,7 @@ def _rows(block, cell):
         occupancy = 1.0
         if occupancies is not None and str(occupancies[k]).strip() not in ("?", "."):
             occupancy = _number(occupancies[k], f"site {label}: occupancy")
-            if not np.isfinite(occupancy) or occupancy <= 0 or occupancy > 1 + OCCUPANCY_SLACK:
+            if not math.isfinite(occupancy) or occupancy <= 0 or occupancy > 1 + OCCUPANCY_SLACK:
                 raise InputError(f"site {label} has occupancy {occupancies[k]}; occupancies must lie in (0, 1]")
         rows.append((label, element, occupancy, state, point))
     return rows
@@ -496,8 +498,9 @@ def _block_sites(block, path, max_atoms, tolerance):
     groups = sorted(_gather(frac, cell, tolerance), key=min)
     firsts, labels, species = [], [], []
     merged_once = set()
+    owner_of = owners.tolist()
     for group in groups:
-        members = sorted(owners[group].tolist())
+        members = sorted(owner_of[i] for i in group)
         parts, names, seen = [], [], {}
         for k in dict.fromkeys(members):
             label, element, occupancy, state, _ = rows[k]
