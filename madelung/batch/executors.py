@@ -23,13 +23,12 @@ PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis
            "scipy.special", "scipy.spatial", "gemmi")   # scipy.spatial: the k-d tree of CIF site grouping
 
 #: Of those, what every structure needs whatever its input (imported once before forking
-#: workers); the ASE readers and the database load in a worker when its input needs them.
+#: workers); the ASE readers, the database and the k-d tree of CIF site grouping load in a worker
+#: when its input needs them (see :func:`madelung.io.cif.use_tree_when_faster`).
 FORK_PRELOAD = ("madelung.batch", "madelung.analysis.descriptors", "madelung.analysis.madelung_constants",
                 "madelung.sums.matrix", "madelung.structure.symmetry", "madelung.charges", "spglib", "scipy.special",
                 "gemmi")
 
-#: Imported by each worker as it starts, side by side (see :func:`madelung.io.cif._by_all_pairs`).
-WORKER_PRELOAD = ("scipy.spatial",)
 
 
 #: This process's ends of the pipes to its workers. A forked worker closes its copies first thing:
@@ -47,7 +46,6 @@ def _worker_main(connection, options):
     _PARENT_ENDS.clear()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides what an interrupt means
     prepare_process()
-    _import_all(WORKER_PRELOAD)
     while True:
         try:
             task = connection.recv()

@@ -396,14 +396,32 @@ def _cell(block, path):
 #: has at most 192 images), see :func:`_by_all_pairs`.
 ALL_PAIRS_UP_TO = 400
 
+#: From this many points the k-d tree is faster than comparing every pair (0.24 ms against 1.5 ms
+#: for an orbit of 192 images), below it slower.
+TREE_FROM = 50
+
+#: Whether a long run (a screening worker) loads the k-d tree at the first set of points where it
+#: pays, instead of comparing every pair up to ALL_PAIRS_UP_TO (see :func:`use_tree_when_faster`).
+_TREE_WHEN_FASTER = False
+
+
+def use_tree_when_faster():
+    """Let this process load scipy.spatial at the first set of points where the k-d tree is faster
+    (a batch of files: the 0.07-0.15 s import is paid once, and only by a batch that has such
+    sets; P1 files never do)."""
+    global _TREE_WHEN_FASTER
+    _TREE_WHEN_FASTER = True
+
 
 def _by_all_pairs(n):
-    """Whether to compare all pairs of ``n`` points rather than build a k-d tree. The tree is faster
-    from about 50 points (0.24 ms against 1.5 ms for an orbit of 192 images), but importing it
-    (scipy.spatial, about 0.15 s) is most of the start-up of a one-structure command: so up to
-    ALL_PAIRS_UP_TO points every pair is compared until something else has loaded the tree (a
-    batch run, a long session). Both ways find the same pairs."""
-    return n <= ALL_PAIRS_UP_TO and "scipy.spatial" not in sys.modules
+    """Whether to compare all pairs of ``n`` points rather than build a k-d tree: below
+    TREE_FROM points always (it is faster); up to ALL_PAIRS_UP_TO points also until something has
+    loaded the tree, because importing it (scipy.spatial, about 0.15 s) is most of the start-up of
+    a one-structure command, unless :func:`use_tree_when_faster` was called (a batch run). Both
+    ways find the same pairs."""
+    if n < TREE_FROM:
+        return True
+    return n <= ALL_PAIRS_UP_TO and "scipy.spatial" not in sys.modules and not _TREE_WHEN_FASTER
 
 
 def _close_pairs(frac, cell, tolerance):
