@@ -36,7 +36,7 @@ import numpy as np
 
 from ..structure import elements
 from ..errors import InputError
-from ..sums.geometry import neighbour_pairs, plane_spacings, shortest_distance
+from ..sums.geometry import neighbour_pairs, plane_spacings
 
 #: Allowance added to the sum of covalent radii, Å (see the module docstring for the reasoning).
 DEFAULT_BOND_TOLERANCE = 0.40
@@ -109,7 +109,7 @@ def _limit(a, b, tolerance):
     return ra + rb + tolerance
 
 
-def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=()) -> Bonds:
+def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=(), shortest=None) -> Bonds:
     """Covalent bonds of ``crystal`` by the rule of the module docstring.
 
     Parameters
@@ -119,6 +119,9 @@ def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=()) ->
         Allowance over the covalent-radius sum, Å (default 0.40).
     metal_ligands : iterable of (element, element)
         Extra pairs that bond although one of them is a metal (e.g. ``("Al", "Cl")``).
+    shortest : float, optional
+        The crystal's shortest interionic distance (images included), Å, if known: beyond the
+        longest bond limit there is no bond to look for, and the search is skipped (most salts).
 
     Returns
     -------
@@ -152,10 +155,8 @@ def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=()) ->
     if not limits:
         return empty
     cutoff = max(limits.values())
-    if shortest_distance(crystal.cell, crystal.positions) > cutoff * (1 + 1e-9):
-        # no two atoms (nor an atom and its image) come within the longest bond: nothing to look
-        # for (the shortest distance is kept from the crystal's overlap check; most salts)
-        return empty
+    if shortest is not None and shortest > cutoff * (1 + 1e-9):
+        return empty    # no two atoms (nor an atom and its image) come within the longest bond
     owner, partner, _ = neighbour_pairs(crystal.cell, crystal.positions, cutoff, sites)
     owner = sites[owner]
     wanted = [(int(i), int(j)) for i, j in zip(owner, partner)
