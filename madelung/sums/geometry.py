@@ -6,6 +6,7 @@ walk pairs through the same :class:`CellBins`; only their kernels differ.
 
 from __future__ import annotations
 
+import math
 import os
 import threading
 import warnings
@@ -16,7 +17,7 @@ import numba
 import numpy as np
 import spglib
 
-from ..structure.lattice import plane_spacings, reduced_basis, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
+from ..structure.lattice import plane_spacings, reduced_basis, reduced_cell, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
 from ._kernels import geometry_kernels as gk
 
 def _choose_threading():
@@ -138,11 +139,50 @@ def stencil_offsets(cell, counts, reach, cutoff):
     metric of the edge vectors. Offsets beyond that bound are left out; the bound is exact for
     rectangular bins and only less sharp for oblique ones.
     """
-    edges = np.asarray(cell, float) / np.asarray(counts, float)[:, None]
-    smallest = max(float(np.linalg.eigvalsh(edges @ edges.T)[0]), 0.0)
-    offsets, gap2 = _offset_grid(reach)
-    keep = smallest * gap2 <= cutoff * cutoff * (1 + 1e-12)
-    return np.ascontiguousarray(offsets[keep])
+    e = [[x / float(k) for x in row] for row, k in zip(np.asarray(cell, float).tolist(), np.asarray(counts).tolist())]
+    metric = [[e[a][0] * e[b][0] + e[a][1] * e[b][1] + e[a][2] * e[b][2] for b in range(3)] for a in range(3)]
+    smallest = _smallest_eigenvalue(metric)
+    # the squared gaps are whole numbers, so the stencil depends on the largest one kept only
+    reach = tuple(int(r) for r in reach)
+    limit = cutoff * cutoff * (1 + 1e-12)
+    level = math.inf if smallest <= 0.0 or limit / smallest > 3 * max(reach) ** 2 else math.floor(limit / smallest)
+    key = (reach, level)
+    found = _STENCILS.get(key)
+    if found is None:
+        offsets, gap2 = _offset_grid(reach)
+        found = np.ascontiguousarray(offsets[gap2 <= level])
+        if len(_STENCILS) >= _OFFSET_GRIDS_KEEP:
+            _STENCILS.pop(next(iter(_STENCILS)), None)
+        _STENCILS[key] = found
+    return found
+
+
+#: Stencils by reach and the largest squared gap kept (see :func:`stencil_offsets`).
+_STENCILS = {}
+
+
+def _smallest_eigenvalue(g):
+    """Smallest eigenvalue of a symmetric 3x3 matrix (nested lists), in closed form, a little low
+    rather than high (a lower bound is what the stencil needs).
+
+    References
+    ----------
+    O. K. Smith, Commun. ACM 4 (1961) 168 (eigenvalues of a symmetric 3x3 matrix by the
+    trigonometric solution of its characteristic cubic).
+    """
+    off = g[0][1] ** 2 + g[0][2] ** 2 + g[1][2] ** 2
+    trace = (g[0][0] + g[1][1] + g[2][2]) / 3.0
+    a, b, c = g[0][0] - trace, g[1][1] - trace, g[2][2] - trace
+    p2 = a * a + b * b + c * c + 2.0 * off
+    scale = abs(trace) + math.sqrt(p2)
+    if p2 <= (1e-15 * scale) ** 2:
+        return trace - 1e-12 * scale
+    p = math.sqrt(p2 / 6.0)
+    # det((g - trace I) / p) / 2, clipped to [-1, 1] against rounding
+    det = (a * (b * c - g[1][2] ** 2) - g[0][1] * (g[0][1] * c - g[1][2] * g[0][2])
+           + g[0][2] * (g[0][1] * g[1][2] - b * g[0][2])) / (2.0 * p ** 3)
+    phi = math.acos(min(1.0, max(-1.0, det))) / 3.0
+    return trace + 2.0 * p * math.cos(phi + 2.0 * math.pi / 3.0) - 1e-12 * scale
 
 
 def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0) -> CellBins:
@@ -151,17 +191,18 @@ def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0
     The bins are laid on the reduced basis of the lattice (``CellBins.cell``), so the walk visits a
     compact stencil whatever basis the cell is written in; positions and results are Cartesian.
     """
-    cell, _ = reduced_basis(cell)
+    facts = reduced_cell(cell)
+    cell = facts.cell.copy()    # writeable: Numba compiles kernels again for read-only arrays
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
-    spacing = plane_spacings(cell)
-    counts = np.maximum(1, np.floor(bins_per_cutoff * spacing / cutoff)).astype(np.int64)
+    spacing = facts.spacings.tolist()
+    counts = [max(1, math.floor(bins_per_cutoff * s / cutoff)) for s in spacing]
     limit = max(1.0, max_bins_per_atom * n)
-    while np.prod(counts.astype(float)) > limit:
-        counts = np.maximum(1, counts // 2)
-    reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 0)
-    inverse = np.ascontiguousarray(np.linalg.inv(cell))
-    wrapped, bin_of, order, start = gk.sort_into_bins(positions, inverse, np.ascontiguousarray(cell), counts)
+    while float(counts[0]) * counts[1] * counts[2] > limit:
+        counts = [max(1, k // 2) for k in counts]
+    reach = np.array([max(math.ceil(cutoff * k / s - 1e-12), 0) for k, s in zip(counts, spacing)], dtype=np.int64)
+    counts = np.array(counts, dtype=np.int64)
+    wrapped, bin_of, order, start = gk.sort_into_bins(positions, facts.inverse.copy(), cell, counts)
     return CellBins(cell, wrapped, order, counts, reach, stencil_offsets(cell, counts, reach, cutoff), bin_of, start,
                     float(cutoff))
 

@@ -35,7 +35,7 @@ import numpy as np
 
 from ..structure.bounds import check_mesh
 from ..errors import InputError
-from .geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
+from .geometry import build_bins, reduced_cell, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
 from .tuning import ChargeSums
@@ -114,15 +114,18 @@ def _half_space_box(hmax):
     return found
 
 
-def _reciprocal_table(cell, k_cut):
-    """``(hkl, k, hmax, k^2)`` of :func:`reciprocal_vectors`, with the squared lengths (1/Å^2)."""
-    recip = 2.0 * math.pi * np.linalg.inv(cell).T  # rows b_i with a_i . b_j = 2 pi delta_ij
-    hmax = np.floor(k_cut * np.sqrt(np.einsum("ij,ij->i", cell, cell)) / (2.0 * math.pi)).astype(np.int64)
+def _reciprocal_table(cell, k_cut, inverse=None):
+    """``(hkl, k, hmax, k^2)`` of :func:`reciprocal_vectors`, with the squared lengths (1/Å^2);
+    ``inverse``: the inverse of ``cell`` if at hand."""
+    inverse = np.linalg.inv(cell) if inverse is None else inverse
+    lengths = np.sqrt(np.einsum("ij,ij->i", cell, cell))
+    recip = 2.0 * math.pi * inverse.T  # rows b_i with a_i . b_j = 2 pi delta_ij
+    hmax = np.floor(k_cut * lengths / (2.0 * math.pi)).astype(np.int64)
     hkl, box = _half_space_box(hmax)
     kv = box @ recip
     k2 = np.einsum("ij,ij->i", kv, kv)
-    keep = k2 <= k_cut * k_cut
-    return np.ascontiguousarray(hkl[keep]), np.ascontiguousarray(kv[keep]), hmax, np.ascontiguousarray(k2[keep])
+    keep = np.flatnonzero(k2 <= k_cut * k_cut)
+    return hkl.take(keep, axis=0), kv.take(keep, axis=0), hmax, k2.take(keep)
 
 
 def reciprocal_vectors(cell, k_cut):
@@ -168,6 +171,7 @@ class SumPlan:
         part is the mesh's for the mesh engine).
     predicted_seconds : predicted time of each engine considered, s of one thread (None: not considered).
     chosen_by : "auto" or "user".
+    inverse : the inverse of ``cell`` (read-only), if known.
     """
 
     method: str
@@ -193,6 +197,7 @@ class SumPlan:
     predicted_seconds: dict
     chosen_by: str
     extra: dict = field(default_factory=dict)
+    inverse: np.ndarray | None = None
 
     @property
     def n_atoms(self) -> int:
@@ -219,7 +224,7 @@ class SumPlan:
         key = (self.cell.tobytes(), self.alpha, self.reciprocal_cutoff)
         found = _KSPACES.get(key)
         if found is None:
-            hkl, kvectors, hmax, k2 = _reciprocal_table(self.cell, self.reciprocal_cutoff)
+            hkl, kvectors, hmax, k2 = _reciprocal_table(self.cell, self.reciprocal_cutoff, self.inverse)
             weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / self.volume)
                                            * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
             found = KSpace(hkl, kvectors, hmax, k2, weights)
@@ -375,15 +380,15 @@ def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_m
     """:func:`plan_sum` once its arguments are checked: reduce, search, tune, estimate."""
     if sums.square_sum <= 0:
         raise InputError("all charges are zero; there is no electrostatic energy to compute")
-    reduced, change = reduced_basis(user_cell)
-    volume = abs(float(np.linalg.det(reduced)))
+    facts = reduced_cell(user_cell)
+    reduced, change, volume = facts.cell.copy(), facts.change.copy(), facts.volume
     if d_min is None:
         d_min = shortest_distance(reduced, positions)
     k_e = COULOMB_CONSTANT
     scale = k_e * sums.square_sum / d_min
     target = tol * scale
     background = abs(sums.net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(sums.square_sum))
-    lengths = np.linalg.norm(reduced, axis=1)
+    lengths = facts.lengths
 
     chosen_by = "auto" if method == "auto" else "user"
     # the rounding floor takes its share of the target: truncation aims at what is left (first
@@ -413,7 +418,7 @@ def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_m
         sums=sums, background=bool(background), alpha=float(choice.alpha), real_cutoff=float(choice.real_cutoff),
         reciprocal_cutoff=float(reciprocal_cutoff), mesh=shape, order=spline, real_error=float(choice.real_error),
         reciprocal_error=float(recip_error), rounding_error=float(rounding), predicted_seconds=predicted,
-        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None})
+        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None}, inverse=facts.inverse)
 
 
 def plan_for(crystal, tol, method="auto", alpha=None, mesh=None, order=None, d_min=None) -> SumPlan:

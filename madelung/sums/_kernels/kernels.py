@@ -214,8 +214,9 @@ def miller_rows(hkl):
 def structure_factors(frac, charges, hkl, hmax, n_chunks):
     """S(k) = sum_j q_j exp(2 pi i (h f1 + k f2 + l f3)) for each Miller triple in ``hkl`` (M, 3).
 
-    Atoms are split into ``n_chunks`` chunks; each chunk sums into its own row, rows are added
-    at the end (pass a fixed number for results independent of the thread count). A chunk's
+    Atoms are split into at most ``n_chunks`` chunks of at least ``BLOCK`` atoms (fewer for small
+    cells); each chunk sums into its own row, rows are added at the end (pass a fixed number for
+    results independent of the thread count). A chunk's
     atoms go in blocks of ``BLOCK``: for each run of consecutive l (``miller_rows``) the factor
     q exp(2 pi i (h f1 + k f2)) of every atom of the block is formed once, and each k-vector of
     the run is one loop over the block's atoms (vector instructions).
@@ -225,7 +226,7 @@ def structure_factors(frac, charges, hkl, hmax, n_chunks):
     m_count = hkl.shape[0]
     start, l_first = miller_rows(hkl)
     n_runs = len(l_first)
-    n_chunks = max(1, min(n_chunks, n))
+    n_chunks = max(1, min(n_chunks, (n + BLOCK - 1) // BLOCK))   # whole blocks: no chunk of a few atoms
     part_re = np.zeros((n_chunks, m_count))
     part_im = np.zeros((n_chunks, m_count))
     chunk = (n + n_chunks - 1) // n_chunks
