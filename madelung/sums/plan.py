@@ -38,6 +38,7 @@ from ..errors import InputError
 from .geometry import build_bins, reduced_cell, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
+from ._kernels import kernels
 from .tuning import ChargeSums
 
 METHODS = ("auto", "direct", "mesh")
@@ -95,8 +96,8 @@ _HALF_BOX_MAX_ENTRIES = 50_000
 
 
 def _half_space_box(hmax):
-    """``(hkl int64, hkl float64)``: the Miller indices with |h_a| <= hmax_a, of each pair h, -h the
-    one whose first non-zero index is positive, in a fixed order."""
+    """The Miller indices (int64, read-only) with |h_a| <= hmax_a, of each pair h, -h the one
+    whose first non-zero index is positive, in a fixed order."""
     key = (int(hmax[0]), int(hmax[1]), int(hmax[2]))
     found = _HALF_BOXES.get(key)
     if found is not None:
@@ -105,27 +106,26 @@ def _half_space_box(hmax):
                           np.arange(-key[2], key[2] + 1), indexing="ij")
     hkl = np.stack([h.ravel(), k.ravel(), l.ravel()], axis=1)
     half = (hkl[:, 0] > 0) | ((hkl[:, 0] == 0) & ((hkl[:, 1] > 0) | ((hkl[:, 1] == 0) & (hkl[:, 2] > 0))))
-    hkl = np.ascontiguousarray(hkl[half].astype(np.int64))
-    found = (hkl, hkl.astype(np.float64))
-    for array in found:
-        array.setflags(write=False)
-    if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
+    found = np.ascontiguousarray(hkl[half].astype(np.int64))
+    found.setflags(write=False)
+    if len(found) <= _HALF_BOX_MAX_ENTRIES:
         _remember(_HALF_BOXES, _HALF_BOXES_KEEP, key, found)
     return found
 
 
-def _reciprocal_table(cell, k_cut, inverse=None):
-    """``(hkl, k, hmax, k^2)`` of :func:`reciprocal_vectors`, with the squared lengths (1/Å^2);
-    ``inverse``: the inverse of ``cell`` if at hand."""
+def _reciprocal_table(cell, k_cut, alpha=1.0, volume=None, inverse=None):
+    """``(hkl, k, hmax, k^2, weights)``: the half-space k-vectors with 0 < |k| <= k_cut
+    (:func:`reciprocal_vectors`), their squared lengths (1/Å^2) and Ewald weights at ``alpha``
+    (``kernels.k_vector_table``); ``volume`` and ``inverse`` of ``cell`` if at hand."""
+    cell = np.asarray(cell, dtype=np.float64)
     inverse = np.linalg.inv(cell) if inverse is None else inverse
+    volume = abs(float(np.linalg.det(cell))) if volume is None else volume
     lengths = np.sqrt(np.einsum("ij,ij->i", cell, cell))
-    recip = 2.0 * math.pi * inverse.T  # rows b_i with a_i . b_j = 2 pi delta_ij
+    recip = np.ascontiguousarray(2.0 * math.pi * inverse.T)  # rows b_i with a_i . b_j = 2 pi delta_ij
     hmax = np.floor(k_cut * lengths / (2.0 * math.pi)).astype(np.int64)
-    hkl, box = _half_space_box(hmax)
-    kv = box @ recip
-    k2 = np.einsum("ij,ij->i", kv, kv)
-    keep = np.flatnonzero(k2 <= k_cut * k_cut)
-    return hkl.take(keep, axis=0), kv.take(keep, axis=0), hmax, k2.take(keep)
+    hkl, kv, k2, weights = kernels.k_vector_table(_half_space_box(hmax), recip, float(k_cut), float(alpha),
+                                                  float(volume))
+    return hkl, kv, hmax, k2, weights
 
 
 def reciprocal_vectors(cell, k_cut):
@@ -134,7 +134,7 @@ def reciprocal_vectors(cell, k_cut):
     Returns ``(hkl (M, 3) int64, k (M, 3) 1/Å, hmax (3,) int64)``; of each pair k, -k only the
     one with the first non-zero Miller index positive is kept.
     """
-    hkl, kv, hmax, _ = _reciprocal_table(np.asarray(cell, dtype=np.float64), k_cut)
+    hkl, kv, hmax, _, _ = _reciprocal_table(cell, k_cut)
     return hkl, kv, hmax
 
 
@@ -224,9 +224,8 @@ class SumPlan:
         key = (self.cell.tobytes(), self.alpha, self.reciprocal_cutoff)
         found = _KSPACES.get(key)
         if found is None:
-            hkl, kvectors, hmax, k2 = _reciprocal_table(self.cell, self.reciprocal_cutoff, self.inverse)
-            weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / self.volume)
-                                           * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
+            hkl, kvectors, hmax, k2, weights = _reciprocal_table(self.cell, self.reciprocal_cutoff, self.alpha,
+                                                                 self.volume, self.inverse)
             found = KSpace(hkl, kvectors, hmax, k2, weights)
             if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
                 _remember(_KSPACES, _CELL_KEEP, key, found)
