@@ -49,11 +49,11 @@ def test_single_atom_sees_its_images():
     assert shortest_distance(cell, np.zeros((1, 3))) == pytest.approx(3.0, rel=1e-12)
 
 
-@pytest.mark.parametrize("pair_list", [True, False], ids=["pair list", "nearest kernels"])
+@pytest.mark.parametrize("pair_list", [True, False], ids=["pair list", "nearest kernel"])
 def test_both_search_paths_against_brute_force(monkeypatch, pair_list):
-    """Small cells reduce the shared walk's pair list, large ones use the nearest-partner kernels;
-    both must give the brute-force nearest distances (per atom, of any and of opposite sign) and
-    the shortest distance."""
+    """Small cells reduce the shared walk's pair list, large ones use the nearest-partner kernel;
+    both must give the brute-force nearest distances (per atom, of any and of opposite sign) and a
+    partner at that distance, and agree with the one-pass shortest distance."""
     from madelung.sums import geometry
     monkeypatch.setattr(geometry, "PAIR_LIST_MAX_ATOMS", 10 ** 9 if pair_list else 0)
     monkeypatch.setattr(geometry, "_SHORTEST", {})

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 import spglib
@@ -41,6 +41,13 @@ class ReducedCell:
     spacings: np.ndarray
     by_spglib: bool
 
+    def own(self) -> "ReducedCell":
+        """The same, as the reduction of the reduced basis itself (``change`` the identity)."""
+        if self.change is _IDENTITY:
+            return self
+        return ReducedCell(self.cell, _IDENTITY, self.inverse, self.volume, self.lengths, self.spacings,
+                           self.by_spglib)
+
 
 def reduced_cell(cell) -> ReducedCell:
     """The :class:`ReducedCell` of ``cell``: its Niggli-reduced, right-handed basis (Křivý &
@@ -52,7 +59,7 @@ def reduced_cell(cell) -> ReducedCell:
     if found is None:
         found = _reduce(cell)
         _keep(key, found)
-        _keep(found.cell.tobytes(), replace(found, change=_IDENTITY))
+        _keep(found.cell.tobytes(), found.own())
     return found
 
 
@@ -131,7 +138,7 @@ def _reduce(cell):
         except Exception:  # spglib reports failures as None or as an error depending on its version
             reduced = None
     if reduced is not None:
-        change = np.rint(np.asarray(reduced) @ np.array(_inverse(rows, det))).astype(np.int64)
+        change = np.rint(reduced @ np.array(_inverse(rows, det))).astype(np.int64)
         change_det = _det(change.tolist())
         if abs(change_det) == 1:
             if change_det * det < 0:    # make the reduced basis right-handed

@@ -198,13 +198,14 @@ def _smallest_eigenvalue(g):
     return trace + 2.0 * p * math.cos(phi + 2.0 * math.pi / 3.0) - 1e-12 * scale
 
 
-def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0) -> CellBins:
+def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0, reduced=None) -> CellBins:
     """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction.
 
     The bins are laid on the reduced basis of the lattice (``CellBins.cell``), so the walk visits a
     compact stencil whatever basis the cell is written in; positions and results are Cartesian.
+    ``reduced``: the :class:`~madelung.structure.lattice.ReducedCell` of ``cell``, if at hand.
     """
-    facts = reduced_cell(cell)
+    facts = reduced_cell(cell) if reduced is None else reduced
     cell = facts.cell.copy()    # writeable: Numba compiles kernels again for read-only arrays
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
@@ -277,11 +278,11 @@ def _search_bins(cell, positions, cutoff) -> CellBins:
     return bins
 
 
-#: Up to this many atoms the nearest-neighbour and shortest-distance searches take the pair list
-#: of the shared walk (``pairs_from``) and reduce it with NumPy; larger cells use the kernels that
-#: keep only the nearest partner, in parallel. The two give the same distances and partners; a
-#: first command on a small cell then compiles one search kernel instead of three (about 1.7 s
-#: less on a new machine), and the lists stay small (a few dozen pairs per atom).
+#: Up to this many atoms the nearest-neighbour search takes the pair list of the shared walk
+#: (``pairs_from``, which bonds and Madelung constants need anyway) and reduces it with NumPy;
+#: larger cells use the kernel that keeps only the nearest partner, in parallel. The two give the
+#: same distances and partners; a first command on a small cell compiles one search kernel
+#: fewer (about 0.6 s less on a new machine), and the lists stay small (a few dozen pairs per atom).
 PAIR_LIST_MAX_ATOMS = 1000
 
 
@@ -391,15 +392,11 @@ def _shortest_distance(cell, positions) -> float:
     cutoff = (PACKING_DISTANCE_FACTOR * volume / n) ** (1.0 / 3.0) * PACKING_MARGIN
     while True:
         bins = build_bins(cell, positions, cutoff, bins_per_cutoff=1)
-        if n <= PAIR_LIST_MAX_ATOMS:
-            distance = neighbour_pairs(cell, positions, cutoff, bins=bins)[2]
-            found = float(distance.min()) if len(distance) else math.inf
-        else:
-            k0, k1, k2 = bins.counts.tolist()
-            examined = n * len(bins.offsets) * n / float(k0 * k1 * k2) / 2
-            with thread_budget(examined * EXAMINED_PAIR_NS):
-                found = float(gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
-                                                  bins.bin_start))
+        k0, k1, k2 = bins.counts.tolist()
+        examined = n * len(bins.offsets) * n / float(k0 * k1 * k2) / 2
+        with thread_budget(examined * EXAMINED_PAIR_NS):
+            found = float(gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                              bins.bin_start))
         if found <= cutoff:
             return found
         cutoff *= 2.0

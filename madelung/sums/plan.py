@@ -171,7 +171,8 @@ class SumPlan:
         part is the mesh's for the mesh engine).
     predicted_seconds : predicted time of each engine considered, s of one thread (None: not considered).
     chosen_by : "auto" or "user".
-    inverse : the inverse of ``cell`` (read-only), if known.
+    lattice : the :class:`~madelung.structure.lattice.ReducedCell` of ``cell`` (its inverse, plane
+        spacings ...), if known.
     """
 
     method: str
@@ -197,7 +198,7 @@ class SumPlan:
     predicted_seconds: dict
     chosen_by: str
     extra: dict = field(default_factory=dict)
-    inverse: np.ndarray | None = None
+    lattice: object = None
 
     @property
     def n_atoms(self) -> int:
@@ -215,7 +216,7 @@ class SumPlan:
     @cached_property
     def bins(self):
         """Atoms sorted into bins of the reduced cell for the real-space cutoff (built once)."""
-        return build_bins(self.cell, self.positions, self.real_cutoff)
+        return build_bins(self.cell, self.positions, self.real_cutoff, reduced=self.lattice)
 
     @cached_property
     def kspace(self) -> KSpace:
@@ -224,8 +225,9 @@ class SumPlan:
         key = (self.cell.tobytes(), self.alpha, self.reciprocal_cutoff)
         found = _KSPACES.get(key)
         if found is None:
-            hkl, kvectors, hmax, k2, weights = _reciprocal_table(self.cell, self.reciprocal_cutoff, self.alpha,
-                                                                 self.volume, self.inverse)
+            hkl, kvectors, hmax, k2, weights = _reciprocal_table(
+                self.cell, self.reciprocal_cutoff, self.alpha, self.volume,
+                None if self.lattice is None else self.lattice.inverse)
             found = KSpace(hkl, kvectors, hmax, k2, weights)
             if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
                 _remember(_KSPACES, _CELL_KEEP, key, found)
@@ -318,7 +320,7 @@ def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order):
 
 
 def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, mesh=None, order=None,
-             sums=None, d_min=None) -> SumPlan:
+             sums=None, d_min=None, reduced=None) -> SumPlan:
     """Build the plan of a periodic sum.
 
     Parameters
@@ -330,6 +332,7 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
     alpha, mesh, order : optional fixed splitting parameter (1/Å), mesh (3 ints) and spline order.
     sums : ChargeSums, optional; by default from ``charges``.
     d_min : shortest interionic distance, Å (searched if not given).
+    reduced : the :class:`~madelung.structure.lattice.ReducedCell` of ``cell``, if at hand.
 
     Raises
     ------
@@ -360,7 +363,7 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
         if found is not None:
             return found
         user_cell, positions = _frozen_copy(user_cell), _frozen_copy(positions)
-    plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min)
+    plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min, reduced)
     if key is not None and plan.method == "direct":
         _remember(_PLANS, _PLANS_KEEP, key, plan)
     return plan
@@ -375,11 +378,11 @@ def _frozen_copy(array):
     return array
 
 
-def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min) -> SumPlan:
+def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min, reduced=None) -> SumPlan:
     """:func:`plan_sum` once its arguments are checked: reduce, search, tune, estimate."""
     if sums.square_sum <= 0:
         raise InputError("all charges are zero; there is no electrostatic energy to compute")
-    facts = reduced_cell(user_cell)
+    facts = reduced_cell(user_cell) if reduced is None else reduced
     reduced, change, volume = facts.cell.copy(), facts.change.copy(), facts.volume
     if d_min is None:
         d_min = shortest_distance(reduced, positions)
@@ -417,10 +420,12 @@ def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_m
         sums=sums, background=bool(background), alpha=float(choice.alpha), real_cutoff=float(choice.real_cutoff),
         reciprocal_cutoff=float(reciprocal_cutoff), mesh=shape, order=spline, real_error=float(choice.real_error),
         reciprocal_error=float(recip_error), rounding_error=float(rounding), predicted_seconds=predicted,
-        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None}, inverse=facts.inverse)
+        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None}, lattice=facts.own())
 
 
 def plan_for(crystal, tol, method="auto", alpha=None, mesh=None, order=None, d_min=None) -> SumPlan:
-    """The plan of a crystal's Ewald sum (see :func:`plan_sum`)."""
+    """The plan of a crystal's Ewald sum (see :func:`plan_sum`), with the shortest distance the
+    crystal found when it was checked unless ``d_min`` is given."""
     return plan_sum(crystal.cell, crystal.positions, crystal.charges, tol=tol, method=method, alpha=alpha,
-                    mesh=mesh, order=order, d_min=d_min)
+                    mesh=mesh, order=order, d_min=crystal.shortest_distance if d_min is None else d_min,
+                    reduced=crystal.reduced)
