@@ -278,11 +278,12 @@ def _search_bins(cell, positions, cutoff) -> CellBins:
     return bins
 
 
-#: Up to this many atoms the nearest-neighbour search takes the pair list of the shared walk
-#: (``pairs_from``, which bonds and Madelung constants need anyway) and reduces it with NumPy;
-#: larger cells use the kernel that keeps only the nearest partner, in parallel. The two give the
-#: same distances and partners; a first command on a small cell compiles one search kernel
-#: fewer (about 0.6 s less on a new machine), and the lists stay small (a few dozen pairs per atom).
+#: Up to this many atoms the nearest-neighbour and shortest-distance searches take the pair list
+#: of the shared walk (``pairs_from``, which bonds and Madelung constants need anyway) and reduce
+#: it with NumPy; larger cells use the kernels that keep only the nearest partner or the closest
+#: pair, in parallel. The two give the same distances and partners (the shortest distance to
+#: rounding); a first command on a small cell compiles one search kernel instead of three (about
+#: 1.5 s less on a new machine), and the lists stay small (a few dozen pairs per atom).
 PAIR_LIST_MAX_ATOMS = 1000
 
 
@@ -392,11 +393,15 @@ def _shortest_distance(cell, positions) -> float:
     cutoff = (PACKING_DISTANCE_FACTOR * volume / n) ** (1.0 / 3.0) * PACKING_MARGIN
     while True:
         bins = build_bins(cell, positions, cutoff, bins_per_cutoff=1)
-        k0, k1, k2 = bins.counts.tolist()
-        examined = n * len(bins.offsets) * n / float(k0 * k1 * k2) / 2
-        with thread_budget(examined * EXAMINED_PAIR_NS):
-            found = float(gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
-                                              bins.bin_start))
+        if n <= PAIR_LIST_MAX_ATOMS:
+            distance = neighbour_pairs(cell, positions, cutoff, bins=bins)[2]
+            found = float(distance.min()) if len(distance) else math.inf
+        else:
+            k0, k1, k2 = bins.counts.tolist()
+            examined = n * len(bins.offsets) * n / float(k0 * k1 * k2) / 2
+            with thread_budget(examined * EXAMINED_PAIR_NS):
+                found = float(gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                                  bins.bin_start))
         if found <= cutoff:
             return found
         cutoff *= 2.0

@@ -169,8 +169,11 @@ def walk_context(positions, offsets, half, cell, counts, bin_start):
     """What every walk over the sorted atoms needs, in one tuple: ``(xs, ys, zs, rows, half,
     cell, counts, bin_start)``, with the coordinates as contiguous columns and the stencil rows
     (``stencil_rows``) of the whole stencil or of its half."""
-    return (positions[:, 0].copy(), positions[:, 1].copy(), positions[:, 2].copy(), stencil_rows(offsets, half),
-            half, cell, counts, bin_start)
+    # "... and half": a bool known only at run time, so that stencil_rows is compiled once, not
+    # once for each of the constants True and False the kernels pass
+    rows = stencil_rows(offsets, offsets.shape[1] == 3 and half)
+    return (positions[:, 0].copy(), positions[:, 1].copy(), positions[:, 2].copy(), rows, half, cell, counts,
+            bin_start)
 
 
 @njit(cache=True, inline="always")
