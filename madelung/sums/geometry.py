@@ -302,19 +302,26 @@ def _nearest(cell, positions, charges, cutoff):
 
 
 def _nearest_in_pairs(n, owner, partner, distance, charges):
-    """What the nearest-neighbour kernel returns, from a pair list in walking order: the nearest
-    partner's distance and index (the first of equally near ones) and the nearest of opposite
-    charge sign, per atom (``inf`` and -1 where there is none)."""
+    """What the nearest-neighbour kernel returns, from a pair list in walking order with the pairs
+    of each atom together and the atoms in ascending order (as :func:`neighbour_pairs` gives them
+    for all sites): the nearest partner's distance and index (the first of equally near ones) and
+    the nearest of opposite charge sign, per atom (``inf`` and -1 where there is none)."""
     nearest = np.full(n, np.inf)
-    np.minimum.at(nearest, owner, distance)
-    charges = np.asarray(charges, dtype=np.float64)
     opposite = np.full(n, np.inf)
-    unlike = charges[owner] * charges[partner] < 0.0
-    np.minimum.at(opposite, owner[unlike], distance[unlike])
-    hits = np.flatnonzero(distance == nearest[owner])
-    atoms, first = np.unique(owner[hits], return_index=True)   # a stable sort: the first hit of each atom
     closest = np.full(n, -1, dtype=np.int64)
-    closest[atoms] = partner[hits[first]]
+    if len(owner) == 0:
+        return nearest, closest, opposite
+    counts = np.bincount(owner, minlength=n)
+    atoms = np.flatnonzero(counts)
+    starts = (np.cumsum(counts) - counts)[atoms]
+    nearest[atoms] = np.minimum.reduceat(distance, starts)
+    charges = np.asarray(charges, dtype=np.float64)
+    unlike = charges[owner] * charges[partner] < 0.0
+    opposite[atoms] = np.minimum.reduceat(np.where(unlike, distance, np.inf), starts)
+    hits = np.flatnonzero(distance == nearest[owner])
+    first = np.ones(len(hits), dtype=bool)      # the first hit of each atom
+    first[1:] = owner[hits[1:]] != owner[hits[:-1]]
+    closest[owner[hits[first]]] = partner[hits[first]]
     return nearest, closest, opposite
 
 
