@@ -13,6 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 import spglib
 
+from ..caches import remember
+
 #: Recently reduced cells (bytes of the cell -> :class:`ReducedCell`): a sum reduces the same cell
 #: for its plan, its shortest distance and its bins.
 _REDUCED = {}
@@ -58,8 +60,8 @@ def reduced_cell(cell) -> ReducedCell:
     found = _REDUCED.get(key)
     if found is None:
         found = _reduce(cell)
-        _keep(key, found)
-        _keep(found.cell.tobytes(), found.own())
+        remember(_REDUCED, _REDUCED_KEEP, key, found)
+        remember(_REDUCED, _REDUCED_KEEP, found.cell.tobytes(), found.own())
     return found
 
 
@@ -84,12 +86,6 @@ def niggli_reduced(cell):
     """
     found = reduced_cell(cell)
     return found.cell.copy() if found.by_spglib else None
-
-
-def _keep(key, found):
-    if len(_REDUCED) >= _REDUCED_KEEP:
-        _REDUCED.pop(next(iter(_REDUCED)), None)
-    _REDUCED[key] = found
 
 
 _IDENTITY = np.eye(3, dtype=np.int64)

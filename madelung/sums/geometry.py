@@ -17,6 +17,7 @@ import numba
 import numpy as np
 import spglib
 
+from ..caches import remember
 from ..structure.lattice import plane_spacings, reduced_basis, reduced_cell, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
 from ._kernels import geometry_kernels as gk
 
@@ -138,9 +139,7 @@ def _offset_grid(reach):
         found = (offsets, np.einsum("ij,ij->i", gap, gap))
         for array in found:
             array.setflags(write=False)
-        if len(_OFFSET_GRIDS) >= _OFFSET_GRIDS_KEEP:
-            _OFFSET_GRIDS.pop(next(iter(_OFFSET_GRIDS)))
-        _OFFSET_GRIDS[key] = found
+        remember(_OFFSET_GRIDS, _OFFSET_GRIDS_KEEP, key, found)
     return found
 
 
@@ -164,9 +163,7 @@ def stencil_offsets(cell, counts, reach, cutoff):
     if found is None:
         offsets, gap2 = _offset_grid(reach)
         found = np.ascontiguousarray(offsets[gap2 <= level])
-        if len(_STENCILS) >= _OFFSET_GRIDS_KEEP:
-            _STENCILS.pop(next(iter(_STENCILS)), None)
-        _STENCILS[key] = found
+        remember(_STENCILS, _OFFSET_GRIDS_KEEP, key, found)
     return found
 
 
@@ -381,9 +378,7 @@ def shortest_distance(cell, positions) -> float:
     if found is None:
         found = _shortest_distance(cell, positions)
         if key is not None:
-            if len(_SHORTEST) >= _SHORTEST_KEEP:
-                _SHORTEST.pop(next(iter(_SHORTEST)))
-            _SHORTEST[key] = found
+            remember(_SHORTEST, _SHORTEST_KEEP, key, found)
     return found
 
 

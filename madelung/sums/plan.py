@@ -34,6 +34,7 @@ from functools import cached_property
 import numpy as np
 
 from ..structure.bounds import check_mesh
+from ..caches import remember
 from ..errors import InputError
 from .geometry import build_bins, reduced_cell, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
@@ -78,16 +79,6 @@ def _aim(target):
     return 2.0 ** (math.floor(TARGET_STEPS_PER_OCTAVE * math.log2(target)) / TARGET_STEPS_PER_OCTAVE)
 
 
-def _remember(store, keep, key, value):
-    """Put ``key: value`` into a small store, dropping the oldest entries beyond ``keep``."""
-    try:
-        while len(store) >= keep:
-            store.pop(next(iter(store)), None)
-    except (RuntimeError, StopIteration):   # another thread changed the store meanwhile: keep one more
-        pass
-    store[key] = value
-
-
 #: Half-space boxes of Miller indices by their extent (a plan's k-vectors for any cell of that
 #: extent are a subset); kept for the most recent extents up to a size.
 _HALF_BOXES = {}
@@ -109,7 +100,7 @@ def _half_space_box(hmax):
     found = np.ascontiguousarray(hkl[half].astype(np.int64))
     found.setflags(write=False)
     if len(found) <= _HALF_BOX_MAX_ENTRIES:
-        _remember(_HALF_BOXES, _HALF_BOXES_KEEP, key, found)
+        remember(_HALF_BOXES, _HALF_BOXES_KEEP, key, found)
     return found
 
 
@@ -230,7 +221,7 @@ class SumPlan:
                 None if self.lattice is None else self.lattice.inverse)
             found = KSpace(hkl, kvectors, hmax, k2, weights)
             if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
-                _remember(_KSPACES, _CELL_KEEP, key, found)
+                remember(_KSPACES, _CELL_KEEP, key, found)
         return found
 
     @property
@@ -307,7 +298,7 @@ def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order):
         direct = _DIRECT_CHOICES.get(key)
         if direct is None:
             direct = tuning.choose_direct(target, sums, volume, d_min, k_e, alpha=alpha)
-            _remember(_DIRECT_CHOICES, _CELL_KEEP, key, direct)
+            remember(_DIRECT_CHOICES, _CELL_KEEP, key, direct)
         predicted["direct"] = 1e-9 * direct.predicted_ns
     wants_mesh = method == "mesh" or (method == "auto" and predicted["direct"] >= AUTO_DIRECT_BELOW_SECONDS)
     if wants_mesh:
@@ -365,7 +356,7 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
         user_cell, positions = _frozen_copy(user_cell), _frozen_copy(positions)
     plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min, reduced)
     if key is not None and plan.method == "direct":
-        _remember(_PLANS, _PLANS_KEEP, key, plan)
+        remember(_PLANS, _PLANS_KEEP, key, plan)
     return plan
 
 
