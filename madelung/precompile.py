@@ -19,6 +19,7 @@ import numpy as np
 from .structure.crystal import Crystal
 from .analysis.defects import potential_at
 from .sums.direct import ewald_direct
+from .sums.geometry import build_bins, thread_budget
 from .sums.matrix import coulomb_matrix
 from .sums.mesh import ewald_mesh
 from .sums.shortrange import PairPotential, RepulsionModel, shortrange
@@ -68,8 +69,21 @@ def _steps():
         ("potential and field at points", lambda: potential_at(crystal, points, tol=1e-8, field=True)),
         ("smeared ions at points", lambda: potential_at(crystal, points, tol=1e-8, smearing=0.3)),
         ("short-range pair terms", lambda: shortrange(crystal, model, forces=True, stress=True)),
+        ("neighbour searches of large cells", lambda: _large_cell_searches(crystal)),
         ("parallel variants of the kernels above, for large jobs", _parallel_variants),
     ]
+
+
+def _large_cell_searches(crystal):
+    """The nearest-neighbour and closest-pair kernels, which only cells beyond
+    ``geometry.PAIR_LIST_MAX_ATOMS`` use (smaller ones reduce the pair list), called as
+    :mod:`madelung.sums.geometry` calls them, on one thread (their one-thread twins)."""
+    bins = build_bins(crystal.cell, crystal.positions, 4.0)
+    with thread_budget(0.0):
+        geometry_kernels.nearest_neighbours(bins.positions, bins.sorted_values(crystal.charges), bins.cell,
+                                            bins.counts, bins.offsets, bins.bin_of, bins.bin_start, 4.0)
+        geometry_kernels.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                          bins.bin_start)
 
 
 def _parallel_variants():

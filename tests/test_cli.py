@@ -165,5 +165,16 @@ def test_console_script_exit_codes(tmp_path):
 def test_compile_runs_every_engine(capsys):
     assert main(["compile", "--json"]) == 0
     data = json.loads(capsys.readouterr().out)
-    assert len(data["steps"]) == len(data["seconds"]) == 7   # six engines, then the parallel variants of their kernels
+    # seven engines and searches, then the parallel variants of their kernels
+    assert len(data["steps"]) == len(data["seconds"]) == 8
     assert all(s >= 0 for s in data["seconds"])
+    # every kernel of the sums and the neighbour walk that Python calls is compiled (and so in the
+    # cache) afterwards, parallel kernels with their one-thread twins (kernels called only from
+    # other kernels are compiled into their callers)
+    from madelung.sums._kernels import geometry_kernels, kernels, variants
+    for module in (kernels, geometry_kernels):
+        for name, kernel in vars(module).items():
+            if isinstance(kernel, variants.SerialOnOneThread):
+                assert kernel.serial.signatures and kernel.parallel.signatures, name
+    for kernel in (geometry_kernels.sort_into_bins, geometry_kernels.pairs_from, kernels.k_vector_table):
+        assert kernel.signatures, kernel

@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from madelung.sums.direct import ewald_direct, shortest_distance
+from madelung.sums.direct import ewald_direct
 
 from conftest import random_crystal
 
@@ -22,7 +22,7 @@ def energy(crystal, alpha, d_min):
 def test_forces_are_minus_the_gradient(seed):
     rng = np.random.default_rng(seed)
     crystal = random_crystal(rng)
-    d_min = shortest_distance(crystal)
+    d_min = crystal.shortest_distance
     result = ewald_direct(crystal, tol=1e-13, forces=True, d_min=d_min)
     alpha = result.params.alpha
     h = 1e-5
@@ -44,7 +44,7 @@ def test_stress_is_the_strain_derivative(seed, charged):
     crystal = random_crystal(rng)
     if charged:  # a net charge brings in the background term and its strain dependence
         crystal = crystal.with_charges(crystal.charges + 0.3)
-    d_min = shortest_distance(crystal)
+    d_min = crystal.shortest_distance
     result = ewald_direct(crystal, tol=1e-13, stress=True, d_min=d_min)
     alpha = result.params.alpha
     h = 1e-6

@@ -12,7 +12,7 @@ import madelung
 from madelung.sums import mesh as mesh_module
 from madelung.sums._kernels import mesh_kernels
 from madelung.sums import tuning
-from madelung.sums.direct import ewald_direct, shortest_distance
+from madelung.sums.direct import ewald_direct
 from madelung.sums.mesh import ewald_mesh
 from madelung.units import COULOMB_CONSTANT
 
@@ -30,7 +30,7 @@ def _compare(crystal, tol, forces=True, stress=True):
     charges = np.asarray(crystal.charges)
     energy_allowed = tol * reference.energy_scale
     potential_allowed = 2.0 * energy_allowed / float(np.abs(charges).sum())
-    d_min = shortest_distance(crystal)
+    d_min = crystal.shortest_distance
     assert mesh.params.method == "mesh"
     assert abs(mesh.energy - reference.energy) <= energy_allowed
     potential_error = mesh.potentials - reference.potentials

@@ -47,3 +47,35 @@ def test_random_triclinic_cells_against_brute_force():
 def test_single_atom_sees_its_images():
     cell = np.array([[3.0, 0.0, 0.0], [0.5, 4.0, 0.0], [0.0, 0.0, 5.0]])
     assert shortest_distance(cell, np.zeros((1, 3))) == pytest.approx(3.0, rel=1e-12)
+
+
+@pytest.mark.parametrize("pair_list", [True, False], ids=["pair list", "nearest kernel"])
+def test_both_search_paths_against_brute_force(monkeypatch, pair_list):
+    """Small cells reduce the shared walk's pair list, large ones use the nearest-partner kernel;
+    both must give the brute-force nearest distances (per atom, of any and of opposite sign) and a
+    partner at that distance, and agree with the one-pass shortest distance."""
+    from madelung.sums import geometry
+    monkeypatch.setattr(geometry, "PAIR_LIST_MAX_ATOMS", 10 ** 9 if pair_list else 0)
+    monkeypatch.setattr(geometry, "_SHORTEST", {})
+    rng = np.random.default_rng(29)
+    for _ in range(12):
+        crystal = random_crystal(rng)
+        cell, positions, charges = crystal.cell, crystal.positions, crystal.charges
+        to_any, to_opposite, partner = nearest_neighbour_distances(cell, positions, charges)
+        for i in range(len(positions)):
+            best, best_opposite = np.inf, np.inf
+            for shift in itertools.product(range(-3, 4), repeat=3):
+                d = np.linalg.norm(positions[i] - positions - np.array(shift) @ cell, axis=1)
+                if shift == (0, 0, 0):
+                    d[i] = np.inf
+                best = min(best, d.min())
+                unlike = charges * charges[i] < 0
+                if unlike.any():
+                    best_opposite = min(best_opposite, d[unlike].min())
+            assert to_any[i] == pytest.approx(best, rel=1e-12)
+            assert to_opposite[i] == pytest.approx(best_opposite, rel=1e-12)
+            # the partner named is one at that distance
+            gap = positions[i] - positions[partner[i]]
+            images = [np.linalg.norm(gap - np.array(s) @ cell) for s in itertools.product(range(-3, 4), repeat=3)]
+            assert min(images, key=lambda d: abs(d - best)) == pytest.approx(best, rel=1e-12)
+        assert shortest_distance(cell, positions) == pytest.approx(to_any.min(), rel=1e-12)

@@ -19,6 +19,7 @@ from typing import Mapping
 import numpy as np
 
 from .bounds import COINCIDENT_DISTANCE, check_cell, check_charges
+from .lattice import reduced_cell
 from ..defaults import MAX_ATOMS, MIN_DISTANCE
 from ..errors import InputError
 
@@ -308,6 +309,18 @@ class Crystal:
         return atoms
 
     # ------------------------------------------------------------- geometry
+    @property
+    def reduced(self):
+        """The reduced basis of the lattice with its inverse, volume and plane spacings
+        (:class:`madelung.structure.lattice.ReducedCell`), worked out once."""
+        return self._reduced
+
+    @property
+    def shortest_distance(self) -> float:
+        """Shortest interionic distance, periodic images included, Å (found once, when the crystal
+        was checked)."""
+        return self._shortest
+
     def nearest_distances(self):
         """Shortest distance from every ion to any other ion (images included) and to any ion of
         opposite charge sign (``inf`` where there is none). Returns ``(to_any, to_opposite, partner)``."""
@@ -319,9 +332,11 @@ class Crystal:
         from ..sums.geometry import closest_pair_within, shortest_distance
 
         limit = max(self.min_distance, COINCIDENT_DISTANCE)   # coincident ions: always refused
-        # one pass for the shortest distance (kept for the sum's plan); the pair is looked for
-        # only when it is too short, to be named
-        if shortest_distance(self.cell, self.positions) >= limit:
+        # one pass for the shortest distance (kept: the plan of every sum needs it); the pair is
+        # looked for only when it is too short, to be named
+        self._reduced = reduced_cell(self.cell)
+        self._shortest = shortest_distance(self.cell, self.positions)
+        if self._shortest >= limit:
             return
         pair = closest_pair_within(self.cell, self.positions, limit)
         if pair is not None:

@@ -116,11 +116,6 @@ class EwaldResult:
                 "parameters": self.params.to_dict()}
 
 
-def shortest_distance(crystal) -> float:
-    """Shortest interionic distance of a crystal (images included), Å."""
-    return plan_module.shortest_distance(crystal.cell, crystal.positions)
-
-
 def warn_if_charged(crystal, plan) -> bool:
     """Whether the cell carries a net charge (then a neutralizing background is added, with a warning)."""
     background, net = plan.background, plan.sums.net

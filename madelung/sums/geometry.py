@@ -6,6 +6,7 @@ walk pairs through the same :class:`CellBins`; only their kernels differ.
 
 from __future__ import annotations
 
+import math
 import os
 import threading
 import warnings
@@ -16,7 +17,8 @@ import numba
 import numpy as np
 import spglib
 
-from ..structure.lattice import plane_spacings, reduced_basis, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
+from ..caches import remember
+from ..structure.lattice import plane_spacings, reduced_basis, reduced_cell, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
 from ._kernels import geometry_kernels as gk
 
 def _choose_threading():
@@ -51,15 +53,28 @@ SERIAL_BELOW_NS = 2e6
 EXAMINED_PAIR_NS = 2.5
 
 
-@contextmanager
-def thread_budget(predicted_ns):
-    """Run the kernels inside on one thread when the work is small, else on all of Numba's threads."""
-    previous = numba.get_num_threads()
-    numba.set_num_threads(1 if predicted_ns < SERIAL_BELOW_NS else previous)
-    try:
-        yield
-    finally:
-        numba.set_num_threads(previous)
+class thread_budget:
+    """Run the kernels inside on one thread when the work is small, else on all of Numba's threads
+    (a context manager; Numba's thread count is touched only when it must change)."""
+
+    __slots__ = ("serial", "previous")
+
+    def __init__(self, predicted_ns):
+        self.serial = predicted_ns < SERIAL_BELOW_NS
+        self.previous = None
+
+    def __enter__(self):
+        if self.serial:
+            previous = numba.get_num_threads()
+            if previous != 1:
+                self.previous = previous
+                numba.set_num_threads(1)
+        return self
+
+    def __exit__(self, *exc):
+        if self.previous is not None:
+            numba.set_num_threads(self.previous)
+        return False
 
 
 @dataclass(frozen=True)
@@ -124,9 +139,7 @@ def _offset_grid(reach):
         found = (offsets, np.einsum("ij,ij->i", gap, gap))
         for array in found:
             array.setflags(write=False)
-        if len(_OFFSET_GRIDS) >= _OFFSET_GRIDS_KEEP:
-            _OFFSET_GRIDS.pop(next(iter(_OFFSET_GRIDS)))
-        _OFFSET_GRIDS[key] = found
+        remember(_OFFSET_GRIDS, _OFFSET_GRIDS_KEEP, key, found)
     return found
 
 
@@ -138,31 +151,71 @@ def stencil_offsets(cell, counts, reach, cutoff):
     metric of the edge vectors. Offsets beyond that bound are left out; the bound is exact for
     rectangular bins and only less sharp for oblique ones.
     """
-    edges = np.asarray(cell, float) / np.asarray(counts, float)[:, None]
-    smallest = max(float(np.linalg.eigvalsh(edges @ edges.T)[0]), 0.0)
-    offsets, gap2 = _offset_grid(reach)
-    keep = smallest * gap2 <= cutoff * cutoff * (1 + 1e-12)
-    return np.ascontiguousarray(offsets[keep])
+    e = [[x / float(k) for x in row] for row, k in zip(np.asarray(cell, float).tolist(), np.asarray(counts).tolist())]
+    metric = [[e[a][0] * e[b][0] + e[a][1] * e[b][1] + e[a][2] * e[b][2] for b in range(3)] for a in range(3)]
+    smallest = _smallest_eigenvalue(metric)
+    # the squared gaps are whole numbers, so the stencil depends on the largest one kept only
+    reach = tuple(int(r) for r in reach)
+    limit = cutoff * cutoff * (1 + 1e-12)
+    level = math.inf if smallest <= 0.0 or limit / smallest > 3 * max(reach) ** 2 else math.floor(limit / smallest)
+    key = (reach, level)
+    found = _STENCILS.get(key)
+    if found is None:
+        offsets, gap2 = _offset_grid(reach)
+        found = np.ascontiguousarray(offsets[gap2 <= level])
+        remember(_STENCILS, _OFFSET_GRIDS_KEEP, key, found)
+    return found
 
 
-def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0) -> CellBins:
+#: Stencils by reach and the largest squared gap kept (see :func:`stencil_offsets`).
+_STENCILS = {}
+
+
+def _smallest_eigenvalue(g):
+    """Smallest eigenvalue of a symmetric 3x3 matrix (nested lists), in closed form, a little low
+    rather than high (a lower bound is what the stencil needs).
+
+    References
+    ----------
+    O. K. Smith, Commun. ACM 4 (1961) 168 (eigenvalues of a symmetric 3x3 matrix by the
+    trigonometric solution of its characteristic cubic).
+    """
+    off = g[0][1] ** 2 + g[0][2] ** 2 + g[1][2] ** 2
+    trace = (g[0][0] + g[1][1] + g[2][2]) / 3.0
+    a, b, c = g[0][0] - trace, g[1][1] - trace, g[2][2] - trace
+    p2 = a * a + b * b + c * c + 2.0 * off
+    scale = abs(trace) + math.sqrt(p2)
+    if p2 <= (1e-15 * scale) ** 2:
+        return trace - 1e-12 * scale
+    p = math.sqrt(p2 / 6.0)
+    # det((g - trace I) / p) / 2, clipped to [-1, 1] against rounding
+    det = (a * (b * c - g[1][2] ** 2) - g[0][1] * (g[0][1] * c - g[1][2] * g[0][2])
+           + g[0][2] * (g[0][1] * g[1][2] - b * g[0][2])) / (2.0 * p ** 3)
+    phi = math.acos(min(1.0, max(-1.0, det))) / 3.0
+    return trace + 2.0 * p * math.cos(phi + 2.0 * math.pi / 3.0) - 1e-12 * scale
+
+
+def build_bins(cell, positions, cutoff, bins_per_cutoff=3, max_bins_per_atom=2.0, reduced=None) -> CellBins:
     """Sort atoms into bins about ``cutoff / bins_per_cutoff`` thick along each lattice direction.
 
     The bins are laid on the reduced basis of the lattice (``CellBins.cell``), so the walk visits a
     compact stencil whatever basis the cell is written in; positions and results are Cartesian.
+    ``reduced``: the :class:`~madelung.structure.lattice.ReducedCell` of ``cell``, if at hand.
     """
-    cell, _ = reduced_basis(cell)
+    facts = reduced_cell(cell) if reduced is None else reduced
+    cell = facts.cell.copy()    # writeable: Numba compiles kernels again for read-only arrays
     positions = np.ascontiguousarray(positions, dtype=np.float64)
     n = len(positions)
-    spacing = plane_spacings(cell)
-    counts = np.maximum(1, np.floor(bins_per_cutoff * spacing / cutoff)).astype(np.int64)
+    spacing = facts.spacings.tolist()
+    counts = [max(1, math.floor(bins_per_cutoff * s / cutoff)) for s in spacing]
     limit = max(1.0, max_bins_per_atom * n)
-    while np.prod(counts.astype(float)) > limit:
-        counts = np.maximum(1, counts // 2)
-    reach = np.maximum(np.ceil(cutoff * counts / spacing - 1e-12).astype(np.int64), 0)
-    inverse = np.ascontiguousarray(np.linalg.inv(cell))
-    wrapped, bin_of, order, start = gk.sort_into_bins(positions, inverse, np.ascontiguousarray(cell), counts)
-    return CellBins(cell, wrapped, order, counts, reach, stencil_offsets(cell, counts, reach, cutoff), bin_of, start,
+    while float(counts[0]) * counts[1] * counts[2] > limit:
+        counts = [max(1, k // 2) for k in counts]
+    reach = [max(math.ceil(cutoff * k / s - 1e-12), 0) for k, s in zip(counts, spacing)]
+    offsets = stencil_offsets(cell, counts, reach, cutoff)
+    counts = np.array(counts, dtype=np.int64)
+    wrapped, bin_of, order, start = gk.sort_into_bins(positions, facts.inverse.copy(), cell, counts)
+    return CellBins(cell, wrapped, order, counts, np.array(reach, dtype=np.int64), offsets, bin_of, start,
                     float(cutoff))
 
 
@@ -222,8 +275,20 @@ def _search_bins(cell, positions, cutoff) -> CellBins:
     return bins
 
 
+#: Up to this many atoms the nearest-neighbour and shortest-distance searches take the pair list
+#: of the shared walk (``pairs_from``, which bonds and Madelung constants need anyway) and reduce
+#: it with NumPy; larger cells use the kernels that keep only the nearest partner or the closest
+#: pair, in parallel. The two give the same distances and partners (the shortest distance to
+#: rounding); a first command on a small cell compiles one search kernel instead of three (about
+#: 1.5 s less on a new machine), and the lists stay small (a few dozen pairs per atom).
+PAIR_LIST_MAX_ATOMS = 1000
+
+
 def _nearest(cell, positions, charges, cutoff):
     bins = _search_bins(cell, positions, cutoff)
+    if len(positions) <= PAIR_LIST_MAX_ATOMS:
+        owner, partner, distance = neighbour_pairs(cell, positions, cutoff, bins=bins)
+        return _nearest_in_pairs(len(positions), owner, partner, distance, charges)
     examined = len(positions) ** 2 * bins.examined_volume / abs(np.linalg.det(bins.cell))
     with thread_budget(examined * EXAMINED_PAIR_NS):
         nearest, partner, opposite = gk.nearest_neighbours(
@@ -231,6 +296,30 @@ def _nearest(cell, positions, charges, cutoff):
             bins.bin_of, bins.bin_start, float(cutoff))
     partner = np.where(partner >= 0, bins.order[np.maximum(partner, 0)], -1)
     return bins.unsorted(nearest), bins.unsorted(partner), bins.unsorted(opposite)
+
+
+def _nearest_in_pairs(n, owner, partner, distance, charges):
+    """What the nearest-neighbour kernel returns, from a pair list in walking order with the pairs
+    of each atom together and the atoms in ascending order (as :func:`neighbour_pairs` gives them
+    for all sites): the nearest partner's distance and index (the first of equally near ones) and
+    the nearest of opposite charge sign, per atom (``inf`` and -1 where there is none)."""
+    nearest = np.full(n, np.inf)
+    opposite = np.full(n, np.inf)
+    closest = np.full(n, -1, dtype=np.int64)
+    if len(owner) == 0:
+        return nearest, closest, opposite
+    counts = np.bincount(owner, minlength=n)
+    atoms = np.flatnonzero(counts)
+    starts = (np.cumsum(counts) - counts)[atoms]
+    nearest[atoms] = np.minimum.reduceat(distance, starts)
+    charges = np.asarray(charges, dtype=np.float64)
+    unlike = charges[owner] * charges[partner] < 0.0
+    opposite[atoms] = np.minimum.reduceat(np.where(unlike, distance, np.inf), starts)
+    hits = np.flatnonzero(distance == nearest[owner])
+    first = np.ones(len(hits), dtype=bool)      # the first hit of each atom
+    first[1:] = owner[hits[1:]] != owner[hits[:-1]]
+    closest[owner[hits[first]]] = partner[hits[first]]
+    return nearest, closest, opposite
 
 
 def nearest_neighbour_distances(cell, positions, charges):
@@ -289,9 +378,7 @@ def shortest_distance(cell, positions) -> float:
     if found is None:
         found = _shortest_distance(cell, positions)
         if key is not None:
-            if len(_SHORTEST) >= _SHORTEST_KEEP:
-                _SHORTEST.pop(next(iter(_SHORTEST)))
-            _SHORTEST[key] = found
+            remember(_SHORTEST, _SHORTEST_KEEP, key, found)
     return found
 
 
@@ -304,16 +391,21 @@ _SHORTEST_KEEP = 64
 
 def _shortest_distance(cell, positions) -> float:
     n = len(positions)
-    volume = abs(float(np.linalg.det(cell)))
+    volume = reduced_cell(cell).volume
     cutoff = (PACKING_DISTANCE_FACTOR * volume / n) ** (1.0 / 3.0) * PACKING_MARGIN
     while True:
         bins = build_bins(cell, positions, cutoff, bins_per_cutoff=1)
-        examined = n * len(bins.offsets) * n / float(np.prod(bins.counts)) / 2
-        with thread_budget(examined * EXAMINED_PAIR_NS):
-            found = gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
-                                        bins.bin_start)
+        if n <= PAIR_LIST_MAX_ATOMS:
+            distance = neighbour_pairs(cell, positions, cutoff, bins=bins)[2]
+            found = float(distance.min()) if len(distance) else math.inf
+        else:
+            k0, k1, k2 = bins.counts.tolist()
+            examined = n * len(bins.offsets) * n / float(k0 * k1 * k2) / 2
+            with thread_budget(examined * EXAMINED_PAIR_NS):
+                found = float(gk.closest_distance(bins.positions, bins.cell, bins.counts, bins.offsets, bins.bin_of,
+                                                  bins.bin_start))
         if found <= cutoff:
-            return float(found)
+            return found
         cutoff *= 2.0
 
 

@@ -34,10 +34,12 @@ from functools import cached_property
 import numpy as np
 
 from ..structure.bounds import check_mesh
+from ..caches import remember
 from ..errors import InputError
-from .geometry import build_bins, reduced_basis, shortest_distance, wrapped_fractional
+from .geometry import build_bins, reduced_cell, shortest_distance, wrapped_fractional
 from ..units import COULOMB_CONSTANT
 from . import tuning
+from ._kernels import kernels
 from .tuning import ChargeSums
 
 METHODS = ("auto", "direct", "mesh")
@@ -77,16 +79,6 @@ def _aim(target):
     return 2.0 ** (math.floor(TARGET_STEPS_PER_OCTAVE * math.log2(target)) / TARGET_STEPS_PER_OCTAVE)
 
 
-def _remember(store, keep, key, value):
-    """Put ``key: value`` into a small store, dropping the oldest entries beyond ``keep``."""
-    try:
-        while len(store) >= keep:
-            store.pop(next(iter(store)), None)
-    except (RuntimeError, StopIteration):   # another thread changed the store meanwhile: keep one more
-        pass
-    store[key] = value
-
-
 #: Half-space boxes of Miller indices by their extent (a plan's k-vectors for any cell of that
 #: extent are a subset); kept for the most recent extents up to a size.
 _HALF_BOXES = {}
@@ -95,8 +87,8 @@ _HALF_BOX_MAX_ENTRIES = 50_000
 
 
 def _half_space_box(hmax):
-    """``(hkl int64, hkl float64)``: the Miller indices with |h_a| <= hmax_a, of each pair h, -h the
-    one whose first non-zero index is positive, in a fixed order."""
+    """The Miller indices (int64, read-only) with |h_a| <= hmax_a, of each pair h, -h the one
+    whose first non-zero index is positive, in a fixed order."""
     key = (int(hmax[0]), int(hmax[1]), int(hmax[2]))
     found = _HALF_BOXES.get(key)
     if found is not None:
@@ -105,24 +97,26 @@ def _half_space_box(hmax):
                           np.arange(-key[2], key[2] + 1), indexing="ij")
     hkl = np.stack([h.ravel(), k.ravel(), l.ravel()], axis=1)
     half = (hkl[:, 0] > 0) | ((hkl[:, 0] == 0) & ((hkl[:, 1] > 0) | ((hkl[:, 1] == 0) & (hkl[:, 2] > 0))))
-    hkl = np.ascontiguousarray(hkl[half].astype(np.int64))
-    found = (hkl, hkl.astype(np.float64))
-    for array in found:
-        array.setflags(write=False)
-    if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
-        _remember(_HALF_BOXES, _HALF_BOXES_KEEP, key, found)
+    found = np.ascontiguousarray(hkl[half].astype(np.int64))
+    found.setflags(write=False)
+    if len(found) <= _HALF_BOX_MAX_ENTRIES:
+        remember(_HALF_BOXES, _HALF_BOXES_KEEP, key, found)
     return found
 
 
-def _reciprocal_table(cell, k_cut):
-    """``(hkl, k, hmax, k^2)`` of :func:`reciprocal_vectors`, with the squared lengths (1/Å^2)."""
-    recip = 2.0 * math.pi * np.linalg.inv(cell).T  # rows b_i with a_i . b_j = 2 pi delta_ij
-    hmax = np.floor(k_cut * np.sqrt(np.einsum("ij,ij->i", cell, cell)) / (2.0 * math.pi)).astype(np.int64)
-    hkl, box = _half_space_box(hmax)
-    kv = box @ recip
-    k2 = np.einsum("ij,ij->i", kv, kv)
-    keep = k2 <= k_cut * k_cut
-    return np.ascontiguousarray(hkl[keep]), np.ascontiguousarray(kv[keep]), hmax, np.ascontiguousarray(k2[keep])
+def _reciprocal_table(cell, k_cut, alpha=1.0, volume=None, inverse=None):
+    """``(hkl, k, hmax, k^2, weights)``: the half-space k-vectors with 0 < |k| <= k_cut
+    (:func:`reciprocal_vectors`), their squared lengths (1/Å^2) and Ewald weights at ``alpha``
+    (``kernels.k_vector_table``); ``volume`` and ``inverse`` of ``cell`` if at hand."""
+    cell = np.asarray(cell, dtype=np.float64)
+    inverse = np.linalg.inv(cell) if inverse is None else inverse
+    volume = abs(float(np.linalg.det(cell))) if volume is None else volume
+    lengths = np.sqrt(np.einsum("ij,ij->i", cell, cell))
+    recip = np.ascontiguousarray(2.0 * math.pi * inverse.T)  # rows b_i with a_i . b_j = 2 pi delta_ij
+    hmax = np.floor(k_cut * lengths / (2.0 * math.pi)).astype(np.int64)
+    hkl, kv, k2, weights = kernels.k_vector_table(_half_space_box(hmax), recip, float(k_cut), float(alpha),
+                                                  float(volume))
+    return hkl, kv, hmax, k2, weights
 
 
 def reciprocal_vectors(cell, k_cut):
@@ -131,7 +125,7 @@ def reciprocal_vectors(cell, k_cut):
     Returns ``(hkl (M, 3) int64, k (M, 3) 1/Å, hmax (3,) int64)``; of each pair k, -k only the
     one with the first non-zero Miller index positive is kept.
     """
-    hkl, kv, hmax, _ = _reciprocal_table(np.asarray(cell, dtype=np.float64), k_cut)
+    hkl, kv, hmax, _, _ = _reciprocal_table(cell, k_cut)
     return hkl, kv, hmax
 
 
@@ -168,6 +162,8 @@ class SumPlan:
         part is the mesh's for the mesh engine).
     predicted_seconds : predicted time of each engine considered, s of one thread (None: not considered).
     chosen_by : "auto" or "user".
+    lattice : the :class:`~madelung.structure.lattice.ReducedCell` of ``cell`` (its inverse, plane
+        spacings ...), if known.
     """
 
     method: str
@@ -193,6 +189,7 @@ class SumPlan:
     predicted_seconds: dict
     chosen_by: str
     extra: dict = field(default_factory=dict)
+    lattice: object = None
 
     @property
     def n_atoms(self) -> int:
@@ -210,7 +207,7 @@ class SumPlan:
     @cached_property
     def bins(self):
         """Atoms sorted into bins of the reduced cell for the real-space cutoff (built once)."""
-        return build_bins(self.cell, self.positions, self.real_cutoff)
+        return build_bins(self.cell, self.positions, self.real_cutoff, reduced=self.lattice)
 
     @cached_property
     def kspace(self) -> KSpace:
@@ -219,12 +216,12 @@ class SumPlan:
         key = (self.cell.tobytes(), self.alpha, self.reciprocal_cutoff)
         found = _KSPACES.get(key)
         if found is None:
-            hkl, kvectors, hmax, k2 = _reciprocal_table(self.cell, self.reciprocal_cutoff)
-            weights = np.ascontiguousarray(2.0 * (4.0 * math.pi / self.volume)
-                                           * np.exp(-k2 / (4.0 * self.alpha ** 2)) / k2)
+            hkl, kvectors, hmax, k2, weights = _reciprocal_table(
+                self.cell, self.reciprocal_cutoff, self.alpha, self.volume,
+                None if self.lattice is None else self.lattice.inverse)
             found = KSpace(hkl, kvectors, hmax, k2, weights)
             if len(hkl) <= _HALF_BOX_MAX_ENTRIES:
-                _remember(_KSPACES, _CELL_KEEP, key, found)
+                remember(_KSPACES, _CELL_KEEP, key, found)
         return found
 
     @property
@@ -301,7 +298,7 @@ def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order):
         direct = _DIRECT_CHOICES.get(key)
         if direct is None:
             direct = tuning.choose_direct(target, sums, volume, d_min, k_e, alpha=alpha)
-            _remember(_DIRECT_CHOICES, _CELL_KEEP, key, direct)
+            remember(_DIRECT_CHOICES, _CELL_KEEP, key, direct)
         predicted["direct"] = 1e-9 * direct.predicted_ns
     wants_mesh = method == "mesh" or (method == "auto" and predicted["direct"] >= AUTO_DIRECT_BELOW_SECONDS)
     if wants_mesh:
@@ -314,7 +311,7 @@ def _choose(method, target, sums, volume, lengths, d_min, alpha, mesh, order):
 
 
 def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, mesh=None, order=None,
-             sums=None, d_min=None) -> SumPlan:
+             sums=None, d_min=None, reduced=None) -> SumPlan:
     """Build the plan of a periodic sum.
 
     Parameters
@@ -326,6 +323,7 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
     alpha, mesh, order : optional fixed splitting parameter (1/Å), mesh (3 ints) and spline order.
     sums : ChargeSums, optional; by default from ``charges``.
     d_min : shortest interionic distance, Å (searched if not given).
+    reduced : the :class:`~madelung.structure.lattice.ReducedCell` of ``cell``, if at hand.
 
     Raises
     ------
@@ -356,9 +354,9 @@ def plan_sum(cell, positions, charges=None, *, tol, method="auto", alpha=None, m
         if found is not None:
             return found
         user_cell, positions = _frozen_copy(user_cell), _frozen_copy(positions)
-    plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min)
+    plan = _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min, reduced)
     if key is not None and plan.method == "direct":
-        _remember(_PLANS, _PLANS_KEEP, key, plan)
+        remember(_PLANS, _PLANS_KEEP, key, plan)
     return plan
 
 
@@ -371,19 +369,19 @@ def _frozen_copy(array):
     return array
 
 
-def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min) -> SumPlan:
+def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_min, reduced=None) -> SumPlan:
     """:func:`plan_sum` once its arguments are checked: reduce, search, tune, estimate."""
     if sums.square_sum <= 0:
         raise InputError("all charges are zero; there is no electrostatic energy to compute")
-    reduced, change = reduced_basis(user_cell)
-    volume = abs(float(np.linalg.det(reduced)))
+    facts = reduced_cell(user_cell) if reduced is None else reduced
+    reduced, change, volume = facts.cell.copy(), facts.change.copy(), facts.volume
     if d_min is None:
         d_min = shortest_distance(reduced, positions)
     k_e = COULOMB_CONSTANT
     scale = k_e * sums.square_sum / d_min
     target = tol * scale
     background = abs(sums.net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(sums.square_sum))
-    lengths = np.linalg.norm(reduced, axis=1)
+    lengths = facts.lengths
 
     chosen_by = "auto" if method == "auto" else "user"
     # the rounding floor takes its share of the target: truncation aims at what is left (first
@@ -413,10 +411,12 @@ def _build_plan(user_cell, positions, sums, tol, method, alpha, mesh, order, d_m
         sums=sums, background=bool(background), alpha=float(choice.alpha), real_cutoff=float(choice.real_cutoff),
         reciprocal_cutoff=float(reciprocal_cutoff), mesh=shape, order=spline, real_error=float(choice.real_error),
         reciprocal_error=float(recip_error), rounding_error=float(rounding), predicted_seconds=predicted,
-        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None})
+        chosen_by=chosen_by, extra={"mesh_fixed": mesh is not None}, lattice=facts.own())
 
 
 def plan_for(crystal, tol, method="auto", alpha=None, mesh=None, order=None, d_min=None) -> SumPlan:
-    """The plan of a crystal's Ewald sum (see :func:`plan_sum`)."""
+    """The plan of a crystal's Ewald sum (see :func:`plan_sum`), with the shortest distance the
+    crystal found when it was checked unless ``d_min`` is given."""
     return plan_sum(crystal.cell, crystal.positions, crystal.charges, tol=tol, method=method, alpha=alpha,
-                    mesh=mesh, order=order, d_min=d_min)
+                    mesh=mesh, order=order, d_min=crystal.shortest_distance if d_min is None else d_min,
+                    reduced=crystal.reduced)

@@ -219,17 +219,30 @@ def direct_cost_ns(r_cut, k_cut, n_atoms, volume):
     return real * np.asarray(r_cut) ** 3 + reciprocal * np.asarray(k_cut) ** 3 + fixed
 
 
-def _tail_root(level, power=1.5):
-    """Scalar :func:`_solve_gaussian_tail`: x >= 1 with x^2 + power ln x = level, by Newton."""
+def _tail_root(level, power=1.5, start=None):
+    """Scalar :func:`_solve_gaussian_tail`: x >= 1 with x^2 + power ln x = level, by Newton (from
+    ``start`` when a nearby root is known)."""
     if level <= 1.0:
         return 1.0
-    x = math.sqrt(max(level - 0.5 * power * math.log(level), 1.0))   # ln x ~ ln(level) / 2
+    if start is None:
+        start = math.sqrt(max(level - 0.5 * power * math.log(level), 1.0))   # ln x ~ ln(level) / 2
+    x = start
     for _ in range(12):
         step = (x * x + power * math.log(x) - level) / (2.0 * x + power / x)
         x = max(x - step, 1.0)
         if abs(step) < 1e-7 * x:   # converging quadratically: x is now good to ~1e-14
             break
     return x
+
+
+def _real_error(alpha, r_cut, prefactor):
+    """Scalar :func:`real_space_error` with its prefactor worked out."""
+    return prefactor * math.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
+
+
+def _reciprocal_error(alpha, k_cut, prefactor):
+    """Scalar :func:`reciprocal_space_error` with its prefactor worked out."""
+    return prefactor * math.sqrt(8.0 * alpha ** 2 / k_cut ** 3) * math.exp(-k_cut ** 2 / (4.0 * alpha ** 2))
 
 
 def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
@@ -258,18 +271,20 @@ def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
     density = sums.n_atoms / volume
     r_min = (3.0 * MIN_REAL_NEIGHBOURS / (4.0 * math.pi * density)) ** (1.0 / 3.0)
     k_min = (MIN_K_VECTORS * 12.0 * math.pi ** 2 / volume) ** (1.0 / 3.0)
-    real_level = math.log(_real_prefactor(sums, volume, k_e) / share)
-    recip_level = math.log(_recip_prefactor(sums, volume, k_e) / share)
+    real_prefactor = _real_prefactor(sums, volume, k_e)
+    recip_prefactor = _recip_prefactor(sums, volume, k_e)
+    real_level = math.log(real_prefactor / share)
+    recip_level = math.log(recip_prefactor / share)
     c_real, c_recip, fixed = _direct_cost_coefficients(sums.n_atoms, volume)
+    last = [None, None]   # the latest roots: Newton starts there (alpha moves little between calls)
 
     def x_of(a):
-        return _tail_root(real_level - 0.5 * math.log(a))
+        last[0] = _tail_root(real_level - 0.5 * math.log(a), 1.5, last[0])
+        return last[0]
 
     def y_of(a):
-        return _tail_root(recip_level - 0.5 * math.log(a))
-
-    def cutoffs(a):
-        return max(x_of(a) / a, r_min), max(2.0 * a * y_of(a), k_min)
+        last[1] = _tail_root(recip_level - 0.5 * math.log(a), 1.5, last[1])
+        return last[1]
 
     def stationary(a):
         x, y = x_of(a), y_of(a)
@@ -293,13 +308,13 @@ def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
             candidates.append(0.5 * k_min / _tail_root(recip_level - 0.5 * math.log(0.5 * k_min), 1.0))
     best = None
     for a in candidates:
-        r, k = cutoffs(a)
+        r, k = max(x_of(a) / a, r_min), max(2.0 * a * y_of(a), k_min)
         cost = c_real * r ** 3 + c_recip * k ** 3 + fixed
         if best is None or cost < best[3]:
             best = (a, r, k, cost)
     a, r, k, cost = best
-    return DirectChoice(a, r, k, float(real_space_error(a, r, sums, volume, k_e)) / SAFETY,
-                        float(reciprocal_space_error(a, k, sums, volume, k_e)) / SAFETY, float(cost))
+    return DirectChoice(a, r, k, _real_error(a, r, real_prefactor) / SAFETY,
+                        _reciprocal_error(a, k, recip_prefactor) / SAFETY, float(cost))
 
 
 def mesh_error(alpha, steps, order, sums, k_e):

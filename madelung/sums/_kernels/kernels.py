@@ -190,6 +190,53 @@ def _run_factor(cos0, sin0, cos1, sin1, ia, ib, count, pre_re, pre_im):
 
 
 @njit(cache=True)
+def k_vector_table(box, recip, k_cut, alpha, volume):
+    """The k-vectors of a Miller-index box within ``k_cut`` and their Ewald weights, in one pass.
+
+    ``box`` (M, 3) Miller indices (one of each pair h, -h), ``recip`` (3, 3) reciprocal vectors as
+    rows (2 pi inv(cell).T), 1/Å. Returns ``(hkl, k (1/Å), k^2 (1/Å^2), weights)`` of the indices
+    with 0 < |k| <= k_cut, in box order; weight ``2 (4 pi / V) exp(-k^2 / 4 alpha^2) / k^2`` (the
+    factor 2 counts -k).
+
+    References
+    ----------
+    P. P. Ewald, Ann. Phys. 369 (1921) 253.
+    """
+    m = box.shape[0]
+    kept = np.empty(m, dtype=np.int64)
+    count = 0
+    cut2 = k_cut * k_cut
+    for i in range(m):
+        h0 = float(box[i, 0])
+        h1 = float(box[i, 1])
+        h2 = float(box[i, 2])
+        kx = h0 * recip[0, 0] + h1 * recip[1, 0] + h2 * recip[2, 0]
+        ky = h0 * recip[0, 1] + h1 * recip[1, 1] + h2 * recip[2, 1]
+        kz = h0 * recip[0, 2] + h1 * recip[1, 2] + h2 * recip[2, 2]
+        if kx * kx + ky * ky + kz * kz <= cut2:
+            kept[count] = i
+            count += 1
+    hkl = np.empty((count, 3), dtype=np.int64)
+    kvectors = np.empty((count, 3))
+    k2 = np.empty(count)
+    weights = np.empty(count)
+    prefactor = 2.0 * 4.0 * math.pi / volume
+    for t in range(count):
+        i = kept[t]
+        for a in range(3):
+            hkl[t, a] = box[i, a]
+        h0 = float(box[i, 0])
+        h1 = float(box[i, 1])
+        h2 = float(box[i, 2])
+        for a in range(3):
+            kvectors[t, a] = h0 * recip[0, a] + h1 * recip[1, a] + h2 * recip[2, a]
+        q = kvectors[t, 0] ** 2 + kvectors[t, 1] ** 2 + kvectors[t, 2] ** 2
+        k2[t] = q
+        weights[t] = prefactor * math.exp(-q / (4.0 * alpha * alpha)) / q
+    return hkl, kvectors, k2, weights
+
+
+@njit(cache=True)
 def miller_rows(hkl):
     """Runs of consecutive Miller triples sharing h and k with l rising by one.
 
@@ -214,8 +261,9 @@ def miller_rows(hkl):
 def structure_factors(frac, charges, hkl, hmax, n_chunks):
     """S(k) = sum_j q_j exp(2 pi i (h f1 + k f2 + l f3)) for each Miller triple in ``hkl`` (M, 3).
 
-    Atoms are split into ``n_chunks`` chunks; each chunk sums into its own row, rows are added
-    at the end (pass a fixed number for results independent of the thread count). A chunk's
+    Atoms are split into at most ``n_chunks`` chunks of at least ``BLOCK`` atoms (fewer for small
+    cells); each chunk sums into its own row, rows are added at the end (pass a fixed number for
+    results independent of the thread count). A chunk's
     atoms go in blocks of ``BLOCK``: for each run of consecutive l (``miller_rows``) the factor
     q exp(2 pi i (h f1 + k f2)) of every atom of the block is formed once, and each k-vector of
     the run is one loop over the block's atoms (vector instructions).
@@ -225,7 +273,7 @@ def structure_factors(frac, charges, hkl, hmax, n_chunks):
     m_count = hkl.shape[0]
     start, l_first = miller_rows(hkl)
     n_runs = len(l_first)
-    n_chunks = max(1, min(n_chunks, n))
+    n_chunks = max(1, min(n_chunks, (n + BLOCK - 1) // BLOCK))   # whole blocks: no chunk of a few atoms
     part_re = np.zeros((n_chunks, m_count))
     part_im = np.zeros((n_chunks, m_count))
     chunk = (n + n_chunks - 1) // n_chunks

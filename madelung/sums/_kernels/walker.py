@@ -40,6 +40,9 @@ from numba import njit
 #: Work is split into this many chunks whatever the number of threads, so that the order of
 #: floating-point additions, and with it every digit of the result, does not depend on the machine.
 CHUNKS = 8
+#: ... and no chunk of fewer atoms than this (a small cell is one chunk: each chunk has its own
+#: work space and rows to zero and add, which cost more than a few atoms' pairs).
+CHUNK_MIN_ATOMS = 32
 
 
 @njit(cache=True)
@@ -166,8 +169,11 @@ def walk_context(positions, offsets, half, cell, counts, bin_start):
     """What every walk over the sorted atoms needs, in one tuple: ``(xs, ys, zs, rows, half,
     cell, counts, bin_start)``, with the coordinates as contiguous columns and the stencil rows
     (``stencil_rows``) of the whole stencil or of its half."""
-    return (positions[:, 0].copy(), positions[:, 1].copy(), positions[:, 2].copy(), stencil_rows(offsets, half),
-            half, cell, counts, bin_start)
+    # "... and half": a bool known only at run time, so that stencil_rows is compiled once, not
+    # once for each of the constants True and False the kernels pass
+    rows = stencil_rows(offsets, offsets.shape[1] == 3 and half)
+    return (positions[:, 0].copy(), positions[:, 1].copy(), positions[:, 2].copy(), rows, half, cell, counts,
+            bin_start)
 
 
 @njit(cache=True, inline="always")
@@ -241,9 +247,9 @@ def chunk_bounds(c, n, n_chunks):
 
 @njit(cache=True)
 def chunk_parts(n, want_forces, want_virial):
-    """Zeroed rows of each of min(``CHUNKS``, n) chunks: a number per atom (N), forces (N, 3) and
+    """Zeroed rows of each of min(``CHUNKS``, n // ``CHUNK_MIN_ATOMS``) chunks (at least one): a number per atom (N), forces (N, 3) and
     virial (N, 6) (one row unless asked) and a pair count."""
-    n_chunks = min(CHUNKS, n)
+    n_chunks = max(1, min(CHUNKS, n // CHUNK_MIN_ATOMS))
     n_force = n if want_forces else 1
     n_virial = n if want_virial else 1
     return (np.zeros((n_chunks, n)), np.zeros((n_chunks, n_force, 3)), np.zeros((n_chunks, n_virial, 6)),
