@@ -278,7 +278,7 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
         nearest = crystal.nearest_distances()
         # salts of polyatomic ions are described with each ion one charge at its centre, as the
         # command line and madelung_constants do by default
-        found = find_polyatomic_ions(crystal, shortest=float(np.min(nearest[0])))
+        found = find_polyatomic_ions(crystal)
         if found.found:
             crystal = centred_crystal(crystal, found)
             nearest = crystal.nearest_distances()

@@ -109,7 +109,7 @@ def _limit(a, b, tolerance):
     return ra + rb + tolerance
 
 
-def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=(), shortest=None) -> Bonds:
+def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=()) -> Bonds:
     """Covalent bonds of ``crystal`` by the rule of the module docstring.
 
     Parameters
@@ -119,9 +119,6 @@ def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=(), sh
         Allowance over the covalent-radius sum, Å (default 0.40).
     metal_ligands : iterable of (element, element)
         Extra pairs that bond although one of them is a metal (e.g. ``("Al", "Cl")``).
-    shortest : float, optional
-        The crystal's shortest interionic distance (images included), Å, if known: beyond the
-        longest bond limit there is no bond to look for, and the search is skipped (most salts).
 
     Returns
     -------
@@ -155,8 +152,10 @@ def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=(), sh
     if not limits:
         return empty
     cutoff = max(limits.values())
-    if shortest is not None and shortest > cutoff * (1 + 1e-9):
-        return empty    # no two atoms (nor an atom and its image) come within the longest bond
+    if crystal.shortest_distance > cutoff * (1 + 1e-9):
+        # no two atoms (nor an atom and its image) come within the longest bond: nothing to look
+        # for (the crystal found its shortest distance when it was checked; most salts)
+        return empty
     owner, partner, _ = neighbour_pairs(crystal.cell, crystal.positions, cutoff, sites)
     owner = sites[owner]
     wanted = [(int(i), int(j)) for i, j in zip(owner, partner)

@@ -168,7 +168,7 @@ def _centre(group, symbols, positions):
     return masses @ positions / masses.sum(), None
 
 
-def find_polyatomic_ions(crystal, tolerance=DEFAULT_BOND_TOLERANCE, shortest=None) -> PolyatomicIons:
+def find_polyatomic_ions(crystal, tolerance=DEFAULT_BOND_TOLERANCE) -> PolyatomicIons:
     """Polyatomic ions of ``crystal`` (see the module docstring for the rules).
 
     Parameters
@@ -176,9 +176,6 @@ def find_polyatomic_ions(crystal, tolerance=DEFAULT_BOND_TOLERANCE, shortest=Non
     crystal : Crystal
     tolerance : float
         Allowance over the sum of covalent radii for a bond, Å (default 0.40).
-    shortest : float, optional
-        The crystal's shortest interionic distance, Å, if known (see
-        :func:`~madelung.charges.bonds.bonded_pairs`).
 
     Returns
     -------
@@ -188,7 +185,7 @@ def find_polyatomic_ions(crystal, tolerance=DEFAULT_BOND_TOLERANCE, shortest=Non
     ----------
     B. Cordero et al., Dalton Trans. (2008) 2832.
     """
-    bonds = bonded_pairs(crystal, tolerance, METAL_LIGANDS, shortest)
+    bonds = bonded_pairs(crystal, tolerance, METAL_LIGANDS)
     ions, unrecognised, notes = [], [], []
     for group in bonded_groups(crystal, bonds):
         symbols = [crystal.symbols[i] for i in group.members]
