@@ -55,6 +55,24 @@ def test_salts_hold_their_ions(name):
     assert found.to_dict()["ions"][0]["count"] == count
 
 
+@pytest.mark.parametrize("path", [DATA / name for name in sorted(SALTS)]
+                         + [ROOT / "structures" / f"{name}.cif" for name in ("rocksalt-NaCl", "rutile-TiO2",
+                                                                              "perovskite-SrTiO3")])
+def test_the_shortest_distance_only_skips_searches_that_find_no_bond(path, monkeypatch):
+    # a salt whose atoms all lie farther apart than the longest bond skips the search; the bonds
+    # found are those of the full search either way
+    from madelung.charges.bonds import bonded_pairs
+    from madelung.charges.ion_table import METAL_LIGANDS
+
+    crystal = Crystal.from_file(path)
+    skipped = bonded_pairs(crystal, metal_ligands=METAL_LIGANDS)
+    monkeypatch.setattr(Crystal, "shortest_distance", property(lambda self: 0.0))   # always search
+    searched = bonded_pairs(crystal, metal_ligands=METAL_LIGANDS)
+    assert (len(searched.first) > 0) == (path.parent == DATA)     # the salts of molecular ions have bonds
+    for name in ("first", "second", "shifts", "lengths"):
+        assert np.array_equal(getattr(searched, name), getattr(skipped, name))
+
+
 # Typical bond lengths (Å) and shapes of the table's ions: facts of the trade, values from memory
 # (e.g. C-N 1.16 in cyanide, O-O 1.49 in peroxides and 1.33 in superoxides, N-N 1.17 in azide,
 # C-C 1.20 in acetylide, P-F 1.60, B-F 1.39, Al-Cl 2.13, Si-O 1.63, P-O 1.54, S-O 1.51 in sulfite,

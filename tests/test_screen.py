@@ -254,6 +254,45 @@ def test_a_killed_worker_is_recorded_and_replaced(tmp_path):
         pool.close(kill=True)
 
 
+_POOL_THEN_DIE = """
+import os, signal, sys
+from madelung.batch import LocalPool, ScreenOptions
+pool = LocalPool(2, ScreenOptions())
+print(" ".join(str(w.process.pid) for w in pool.workers), flush=True)
+sys.stdout.close()
+os.kill(os.getpid(), signal.SIGKILL)
+"""
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="workers are forked on Linux only")
+def test_workers_of_a_killed_run_stop():
+    # a worker forked from the run holds copies of the run's pipe ends; it must close them, or it
+    # would wait for its next task for ever once the run is killed (SIGKILL: no clean-up runs)
+    process = subprocess.Popen([sys.executable, "-c", _POOL_THEN_DIE], stdout=subprocess.PIPE, text=True,
+                               env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    pids = [int(p) for p in process.stdout.readline().split()]
+    process.wait(timeout=60)
+    assert len(pids) == 2
+    deadline = time.time() + 30
+    alive = list(pids)
+    try:
+        while alive and time.time() < deadline:
+            time.sleep(0.1)
+            alive = [pid for pid in alive if _running(pid)]
+        assert not alive, f"workers {alive} outlived their killed run"
+    finally:
+        for pid in alive:
+            os.kill(pid, signal.SIGKILL)
+
+
+def _running(pid):
+    try:
+        with open(f"/proc/{pid}/stat") as handle:
+            return handle.read().split(") ")[-1][:1] != "Z"    # a zombie has exited
+    except FileNotFoundError:
+        return False
+
+
 def test_sigkill_at_random_moments_then_resume_gives_the_rows_of_an_uninterrupted_run(tmp_path):
     folder, names = _demo_copy(tmp_path, 24)
     reference = tmp_path / "reference.csv"

@@ -85,7 +85,15 @@ from ..defaults import SCREENING_TOL, SPECTRUM_LENGTH
 
 def spectrum_columns(length=SPECTRUM_LENGTH):
     """Names of the eigenvalue columns."""
-    return [f"ewald_matrix_spectrum_{k:03d}" for k in range(length)]
+    names = _SPECTRUM_NAMES.get(length)
+    if names is None:
+        names = tuple(f"ewald_matrix_spectrum_{k:03d}" for k in range(length))
+        if length <= 1000:
+            _SPECTRUM_NAMES[length] = names
+    return list(names)
+
+
+_SPECTRUM_NAMES = {}
 
 
 _SCALAR_COLUMNS = [
@@ -222,7 +230,7 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_
 def _stats(values):
     if len(values) == 0:
         return (math.nan, math.nan, math.nan)
-    return (float(np.min(values)), float(np.mean(values)), float(np.max(values)))
+    return (float(values.min()), float(values.mean()), float(values.max()))
 
 
 def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=False):
@@ -304,15 +312,15 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
             low, mean, high
     species = {}
     for i in range(n):
-        species.setdefault(crystal.species_label(i), []).append(phi[i])
-    row["species_potentials_V"] = json.dumps({k: [round(v, 10) for v in _stats(np.array(vals))]
-                                              for k, vals in species.items()}, sort_keys=True)
+        species.setdefault(crystal.species_label(i), []).append(i)
+    row["species_potentials_V"] = json.dumps({k: [round(v, 10) for v in _stats(phi[sites])]
+                                              for k, sites in species.items()}, sort_keys=True)
     site = constants.site[np.isfinite(constants.site)]
     row["site_constant_min"], _, row["site_constant_max"] = _stats(site)
     row["charge_min_e"] = float(q.min())
     row["charge_max_e"] = float(q.max())
-    row["charge_mean_abs_e"] = float(np.mean(np.abs(q)))
-    row["charge_rms_e"] = float(np.sqrt(np.mean(q * q)))
+    row["charge_mean_abs_e"] = float(np.abs(q).mean())
+    row["charge_rms_e"] = math.sqrt((q * q).mean())
     if spectrum_length:
         # the shortest distance, known from the sum's energy scale k_e sum(q^2) / d_min
         d_min = COULOMB_CONSTANT * float(np.dot(q, q)) / result.energy_scale

@@ -15,8 +15,8 @@ work
     :func:`screen_task` reads one structure, gives it charges, and describes it; every failure
     becomes the row's ``status`` (``"ok"`` or the message) instead of an exception.
 execution
-    :class:`LocalPool` runs the tasks on worker processes, one task per worker at a time, so a
-    worker that crashes or runs past the per-structure timeout is replaced and its structure is
+    :class:`LocalPool` runs the tasks on worker processes, at most two handed to a worker at a
+    time, so a worker that crashes or runs past the per-structure timeout is replaced and its structure is
     recorded as failed. :class:`DaskExecutor` does the same through ``dask.distributed``.
     Each worker runs Numba and BLAS on one thread: the parallelism is across structures.
 output
@@ -148,18 +148,20 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
 
     # every check that can fail comes before the existing table is touched
     total = count_tasks(inputs, db, select)
-    lock = TableLock(table.path)
-    executor = None
+    # the workers start before the lock is taken: a forked worker would otherwise hold the lock
+    # file open, and keep a resumed run out after this one was killed
+    if scheduler is not None:
+        executor = DaskExecutor(scheduler, options, timeout)
+        name = f"dask ({getattr(executor.client, 'scheduler', None) and executor.client.scheduler.address})"
+    else:
+        count = workers if workers else (os.cpu_count() or 1)
+        executor = LocalPool(count, options, timeout)
+        name = f"local pool ({len(executor.workers)} worker{'s' if len(executor.workers) > 1 else ''})"
+    lock = None
     try:
+        lock = TableLock(table.path)
         for path in outputs:
             remove_stale_temporaries(path)   # left by a run killed mid-write; the lock says none is alive
-        if scheduler is not None:
-            executor = DaskExecutor(scheduler, options, timeout)
-            name = f"dask ({getattr(executor.client, 'scheduler', None) and executor.client.scheduler.address})"
-        else:
-            count = workers if workers else (os.cpu_count() or 1)
-            executor = LocalPool(count, options, timeout)
-            name = f"local pool ({executor.capacity} worker{'s' if executor.capacity > 1 else ''})"
         done_sources = set()
         if resume:
             kept = [row for row in table.read() if row.get("status") == "ok"]
@@ -181,11 +183,15 @@ def screen(inputs=(), out="results.parquet", *, db=None, select=None, charges="f
             if site_writer is not None:
                 site_writer.fresh = True
     except BaseException:
-        if executor is not None:
-            executor.close(kill=True)
-        lock.release()
+        executor.close(kill=True)
+        if lock is not None:
+            lock.release()
         raise
 
+    # while the workers load their kernels, this process loads its table writers
+    for writer in (table, site_writer):
+        if writer is not None:
+            writer.load()
     meter = Progress(total - len(done_sources), enabled=progress, every=progress_every)
     started = time.perf_counter()
     tasks = (t for t in iter_tasks(inputs, db, select) if t.source not in done_sources)

@@ -15,6 +15,7 @@ import numpy as np
 
 from ..structure.crystal import check_size
 from ..errors import InputError, one_line
+from ..io.cif import use_tree_when_faster
 from ..io.read import charge_table
 from ..io.read import read_sites
 from ..io.read import sites_from_atoms
@@ -69,6 +70,7 @@ def prepare_process():
     if _PROCESS_READY:
         return
     _PROCESS_READY = True
+    use_tree_when_faster()    # many files: the k-d tree of site grouping pays where orbits are large
     for name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ[name] = "1"
     try:

@@ -152,6 +152,10 @@ def bonded_pairs(crystal, tolerance=DEFAULT_BOND_TOLERANCE, metal_ligands=()) ->
     if not limits:
         return empty
     cutoff = max(limits.values())
+    if crystal.shortest_distance > cutoff * (1 + 1e-9):
+        # no two atoms (nor an atom and its image) come within the longest bond: nothing to look
+        # for (the crystal found its shortest distance when it was checked; most salts)
+        return empty
     owner, partner, _ = neighbour_pairs(crystal.cell, crystal.positions, cutoff, sites)
     owner = sites[owner]
     wanted = [(int(i), int(j)) for i, j in zip(owner, partner)

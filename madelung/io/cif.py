@@ -49,6 +49,7 @@ _CHEMICAL_SYMBOLS = frozenset(chemical_symbols[1:])
 _DATA_LINE = re.compile(r"^\s*data_", flags=re.MULTILINE | re.IGNORECASE)
 
 
+@functools.lru_cache(maxsize=4096)   # the same few symbols and labels in every file of a batch
 def element_of(text):
     """The element a CIF type symbol or site label names (``Fe3+`` -> Fe, ``O1`` -> O, ``CL2`` -> Cl),
     or None."""
@@ -62,6 +63,7 @@ def element_of(text):
     return two[0] if two[0] in _CHEMICAL_SYMBOLS else None
 
 
+@functools.lru_cache(maxsize=4096)
 def parse_typed_symbol(text):
     """Split a CIF type symbol such as ``Fe3+``, ``O2-``, ``Cl-``, ``Cs+1`` or ``Cl-1`` into
     (element, charge); ``(element, None)`` when the symbol carries no charge (``Fe``, ``Fe1``)."""
@@ -304,6 +306,10 @@ def _number(value, what):
     if text in ("?", "."):
         raise InputError(f"{what} is {text!r} (unknown)")
     try:
+        return float(text)   # no uncertainty in parentheses (float() takes none): most values
+    except ValueError:
+        pass
+    try:
         return float(re.sub(r"\(\d+\)$", "", text))
     except ValueError:
         raise InputError(f"{what} is {text!r}, not a number") from None
@@ -355,7 +361,7 @@ def _rows(block, cell):
         occupancy = 1.0
         if occupancies is not None and str(occupancies[k]).strip() not in ("?", "."):
             occupancy = _number(occupancies[k], f"site {label}: occupancy")
-            if not np.isfinite(occupancy) or occupancy <= 0 or occupancy > 1 + OCCUPANCY_SLACK:
+            if not math.isfinite(occupancy) or occupancy <= 0 or occupancy > 1 + OCCUPANCY_SLACK:
                 raise InputError(f"site {label} has occupancy {occupancies[k]}; occupancies must lie in (0, 1]")
         rows.append((label, element, occupancy, state, point))
     return rows
@@ -390,14 +396,32 @@ def _cell(block, path):
 #: has at most 192 images), see :func:`_by_all_pairs`.
 ALL_PAIRS_UP_TO = 400
 
+#: From this many points the k-d tree is faster than comparing every pair (0.24 ms against 1.5 ms
+#: for an orbit of 192 images), below it slower.
+TREE_FROM = 50
+
+#: Whether a long run (a screening worker) loads the k-d tree at the first set of points where it
+#: pays, instead of comparing every pair up to ALL_PAIRS_UP_TO (see :func:`use_tree_when_faster`).
+_TREE_WHEN_FASTER = False
+
+
+def use_tree_when_faster():
+    """Let this process load scipy.spatial at the first set of points where the k-d tree is faster
+    (a batch of files: the 0.07-0.15 s import is paid once, and only by a batch that has such
+    sets; P1 files never do)."""
+    global _TREE_WHEN_FASTER
+    _TREE_WHEN_FASTER = True
+
 
 def _by_all_pairs(n):
-    """Whether to compare all pairs of ``n`` points rather than build a k-d tree. The tree is faster
-    from about 50 points (0.24 ms against 1.5 ms for an orbit of 192 images), but importing it
-    (scipy.spatial, about 0.15 s) is most of the start-up of a one-structure command: so up to
-    ALL_PAIRS_UP_TO points every pair is compared until something else has loaded the tree (a
-    batch run, a long session). Both ways find the same pairs."""
-    return n <= ALL_PAIRS_UP_TO and "scipy.spatial" not in sys.modules
+    """Whether to compare all pairs of ``n`` points rather than build a k-d tree: below
+    TREE_FROM points always (it is faster); up to ALL_PAIRS_UP_TO points also until something has
+    loaded the tree, because importing it (scipy.spatial, about 0.15 s) is most of the start-up of
+    a one-structure command, unless :func:`use_tree_when_faster` was called (a batch run). Both
+    ways find the same pairs."""
+    if n < TREE_FROM:
+        return True
+    return n <= ALL_PAIRS_UP_TO and "scipy.spatial" not in sys.modules and not _TREE_WHEN_FASTER
 
 
 def _close_pairs(frac, cell, tolerance):
@@ -490,10 +514,11 @@ def _block_sites(block, path, max_atoms, tolerance):
     else:
         frac, owners = _orbits(rows, rotations, translations, cell, tolerance, max_atoms, where)
     groups = sorted(_gather(frac, cell, tolerance), key=min)
-    positions, labels, species = [], [], []
+    firsts, labels, species = [], [], []
     merged_once = set()
+    owner_of = owners.tolist()
     for group in groups:
-        members = sorted(owners[group].tolist())
+        members = sorted(owner_of[i] for i in group)
         parts, names, seen = [], [], {}
         for k in dict.fromkeys(members):
             label, element, occupancy, state, _ = rows[k]
@@ -514,10 +539,10 @@ def _block_sites(block, path, max_atoms, tolerance):
             raise InputError(f"{where}site {name} holds {shown}: total occupancy {total:g}, above 1")
         if total > 1:
             parts = [(el, occ / total, st) for el, occ, st in parts]
-        first = group[0]
-        positions.append(frac[first] - np.floor(frac[first] + 1e-9))
+        firsts.append(group[0])
         labels.append(name)
         species.append(tuple(parts))
     info = {str(k): v for k, v in block.items() if isinstance(v, (str, int, float))}
-    return SiteTable(cell=cell, positions=np.array(positions) @ cell, labels=tuple(labels),
+    positions = frac[firsts] - np.floor(frac[firsts] + 1e-9)     # each group's first image, wrapped
+    return SiteTable(cell=cell, positions=positions.reshape(-1, 3) @ cell, labels=tuple(labels),
                      species=tuple(species), block=block.name, info=info)

@@ -12,6 +12,7 @@ ASE initial charges).
 
 from __future__ import annotations
 
+import math
 import sys
 from typing import Mapping
 
@@ -158,6 +159,9 @@ class Crystal:
             array.setflags(write=False)
 
         self.min_distance = float(min_distance)
+        # kept: the descriptors of one structure ask for them a dozen times
+        self._volume = volume
+        self._element_counts = None
         self._check_overlaps()
 
     # ------------------------------------------------------------------ basics
@@ -171,7 +175,7 @@ class Crystal:
     @property
     def volume(self) -> float:
         """Cell volume, Å^3."""
-        return abs(float(np.linalg.det(self.cell)))
+        return self._volume
 
     @property
     def net_charge(self) -> float:
@@ -190,10 +194,13 @@ class Crystal:
         return "".join(f"{el}{'' if c == 1 else c}" for el, c in counts.items())
 
     def element_counts(self) -> dict:
-        counts: dict[str, int] = {}
-        for s in self.symbols:
-            counts[s] = counts.get(s, 0) + 1
-        return counts
+        """``{element: sites}`` in order of first appearance."""
+        if self._element_counts is None:
+            counts: dict[str, int] = {}
+            for s in self.symbols:
+                counts[s] = counts.get(s, 0) + 1
+            self._element_counts = counts
+        return dict(self._element_counts)
 
     @property
     def formula_units(self) -> int:
@@ -220,6 +227,8 @@ class Crystal:
     def species_label(self, i) -> str:
         """The element of a fully occupied site, else all its rows (with their states where one element
         comes in several), e.g. ``"Fe0.5Ti0.5"``, ``"O0.8"``, ``"Mn3+0.7Mn4+0.3"``, ``"Fe2+0.85Fe3+0.1"``."""
+        if self.species is None:       # every site plain: its element
+            return self.symbols[i]
         parts = self.species_of(i)
         if len(parts) == 1 and parts[0][1] >= 1 - 1e-6:
             return parts[0][0]
@@ -417,7 +426,7 @@ def _resolve_species(species, symbols, occupancies, labels, where):
         if not parts:
             raise InputError(f"{where}site {labels[i]} has no species")
         total = sum(occ for _, occ in parts)
-        if any(not np.isfinite(occ) or occ <= 0 for _, occ in parts) or total > 1 + 1e-6:
+        if any(not math.isfinite(occ) or occ <= 0 for _, occ in parts) or total > 1 + 1e-6:
             raise InputError(f"{where}site {labels[i]} has occupancies {'+'.join(f'{o:g}' for _, o in parts)} "
                              f"= {total:g}; occupancies must be positive and add up to at most 1")
         if abs(total - occupancies[i]) > 1e-6:
@@ -451,7 +460,7 @@ def _resolve_states(states, symbols, species, labels, where):
         entry = (None,) * count if entry is None else tuple(entry)
         if len(entry) != count:
             raise InputError(f"{where}site {labels[i]}: {len(entry)} states given for {count} species")
-        result.append(tuple(None if v is None or not np.isfinite(v) else float(v) for v in entry))
+        result.append(tuple(None if v is None or not math.isfinite(v) else float(v) for v in entry))
     if all(v is None for entry in result for v in entry):
         return None
     return tuple(result)

@@ -44,14 +44,25 @@ _BLAS = []
 
 @contextmanager
 def blas_budget(flops):
-    """Run the BLAS/LAPACK calls inside on one thread when they are small (``flops`` multiply-adds)."""
+    """Run the BLAS/LAPACK calls inside on one thread when they are small (``flops`` multiply-adds).
+
+    The BLAS libraries are found once per process (~0.5 ms); then each library's thread count is
+    read and, where it is not one already, set to one and back (about 1 µs a call; entering
+    threadpoolctl's ``limit`` costs about 10 µs, twice per described structure).
+    """
     if flops >= SERIAL_BLAS_BELOW_FLOPS:
         yield
         return
-    if not _BLAS:   # finding the loaded BLAS libraries takes ~0.5 ms: once per process
-        _BLAS.append(ThreadpoolController().select(user_api="blas"))
-    with _BLAS[0].limit(limits=1):
+    if not _BLAS:
+        _BLAS.append(tuple(ThreadpoolController().select(user_api="blas").lib_controllers))
+    threaded = [(library, count) for library in _BLAS[0] if (count := library.get_num_threads()) != 1]
+    for library, _ in threaded:
+        library.set_num_threads(1)
+    try:
         yield
+    finally:
+        for library, count in threaded:
+            library.set_num_threads(count)
 
 
 def potentials_for_charge_sets(cell, positions, charge_sets, tol=SUM_TOL, d_min=None):
