@@ -289,7 +289,8 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
         # nearest distances the constants need give the plan its shortest distance
         plan = None
         if spectrum_length and n <= MAX_MATRIX_SITES:
-            plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=float(np.min(nearest[0])))
+            plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=float(np.min(nearest[0])),
+                             reduced=crystal.reduced)
         constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan, nearest=nearest)
     result = constants.ewald
     q = np.asarray(crystal.charges, dtype=float)

@@ -138,7 +138,7 @@ class MadelungConstants:
 
 def _common_factor(charges):
     """Highest common factor Z of the charges (a rational value), or None if there is none."""
-    magnitudes = [float(q) for q in np.unique(np.abs(np.asarray(charges, dtype=float))) if q != 0]
+    magnitudes = sorted({abs(q) for q in np.asarray(charges, dtype=float).tolist()} - {0.0})
     values = [Fraction(q).limit_denominator(1000) for q in magnitudes]   # each distinct charge once
     if not values or any(abs(float(v) - q) > 1e-9 for v, q in zip(values, magnitudes)):
         return None
@@ -233,7 +233,7 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     common = _common_factor(charges)
     common_value = None
     common_note = ""
-    fractional = [float(q) for q in charges if abs(q - round(q)) > 1e-9]
+    fractional = [q for q in charges.tolist() if abs(q - round(q)) > 1e-9]
     if fractional:
         # a common factor of fractional charges (Z = 0.5, 0.1) gives constants of no meaning (117.5, 3137)
         common = None

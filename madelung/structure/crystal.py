@@ -326,7 +326,7 @@ class Crystal:
         opposite charge sign (``inf`` where there is none). Returns ``(to_any, to_opposite, partner)``."""
         from ..sums.geometry import nearest_neighbour_distances
 
-        return nearest_neighbour_distances(self.cell, self.positions, self.charges)
+        return nearest_neighbour_distances(self.cell, self.positions, self.charges, reduced=self._reduced)
 
     def _check_overlaps(self):
         from ..sums.geometry import closest_pair_within, shortest_distance

@@ -250,14 +250,14 @@ def shared_bins():
         _SHARED.bins = None
 
 
-def _search_bins(cell, positions, cutoff) -> CellBins:
+def _search_bins(cell, positions, cutoff, reduced=None) -> CellBins:
     """Bins for a neighbour search within ``cutoff``: kept ones inside :func:`shared_bins` where
-    they serve, else new ones."""
+    they serve, else new ones (``reduced``: the cell's ReducedCell, if at hand)."""
     kept = getattr(_SHARED, "bins", None)
     if kept:
-        reduced, _ = reduced_basis(cell)
+        reduced_basis_cell = (reduced_cell(cell) if reduced is None else reduced).cell
         positions = np.ascontiguousarray(positions, dtype=np.float64)
-        key = (reduced.tobytes(), positions.tobytes())
+        key = (reduced_basis_cell.tobytes(), positions.tobytes())
         n = len(positions)
         best = None
         for cell_key, positions_key, bins in kept:
@@ -269,7 +269,7 @@ def _search_bins(cell, positions, cutoff) -> CellBins:
                     best = bins
         if best is not None:
             return best
-    bins = build_bins(cell, positions, cutoff)
+    bins = build_bins(cell, positions, cutoff, reduced=reduced)
     if kept is not None:
         kept.append((bins.cell.tobytes(), np.ascontiguousarray(positions, dtype=np.float64).tobytes(), bins))
     return bins
@@ -284,8 +284,8 @@ def _search_bins(cell, positions, cutoff) -> CellBins:
 PAIR_LIST_MAX_ATOMS = 1000
 
 
-def _nearest(cell, positions, charges, cutoff):
-    bins = _search_bins(cell, positions, cutoff)
+def _nearest(cell, positions, charges, cutoff, reduced=None):
+    bins = _search_bins(cell, positions, cutoff, reduced)
     if len(positions) <= PAIR_LIST_MAX_ATOMS:
         owner, partner, distance = neighbour_pairs(cell, positions, cutoff, bins=bins)
         return _nearest_in_pairs(len(positions), owner, partner, distance, charges)
@@ -322,11 +322,12 @@ def _nearest_in_pairs(n, owner, partner, distance, charges):
     return nearest, closest, opposite
 
 
-def nearest_neighbour_distances(cell, positions, charges):
+def nearest_neighbour_distances(cell, positions, charges, reduced=None):
     """Distance from each atom to its nearest neighbour (any; periodic images count) and to its
     nearest neighbour of opposite charge sign (``inf`` if the structure has none).
 
     Returns ``(to_any, to_opposite, partner)`` with ``partner`` the index of the nearest atom.
+    ``reduced``: the cell's :class:`~madelung.structure.lattice.ReducedCell`, if at hand.
     """
     cell = np.asarray(cell, float)
     positions = np.asarray(positions, float)
@@ -341,7 +342,7 @@ def nearest_neighbour_distances(cell, positions, charges):
     cutoff = 2.0 * (volume / n) ** (1.0 / 3.0)
     longest = np.linalg.norm(cell, axis=1).sum()
     while True:
-        to_any, partner, to_opposite = _nearest(cell, positions, charges, cutoff)
+        to_any, partner, to_opposite = _nearest(cell, positions, charges, cutoff, reduced)
         missing = np.isinf(to_any) | (has_opposite & np.isinf(to_opposite))
         if not missing.any() or cutoff > 2 * longest:
             return to_any, to_opposite, partner

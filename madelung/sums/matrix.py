@@ -129,13 +129,14 @@ def screened_pairs(cell, positions, types, alpha_by_type, r_cut, bins=None):
     return np.bincount(owner * n + partner, weights=erfc(alpha * distance) / distance, minlength=n * n).reshape(n, n)
 
 
-def site_plan(cell, positions, tol=SUM_TOL, d_min=None):
+def site_plan(cell, positions, tol=SUM_TOL, d_min=None, reduced=None):
     """The direct-sum plan of the sites for unit charges on every site: the one the Coulomb matrix
     runs with (its :meth:`~madelung.sums.plan.SumPlan.with_charges` serves any charges on these
-    sites at least as accurately, see there)."""
+    sites at least as accurately, see there). ``reduced``: the cell's
+    :class:`~madelung.structure.lattice.ReducedCell`, if at hand (``Crystal.reduced``)."""
     n = len(positions)
     return plan_sum(cell, positions, sums=ChargeSums(n, float(n), float(n), float(n)), tol=tol, method="direct",
-                    d_min=d_min)
+                    d_min=d_min, reduced=reduced)
 
 
 def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
