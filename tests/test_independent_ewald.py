@@ -101,3 +101,29 @@ def test_random_crystals_in_random_bases_meet_the_contract(seed, neutral):
                         warnings.simplefilter("ignore")   # the background warning of charged cells
                         result = madelung.ewald(basis, tol=tol, method=method)
                     assert abs(result.energy - exact) <= tol * result.energy_scale, (tol, method)
+
+
+@pytest.mark.parametrize("seed", [4, 5])
+def test_sum_from_the_coulomb_matrix_meets_the_contract(seed):
+    """The screening descriptors take a crystal's energy and potentials as J q from its Coulomb
+    matrix (madelung.sums.matrix.matrix_and_sum): the same contract against the independent sum,
+    in two bases; the direct engine on the same layout to rounding; madelung.ewald within tol."""
+    from madelung.sums.direct import run_direct
+    from madelung.sums.matrix import matrix_and_sum, site_plan
+    rng = np.random.default_rng(seed)
+    for _ in range(2):
+        crystal = _random_crystal(rng, neutral=True)
+        exact = reference_energy(crystal.cell, crystal.positions, crystal.charges)
+        for basis in (crystal, crystal.in_basis(_oblique(rng))):
+            for tol in (1e-4, 1e-8):
+                plan = site_plan(basis.cell, basis.positions, tol=tol, d_min=basis.shortest_distance)
+                matrix, result = matrix_and_sum(basis, plan)
+                assert result is not None      # a unit-charge layout serves any neutral charges
+                assert abs(result.energy - exact) <= tol * result.energy_scale, tol
+                assert result.energy == pytest.approx(0.5 * basis.charges @ matrix @ basis.charges, rel=1e-12)
+                same_layout = run_direct(basis, plan.with_charges(basis.charges))
+                assert result.energy == pytest.approx(same_layout.energy, rel=1e-12)
+                assert np.allclose(result.potentials, same_layout.potentials, rtol=0, atol=1e-11)
+                direct = madelung.ewald(basis, tol=tol, method="direct")
+                scale = np.abs(direct.potentials).max()
+                assert np.abs(result.potentials - direct.potentials).max() <= 2 * tol * scale

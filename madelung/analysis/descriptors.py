@@ -75,8 +75,8 @@ import numpy as np
 from ..errors import InputError
 from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
 from ..structure.crystal import Crystal
-from ..sums.geometry import shared_bins
-from ..sums.matrix import blas_budget, coulomb_matrix, site_plan, MAX_MATRIX_SITES
+from ..sums.geometry import nearest_from_pairs, neighbour_pairs, shared_bins
+from ..sums.matrix import blas_budget, coulomb_matrix, matrix_and_sum, site_plan, MAX_MATRIX_SITES
 from ..charges.polyatomic import centred_crystal, find_polyatomic_ions
 from .madelung_constants import madelung_constants
 from ..defaults import SCREENING_TOL, SPECTRUM_LENGTH
@@ -191,20 +191,24 @@ class Description:
         return row
 
 
-def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None):
+def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None, pairs=None, coulomb=None):
     """The Ewald sum matrix ``X[i, j] = q_i q_j J[i, j]`` (eV) defined in the module docstring
-    (``plan``: the crystal's :func:`madelung.sums.matrix.site_plan`, if made already).
+    (``plan``: the crystal's :func:`madelung.sums.matrix.site_plan`, if made already; ``pairs``:
+    its real-space pairs, see :func:`madelung.sums.matrix.coulomb_matrix`; ``coulomb``: the
+    Coulomb matrix J itself, if made already).
 
     References
     ----------
     F. Faber, A. Lindmaa, O. A. von Lilienfeld and R. Armiento, Int. J. Quantum Chem. 115 (2015) 1094.
     """
     q = np.asarray(crystal.charges, dtype=float)
-    coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min, plan=plan)
+    if coulomb is None:
+        coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min, plan=plan, pairs=pairs)
     return q[:, None] * coulomb * q[None, :]
 
 
-def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None, plan=None):
+def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None, plan=None, pairs=None,
+                          coulomb=None):
     """Eigenvalues of :func:`ewald_sum_matrix` sorted by decreasing magnitude, zero-padded to ``length``.
 
     Returns ``(values, note)``: ``note`` is ``""``, says that the spectrum was truncated to the
@@ -216,7 +220,7 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_
     if n > MAX_MATRIX_SITES:
         out[:] = np.nan
         return out, f"not computed: {n} sites, more than the Coulomb-matrix limit of {MAX_MATRIX_SITES}"
-    matrix = ewald_sum_matrix(crystal, tol=tol, d_min=d_min, plan=plan)
+    matrix = ewald_sum_matrix(crystal, tol=tol, d_min=d_min, plan=plan, pairs=pairs, coulomb=coulomb)
     with blas_budget(float(n) ** 3):
         values = np.linalg.eigvalsh(matrix)
     # decreasing magnitude; ties (degenerate pairs +x, -x) broken by sign so the order is unique
@@ -228,9 +232,12 @@ def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_
 
 
 def _stats(values):
+    """(min, mean, max) of an array; the extremes from a list (one NumPy reduction, not three, on
+    arrays of a few numbers), the mean NumPy's own."""
     if len(values) == 0:
         return (math.nan, math.nan, math.nan)
-    return (float(values.min()), float(values.mean()), float(values.max()))
+    listed = values.tolist()
+    return (float(min(listed)), float(values.mean()), float(max(listed)))
 
 
 def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=False):
@@ -273,25 +280,30 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
     if not isinstance(crystal, Crystal):
         raise InputError(f"describe() needs a madelung.Crystal, got {type(crystal).__name__}")
     with shared_bins():
-        # the neighbour searches of one structure sort its atoms once: the bond search for
-        # polyatomic ions and the first shells walk the bins of the nearest-distance search
-        nearest = crystal.nearest_distances()
         # salts of polyatomic ions are described with each ion one charge at its centre, as the
         # command line and madelung_constants do by default
         found = find_polyatomic_ions(crystal)
         if found.found:
             crystal = centred_crystal(crystal, found)
-            nearest = crystal.nearest_distances()
         n = len(crystal)
         # one plan of the sites, tuned for unit charges on every site: the Coulomb matrix of the
         # spectrum needs it, and it is at least as accurate for the crystal's own charges, so the
-        # energy and the Madelung constants run on it too (bins and k-vectors built once); the
-        # nearest distances the constants need give the plan its shortest distance
-        plan = None
+        # energy and the Madelung constants run on it too (bins and k-vectors built once). Its
+        # real-space pairs, found once, serve the Coulomb matrix, the nearest distances and the
+        # first shells (a search of their own only when a nearest partner lies farther out)
+        plan = nearest = pairs = coulomb = result = None
         if spectrum_length and n <= MAX_MATRIX_SITES:
-            plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=float(np.min(nearest[0])),
+            plan = site_plan(crystal.cell, crystal.positions, tol=tol, d_min=crystal.shortest_distance,
                              reduced=crystal.reduced)
-        constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", plan=plan, nearest=nearest)
+            pairs = neighbour_pairs(plan.cell, crystal.positions, plan.real_cutoff, bins=plan.bins)
+            nearest = nearest_from_pairs(*pairs, crystal.charges, partners=False)   # the distances suffice
+            # the Coulomb matrix, and the crystal's own sum as J q from the same terms
+            coulomb, result = matrix_and_sum(crystal, plan, pairs)
+        if nearest is None:
+            nearest = crystal.nearest_distances()
+        constants = madelung_constants(crystal, tol=tol, polyatomic_ions="atoms", ewald_result=result,
+                                       plan=plan if result is None else None, nearest=nearest,
+                                       pairs=None if pairs is None else (*pairs, plan.real_cutoff))
     result = constants.ewald
     q = np.asarray(crystal.charges, dtype=float)
     phi = np.asarray(result.potentials)
@@ -312,20 +324,22 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
         row[f"{name}_potential_min_V"], row[f"{name}_potential_mean_V"], row[f"{name}_potential_max_V"] = \
             low, mean, high
     species = {}
-    for i in range(n):
-        species.setdefault(crystal.species_label(i), []).append(i)
+    for i, label in enumerate(crystal.symbols if crystal.species is None else map(crystal.species_label, range(n))):
+        species.setdefault(label, []).append(i)
     row["species_potentials_V"] = json.dumps({k: [round(v, 10) for v in _stats(phi[sites])]
                                               for k, sites in species.items()}, sort_keys=True)
     site = constants.site[np.isfinite(constants.site)]
     row["site_constant_min"], _, row["site_constant_max"] = _stats(site)
-    row["charge_min_e"] = float(q.min())
-    row["charge_max_e"] = float(q.max())
+    charges = q.tolist()
+    row["charge_min_e"] = float(min(charges))
+    row["charge_max_e"] = float(max(charges))
     row["charge_mean_abs_e"] = float(np.abs(q).mean())
     row["charge_rms_e"] = math.sqrt((q * q).mean())
     if spectrum_length:
         # the shortest distance, known from the sum's energy scale k_e sum(q^2) / d_min
         d_min = COULOMB_CONSTANT * float(np.dot(q, q)) / result.energy_scale
-        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol, d_min=d_min, plan=plan)
+        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol, d_min=d_min, plan=plan, pairs=pairs,
+                                             coulomb=coulomb)
         row.update(zip(spectrum_columns(spectrum_length), (float(v) for v in values)))
     else:
         note = "not computed: spectrum length 0"

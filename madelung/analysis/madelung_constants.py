@@ -57,18 +57,26 @@ CONVENTIONS = ("charges_left_in", "handbook", "common_factor")
 FIRST_SHELL_FACTOR = 1.2
 
 
-def mean_first_shell_distance(crystal, to_opposite=None) -> float:
+def mean_first_shell_distance(crystal, to_opposite=None, pairs=None) -> float:
     """Mean cation–anion distance over every cation's first shell of anions, Å (``to_opposite``:
-    each ion's nearest distance to an ion of opposite sign, if known; see ``Crystal.nearest_distances``)."""
+    each ion's nearest distance to an ion of opposite sign, if known; see ``Crystal.nearest_distances``;
+    ``pairs``: ``(owner, partner, distance, cutoff)``, every pair within ``cutoff`` of every site
+    as :func:`~madelung.sums.geometry.neighbour_pairs` gives them, if at hand)."""
     charges = np.asarray(crystal.charges)
     cations = np.flatnonzero(charges > 0)
     if to_opposite is None:
         _, to_opposite, _ = crystal.nearest_distances()
     reach = FIRST_SHELL_FACTOR * float(np.max(to_opposite[cations])) * (1 + 1e-9)
-    owner, partner, distance = neighbour_pairs(crystal.cell, crystal.positions, reach, sites=cations)
-    anion = charges[partner] < 0
-    owner, distance = owner[anion], distance[anion]
-    nearest = to_opposite[cations][owner]
+    if pairs is not None and reach <= pairs[3]:
+        owner, partner, distance, _ = pairs
+        keep = (charges[owner] > 0) & (charges[partner] < 0)
+        owner, distance = owner[keep], distance[keep]
+        nearest = to_opposite[owner]
+    else:
+        owner, partner, distance = neighbour_pairs(crystal.cell, crystal.positions, reach, sites=cations)
+        anion = charges[partner] < 0
+        owner, distance = owner[anion], distance[anion]
+        nearest = to_opposite[cations][owner]
     shell = distance <= FIRST_SHELL_FACTOR * nearest * (1 + 1e-9)
     return float(np.mean(distance[shell]))
 
@@ -139,6 +147,8 @@ class MadelungConstants:
 def _common_factor(charges):
     """Highest common factor Z of the charges (a rational value), or None if there is none."""
     magnitudes = sorted({abs(q) for q in np.asarray(charges, dtype=float).tolist()} - {0.0})
+    if magnitudes and all(q.is_integer() for q in magnitudes):   # whole charges: their greatest common divisor
+        return float(math.gcd(*(int(q) for q in magnitudes)))
     values = [Fraction(q).limit_denominator(1000) for q in magnitudes]   # each distinct charge once
     if not values or any(abs(float(v) - q) > 1e-9 for v, q in zip(values, magnitudes)):
         return None
@@ -152,7 +162,7 @@ def _common_factor(charges):
 
 
 def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
-                       polyatomic_ions="centre", plan=None, nearest=None) -> MadelungConstants:
+                       polyatomic_ions="centre", plan=None, nearest=None, pairs=None) -> MadelungConstants:
     """Madelung constants of a crystal in every named convention (see the module docstring).
 
     Parameters
@@ -173,6 +183,10 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
         The crystal is then taken as given, as with ``ewald_result``.
     nearest : tuple, optional
         ``crystal.nearest_distances()`` of this very crystal, if found already.
+    pairs : tuple, optional
+        ``(owner, partner, distance, cutoff)``: every pair of this very crystal within ``cutoff``
+        of every site (:func:`~madelung.sums.geometry.neighbour_pairs`), if found already; the
+        first shells are taken from them when they reach far enough.
     polyatomic_ions : {"centre", "atoms"}
         "centre" (default, as the command line): covalently bonded polyatomic ions (carbonate,
         sulfate, hydroxide, ammonium, ...; :mod:`madelung.charges.polyatomic`) count as one charge
@@ -197,7 +211,7 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
             crystal, ions = centred_crystal(crystal, found), found.summary()
     charges = np.asarray(crystal.charges)
     where = f"{crystal.source}: " if crystal.source else ""
-    if not (np.any(charges > 0) and np.any(charges < 0)):
+    if not (charges.max() > 0 > charges.min()):
         raise InputError(f"{where}a Madelung constant needs both cations and anions")
     result = ewald_result
     if result is None and plan is not None:
@@ -247,7 +261,7 @@ def madelung_constants(crystal, tol=SUM_TOL, method="auto", ewald_result=None,
     with np.errstate(divide="ignore", invalid="ignore"):
         site = np.where(charges != 0, -result.potentials * r0 / (k_e * charges), np.nan)
     error = result.error_estimate / z * r0 / k_e
-    r0_mean = mean_first_shell_distance(crystal, to_opposite)
+    r0_mean = mean_first_shell_distance(crystal, to_opposite, pairs)
     return MadelungConstants(
         polyatomic_ions=ions, r0_mean_first_shell=r0_mean, charges_left_in_mean_first_shell=m_in * r0_mean / r0,
         handbook_mean_first_shell=None if handbook is None else handbook * r0_mean / r0,

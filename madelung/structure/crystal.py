@@ -205,7 +205,7 @@ class Crystal:
     @property
     def formula_units(self) -> int:
         """Number of formula units of the reduced composition in the cell."""
-        return int(np.gcd.reduce(np.array(list(self.element_counts().values()), dtype=np.int64)))
+        return math.gcd(*self.element_counts().values())
 
     @property
     def reduced_formula(self) -> str:

@@ -298,7 +298,7 @@ def _nearest(cell, positions, charges, cutoff, reduced=None):
     return bins.unsorted(nearest), bins.unsorted(partner), bins.unsorted(opposite)
 
 
-def _nearest_in_pairs(n, owner, partner, distance, charges):
+def _nearest_in_pairs(n, owner, partner, distance, charges, partners=True):
     """What the nearest-neighbour kernel returns, from a pair list in walking order with the pairs
     of each atom together and the atoms in ascending order (as :func:`neighbour_pairs` gives them
     for all sites): the nearest partner's distance and index (the first of equally near ones) and
@@ -315,11 +315,36 @@ def _nearest_in_pairs(n, owner, partner, distance, charges):
     charges = np.asarray(charges, dtype=np.float64)
     unlike = charges[owner] * charges[partner] < 0.0
     opposite[atoms] = np.minimum.reduceat(np.where(unlike, distance, np.inf), starts)
-    hits = np.flatnonzero(distance == nearest[owner])
-    first = np.ones(len(hits), dtype=bool)      # the first hit of each atom
-    first[1:] = owner[hits[1:]] != owner[hits[:-1]]
-    closest[owner[hits[first]]] = partner[hits[first]]
+    if partners:
+        hits = np.flatnonzero(distance == nearest[owner])
+        first = np.ones(len(hits), dtype=bool)      # the first hit of each atom
+        first[1:] = owner[hits[1:]] != owner[hits[:-1]]
+        closest[owner[hits[first]]] = partner[hits[first]]
     return nearest, closest, opposite
+
+
+def _has_opposite(charges):
+    """Which atoms have an atom of opposite charge sign somewhere in the structure."""
+    has_opposite = np.zeros(len(charges), bool)
+    if np.any(charges > 0):
+        has_opposite |= charges < 0
+    if np.any(charges < 0):
+        has_opposite |= charges > 0
+    return has_opposite
+
+
+def nearest_from_pairs(owner, partner, distance, charges, partners=True):
+    """:func:`nearest_neighbour_distances` from a pair list already at hand: every pair within some
+    cutoff of every atom, as :func:`neighbour_pairs` gives it for all sites (e.g. the real-space
+    pairs of a sum). Returns ``(to_any, to_opposite, partner)``, the same distances, or None when
+    the cutoff left some atom without its nearest neighbour or its nearest one of opposite sign
+    (then search with :func:`nearest_neighbour_distances`). Of equally near partners the first in
+    this list's order is named; with ``partners=False`` none is (``partner`` all -1), which is cheaper."""
+    charges = np.asarray(charges, dtype=np.float64)
+    to_any, closest, to_opposite = _nearest_in_pairs(len(charges), owner, partner, distance, charges, partners)
+    if np.isinf(to_any).any() or (_has_opposite(charges) & np.isinf(to_opposite)).any():
+        return None
+    return to_any, to_opposite, closest
 
 
 def nearest_neighbour_distances(cell, positions, charges, reduced=None):
@@ -334,11 +359,7 @@ def nearest_neighbour_distances(cell, positions, charges, reduced=None):
     charges = np.asarray(charges, float)
     n = len(positions)
     volume = abs(np.linalg.det(cell))
-    has_opposite = np.zeros(n, bool)
-    if np.any(charges > 0):
-        has_opposite |= charges < 0
-    if np.any(charges < 0):
-        has_opposite |= charges > 0
+    has_opposite = _has_opposite(charges)
     cutoff = 2.0 * (volume / n) ** (1.0 / 3.0)
     longest = np.linalg.norm(cell, axis=1).sum()
     while True:

@@ -16,6 +16,7 @@ N^2 and N times the number of k-vectors, so we refuse more than :data:`MAX_MATRI
 from __future__ import annotations
 
 import math
+import time
 from contextlib import contextmanager
 
 import numpy as np
@@ -24,6 +25,7 @@ from threadpoolctl import ThreadpoolController
 from ..errors import InputError
 from .geometry import neighbour_pairs, thread_budget
 from ..units import COULOMB_CONSTANT
+from .direct import EwaldResult, assemble, params_of, warn_if_charged
 from ._kernels import kernels
 from .plan import plan_sum
 from .tuning import ChargeSums
@@ -115,15 +117,18 @@ def potentials_for_charge_sets(cell, positions, charge_sets, tol=SUM_TOL, d_min=
     return out
 
 
-def screened_pairs(cell, positions, types, alpha_by_type, r_cut, bins=None):
+def screened_pairs(cell, positions, types, alpha_by_type, r_cut, bins=None, pairs=None):
     """(N, N) sum over images of ``erfc(alpha_ij r) / r`` within ``r_cut`` (Å^-1, no Coulomb constant),
     ``alpha_ij = alpha_by_type[types[i], types[j]]``; the site itself is left out, its images are not
-    (``bins``: these positions' bins for ``r_cut``, if built already)."""
+    (``bins``: these positions' bins for ``r_cut``, if built already; ``pairs``: their
+    :func:`~madelung.sums.geometry.neighbour_pairs` within exactly ``r_cut``, if found already)."""
     from scipy.special import erfc
 
     n = len(positions)
-    owner, partner, distance = neighbour_pairs(np.ascontiguousarray(cell, dtype=np.float64),
-                                               np.ascontiguousarray(positions, dtype=np.float64), r_cut, bins=bins)
+    if pairs is None:
+        pairs = neighbour_pairs(np.ascontiguousarray(cell, dtype=np.float64),
+                                np.ascontiguousarray(positions, dtype=np.float64), r_cut, bins=bins)
+    owner, partner, distance = pairs
     types = np.asarray(types, dtype=np.int64)
     alpha = np.asarray(alpha_by_type, dtype=np.float64)[types[owner], types[partner]]
     return np.bincount(owner * n + partner, weights=erfc(alpha * distance) / distance, minlength=n * n).reshape(n, n)
@@ -139,7 +144,7 @@ def site_plan(cell, positions, tol=SUM_TOL, d_min=None, reduced=None):
                     d_min=d_min, reduced=reduced)
 
 
-def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
+def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None, pairs=None):
     """The periodic Coulomb interaction matrix of point charges, V per e.
 
     Parameters
@@ -148,6 +153,8 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     tol : accuracy as for :func:`potentials_for_charge_sets` (for unit charges on every site).
     d_min : shortest interionic distance, Å (computed if not given).
     plan : the :func:`site_plan` of these sites, if made already (``tol`` and ``d_min`` are then its own).
+    pairs : with ``plan``, the sites' :func:`~madelung.sums.geometry.neighbour_pairs` within the
+        plan's real-space cutoff, if found already (``(owner, partner, distance)``).
 
     Returns
     -------
@@ -174,10 +181,17 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
         plan = site_plan(cell, positions, tol=tol, d_min=d_min)
     elif plan.method != "direct" or plan.n_atoms != n:
         raise ValueError(f"the Coulomb matrix of {n} sites needs a direct-sum plan of those sites")
+    return _assembled(*_matrix_parts(plan, positions, pairs), plan)
+
+
+def _matrix_parts(plan, positions, pairs=None):
+    """``(real, reciprocal)``, each (N, N) in Gaussian units (1/Å): the screened real-space sum
+    over images and ``sum_k 2 w(k) cos(k . (r_i - r_j))`` (see :func:`coulomb_matrix`)."""
+    n = len(positions)
     a = plan.alpha
     # the plan's own bins (built for its real-space cutoff, and already by a sum of the same plan)
     real = screened_pairs(plan.cell, positions, np.zeros(n, dtype=np.int64), np.full((1, 1), a), plan.real_cutoff,
-                          bins=plan.bins)
+                          bins=plan.bins, pairs=pairs)
     ks = plan.kspace
     # sqrt(w(k)) exp(i k . r_j) for every site and k-vector, as products of one table of
     # exp(2 pi i h f_a) per lattice direction (fewer exponentials than one per site and k-vector);
@@ -189,6 +203,54 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     waves = np.concatenate([waves.real, waves.imag], axis=0)
     with blas_budget(2.0 * n * n * len(ks.weights)):
         recip = waves.T @ waves     # sum_k w(k) cos(k . (r_i - r_j)), twice over the half space
-    matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(n) - math.pi / (plan.volume * a * a)
+    return real, recip
+
+
+def _assembled(real, recip, plan):
+    """The Coulomb matrix (V per e) from its two parts, with the self and background terms."""
+    a = plan.alpha
+    matrix = real + recip - 2.0 * a / math.sqrt(math.pi) * np.eye(len(real)) - math.pi / (plan.volume * a * a)
     matrix = COULOMB_CONSTANT * 0.5 * (matrix + matrix.T)
     return matrix
+
+
+def matrix_and_sum(crystal, plan, pairs=None):
+    """The Coulomb matrix of a crystal's sites and, from the same terms, the crystal's own direct
+    Ewald sum (energy, site potentials; no forces): ``phi = J q``.
+
+    ``plan`` is the :func:`site_plan` of the crystal's sites and ``pairs`` its real-space pairs, if
+    found already (see :func:`coulomb_matrix`). The sum runs on the plan's layout for the
+    crystal's charges (:meth:`~madelung.sums.plan.SumPlan.with_charges`); it is the direct sum
+    with the same splitting parameter, pairs and k-vectors, so it agrees with
+    :func:`madelung.sums.direct.run_direct` to rounding. Returns ``(matrix, EwaldResult)``, the
+    result None when the layout does not meet the plan's ``tol`` for these charges (then sum
+    apart).
+
+    References
+    ----------
+    P. P. Ewald, Ann. Phys. 369 (1921) 253.
+    """
+    started = time.perf_counter()
+    positions = np.ascontiguousarray(crystal.positions, dtype=np.float64)
+    if plan.method != "direct" or plan.n_atoms != len(positions) or len(positions) > MAX_MATRIX_SITES:
+        raise ValueError("the Coulomb matrix of a crystal needs a direct-sum plan of its sites")
+    if pairs is None:
+        pairs = neighbour_pairs(plan.cell, positions, plan.real_cutoff, bins=plan.bins)
+    real, recip = _matrix_parts(plan, positions, pairs)
+    matrix = _assembled(real, recip, plan)
+    charges = np.ascontiguousarray(crystal.charges, dtype=np.float64)
+    charged = plan.with_charges(charges)
+    if not (charged.tol <= plan.tol and charged.error_estimate <= charged.target):
+        return matrix, None
+    background = warn_if_charged(crystal, charged)
+    phi_recip = recip @ charges
+    potentials, energy, components, _, _ = assemble(
+        charges, real @ charges, phi_recip, 0.5 * float(charges @ phi_recip), plan.alpha, plan.volume,
+        charged.sums.net, background, COULOMB_CONSTANT)
+    result = EwaldResult(
+        energy=energy, potentials=potentials, forces=None, stress=None,
+        params=params_of(charged, len(pairs[0]), tuple(int(x) for x in plan.bins.reach)),
+        error_estimate=charged.error_estimate, tol=charged.tol, energy_scale=charged.energy_scale,
+        components=components, net_charge=charged.sums.net, background=bool(background), n_atoms=len(charges),
+        seconds=time.perf_counter() - started, plan=charged)
+    return matrix, result

@@ -28,7 +28,7 @@ basis_change @ user_cell``) records the relation.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
@@ -250,8 +250,8 @@ class SumPlan:
         k_e = COULOMB_CONSTANT
         scale = k_e * sums.square_sum / self.d_min
         safety = tuning.SAFETY
-        plan = replace(
-            self, sums=sums, energy_scale=scale,
+        changes = dict(
+            sums=sums, energy_scale=scale,
             background=bool(abs(sums.net) > NEUTRAL_TOLERANCE * max(1.0, math.sqrt(sums.square_sum))),
             real_error=float(tuning.real_space_error(self.alpha, self.real_cutoff, sums, self.volume, k_e)) / safety,
             reciprocal_error=float(tuning.reciprocal_space_error(self.alpha, self.reciprocal_cutoff, sums,
@@ -261,7 +261,11 @@ class SumPlan:
         # built once, for the sites, and kept by both plans (the charges do not enter): the sum
         # of the new charges needs them, and so does a later use of this plan (the Coulomb matrix)
         for name in ("bins", "kspace"):
-            plan.__dict__[name] = getattr(self, name)
+            getattr(self, name)
+        # a copy of every field and of the bins and k-vectors built, with the new charges' fields
+        # (dataclasses.replace would run the frozen __init__ over all 26 fields again)
+        plan = object.__new__(SumPlan)
+        plan.__dict__.update(self.__dict__, **changes)
         return plan
 
     def to_dict(self) -> dict:

@@ -170,12 +170,16 @@ def _recip_prefactor(sums, volume, k_e):
 
 def real_space_error(alpha, r_cut, sums, volume, k_e):
     """Truncation error of the real-space energy, eV (Kolafa–Perram, coherent over the ions)."""
+    if isinstance(alpha, float) and isinstance(r_cut, float):
+        return _real_error(alpha, r_cut, _real_prefactor(sums, volume, k_e))
     alpha = np.asarray(alpha, dtype=float)
     return _real_prefactor(sums, volume, k_e) * np.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
 
 
 def reciprocal_space_error(alpha, k_cut, sums, volume, k_e):
     """Truncation error of the reciprocal-space energy, eV (Kolafa–Perram, coherent over the ions)."""
+    if isinstance(alpha, float) and isinstance(k_cut, float):
+        return _reciprocal_error(alpha, k_cut, _recip_prefactor(sums, volume, k_e))
     alpha = np.asarray(alpha, dtype=float)
     return (_recip_prefactor(sums, volume, k_e) * np.sqrt(8.0 * alpha ** 2 / k_cut ** 3)
             * np.exp(-k_cut ** 2 / (4.0 * alpha ** 2)))
