@@ -20,7 +20,7 @@ import re
 import numpy as np
 
 from ..errors import InputError
-from .lattice import niggli_reduced, plane_spacings, reduced_basis
+from .lattice import plane_spacings, reduced_cell
 
 #: Longest lattice vector accepted, Å (a micrometre; real periodic models stay far below).
 MAX_CELL_LENGTH = 1.0e4
@@ -207,15 +207,17 @@ def check_cell(cell, positions, source=None, min_distance=0.0):
                          f"{MAX_CELL_LENGTH:g} Å")
     # the Niggli cell the sums reduce to anyway (kept, so no second reduction): its vector lengths
     # are those of the Minkowski-reduced cell; where spglib cannot reduce, ASE's Minkowski reduction
-    reduced = niggli_reduced(cell)
-    if reduced is None:
+    facts = reduced_cell(cell)
+    if facts.by_spglib:
+        reduced, reduced_lengths = facts.cell, facts.lengths
+    else:
         from ase.geometry import minkowski_reduce
 
         try:
             reduced, _ = minkowski_reduce(np.array(cell, dtype=float))
         except Exception:   # the reduction gives up on nearly degenerate cells
             reduced = np.array(cell, dtype=float)
-    reduced_lengths = np.linalg.norm(reduced, axis=1)
+        reduced_lengths = np.linalg.norm(reduced, axis=1)
     shortest = float(reduced_lengths.min())
     if shortest < MIN_CELL_LENGTH:
         raise InputError(f"{where}the shortest lattice vector is {shortest:.3g} Å, below the limit of "
@@ -227,8 +229,8 @@ def check_cell(cell, positions, source=None, min_distance=0.0):
     if aspect > MAX_CELL_ASPECT:
         raise InputError(f"{where}the cell is {aspect:.3g} times longer than wide (reduced lattice vectors "
                          f"{shortest:.4g} to {reduced_lengths.max():.4g} Å), above the limit of {MAX_CELL_ASPECT:g}")
-    walked, _ = reduced_basis(cell)   # the basis the neighbour walks use (the input if it cannot be reduced)
-    skew = float(np.prod(plane_spacings(reduced) / plane_spacings(walked)))
+    # the basis the neighbour walks use is the Niggli cell itself, or the input if spglib cannot reduce it
+    skew = 1.0 if facts.by_spglib else float(np.prod(plane_spacings(reduced) / facts.spacings))
     if skew > MAX_BASIS_SKEW:
         raise InputError(f"{where}the cell is given in a basis {skew:.3g} times more skewed than its reduced cell "
                          f"(lattice vectors up to {longest:.4g} Å for a reduced cell of {shortest:.4g} to "
