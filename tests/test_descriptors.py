@@ -1,6 +1,7 @@
 """Descriptors of one crystal: published Madelung constants, the engine's own energies, and the
 invariances of the Ewald-sum-matrix spectrum."""
 
+import itertools
 import json
 import math
 
@@ -146,3 +147,27 @@ def test_spectrum_invariant_to_the_choice_of_unit_cell(seed):
     other = madelung.Crystal(cell, frac @ cell, crystal.charges, crystal.symbols)
     scale = np.max(np.abs(_spectrum(crystal)))
     assert np.allclose(_spectrum(other), _spectrum(crystal), atol=1e-7 * scale)
+
+
+@pytest.mark.parametrize("name", ["rocksalt-NaCl", "spinel-MgAl2O4", "perovskite-SrTiO3"])
+def test_nearest_distances_from_the_sum_pairs_or_a_search_give_the_same_row(name, monkeypatch):
+    """describe takes the nearest distances from the real-space pairs of its sum when they reach far
+    enough, else searches (Crystal.nearest_distances): both give the same row (to rounding)."""
+    from madelung.analysis import descriptors
+    crystal = load(name)
+    usual = describe(crystal).to_dict()
+    monkeypatch.setattr(descriptors, "nearest_from_pairs", lambda *args, **kwargs: None)
+    searched = describe(crystal).to_dict()
+    for key, value in usual.items():
+        if key.startswith("seconds"):
+            continue
+        if isinstance(value, float):
+            assert searched[key] == pytest.approx(value, rel=1e-12, abs=1e-12, nan_ok=True), key
+        else:
+            assert searched[key] == value, key
+    # and the nearest cation-anion distance is the one a brute-force search over images finds
+    q = crystal.charges
+    best = min(np.linalg.norm(crystal.positions[i] - crystal.positions[j] - np.array(shift) @ crystal.cell)
+               for i in np.flatnonzero(q > 0) for j in np.flatnonzero(q < 0)
+               for shift in itertools.product((-1, 0, 1), repeat=3))
+    assert usual["r0_A"] == pytest.approx(best, rel=1e-12)
