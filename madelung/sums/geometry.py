@@ -279,9 +279,10 @@ def _search_bins(cell, positions, cutoff, reduced=None) -> CellBins:
 #: of the shared walk (``pairs_from``, which bonds and Madelung constants need anyway) and reduce
 #: it with NumPy; larger cells use the kernels that keep only the nearest partner or the closest
 #: pair, in parallel. The two give the same distances and partners (the shortest distance to
-#: rounding); a first command on a small cell compiles one search kernel instead of three (about
-#: 1.5 s less on a new machine), and the lists stay small (a few dozen pairs per atom).
-PAIR_LIST_MAX_ATOMS = 1000
+#: rounding). A first command on a small cell then compiles one search kernel instead of three
+#: (about 2 s less on a new machine); the kernels are faster, by 16 µs at 8 atoms, 60 µs at 64 and
+#: 0.4 ms at 512 for the shortest distance (benchmarks/per_call.py measures the set-up).
+PAIR_LIST_MAX_ATOMS = 64
 
 
 def _nearest(cell, positions, charges, cutoff, reduced=None):
