@@ -73,7 +73,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
-from ..units import COULOMB_CONSTANT, EV_TO_KJ_PER_MOL
+from ..units import EV_TO_KJ_PER_MOL
 from ..structure.crystal import Crystal
 from ..sums.geometry import nearest_from_pairs, neighbour_pairs, shared_bins
 from ..sums.matrix import blas_budget, coulomb_matrix, matrix_and_sum, site_plan, MAX_MATRIX_SITES
@@ -191,11 +191,10 @@ class Description:
         return row
 
 
-def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None, pairs=None, coulomb=None):
+def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None, coulomb=None):
     """The Ewald sum matrix ``X[i, j] = q_i q_j J[i, j]`` (eV) defined in the module docstring
-    (``plan``: the crystal's :func:`madelung.sums.matrix.site_plan`, if made already; ``pairs``:
-    its real-space pairs, see :func:`madelung.sums.matrix.coulomb_matrix`; ``coulomb``: the
-    Coulomb matrix J itself, if made already).
+    (``plan``: the crystal's :func:`madelung.sums.matrix.site_plan`, if made already; ``coulomb``:
+    the Coulomb matrix J itself, if made already).
 
     References
     ----------
@@ -203,24 +202,23 @@ def ewald_sum_matrix(crystal, tol=SCREENING_TOL, d_min=None, plan=None, pairs=No
     """
     q = np.asarray(crystal.charges, dtype=float)
     if coulomb is None:
-        coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min, plan=plan, pairs=pairs)
+        coulomb = coulomb_matrix(crystal.cell, crystal.positions, tol=tol, d_min=d_min, plan=plan)
     return q[:, None] * coulomb * q[None, :]
 
 
-def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None, plan=None, pairs=None,
-                          coulomb=None):
+def ewald_matrix_spectrum(crystal, length=SPECTRUM_LENGTH, tol=SCREENING_TOL, d_min=None, plan=None, coulomb=None):
     """Eigenvalues of :func:`ewald_sum_matrix` sorted by decreasing magnitude, zero-padded to ``length``.
 
     Returns ``(values, note)``: ``note`` is ``""``, says that the spectrum was truncated to the
     ``length`` largest magnitudes, or, for a cell beyond the Coulomb-matrix size limit, says so
-    (values then NaN).
+    (values then NaN). ``plan``, ``coulomb``: as for :func:`ewald_sum_matrix`.
     """
     out = np.zeros(length)
     n = len(crystal)
     if n > MAX_MATRIX_SITES:
         out[:] = np.nan
         return out, f"not computed: {n} sites, more than the Coulomb-matrix limit of {MAX_MATRIX_SITES}"
-    matrix = ewald_sum_matrix(crystal, tol=tol, d_min=d_min, plan=plan, pairs=pairs, coulomb=coulomb)
+    matrix = ewald_sum_matrix(crystal, tol=tol, d_min=d_min, plan=plan, coulomb=coulomb)
     with blas_budget(float(n) ** 3):
         values = np.linalg.eigvalsh(matrix)
     # decreasing magnitude; ties (degenerate pairs +x, -x) broken by sign so the order is unique
@@ -336,10 +334,8 @@ def describe(crystal, tol=SCREENING_TOL, spectrum_length=SPECTRUM_LENGTH, sites=
     row["charge_mean_abs_e"] = float(np.abs(q).mean())
     row["charge_rms_e"] = math.sqrt((q * q).mean())
     if spectrum_length:
-        # the shortest distance, known from the sum's energy scale k_e sum(q^2) / d_min
-        d_min = COULOMB_CONSTANT * float(np.dot(q, q)) / result.energy_scale
-        values, note = ewald_matrix_spectrum(crystal, spectrum_length, tol=tol, d_min=d_min, plan=plan, pairs=pairs,
-                                             coulomb=coulomb)
+        # the matrix was made with the sum above (None beyond the size limit, where the spectrum is NaN)
+        values, note = ewald_matrix_spectrum(crystal, spectrum_length, coulomb=coulomb)
         row.update(zip(spectrum_columns(spectrum_length), (float(v) for v in values)))
     else:
         note = "not computed: spectrum length 0"

@@ -207,6 +207,19 @@ def params_of(plan, pairs, reach, shape=None, **extra) -> EwaldParameters:
                                   "rounding_error_eV": plan.rounding_error, **extra})
 
 
+def planned_result(plan, assembled, params, started, error_estimate=None) -> EwaldResult:
+    """The result of a sum that ran as ``plan`` laid it out: ``assembled`` is what :func:`assemble`
+    returned, ``params`` the record of :func:`params_of`, ``started`` the ``time.perf_counter()``
+    at its start; ``error_estimate`` (eV) replaces the plan's own when the engine refined it."""
+    potentials, energy, components, forces, stress = assembled
+    return EwaldResult(
+        energy=energy, potentials=potentials, forces=forces, stress=stress, params=params,
+        error_estimate=plan.error_estimate if error_estimate is None else error_estimate, tol=plan.tol,
+        energy_scale=plan.energy_scale, components=components, net_charge=plan.sums.net,
+        background=bool(plan.background), n_atoms=len(potentials), seconds=time.perf_counter() - started,
+        plan=plan)
+
+
 def run_direct(crystal, plan, forces=False, stress=False) -> EwaldResult:
     """The direct Ewald sum of ``crystal`` as ``plan`` (method "direct") laid it out.
 
@@ -231,14 +244,10 @@ def run_direct(crystal, plan, forces=False, stress=False) -> EwaldResult:
         half = 0.5 * ks.weights * s2
         factor = 2.0 * (1.0 / ks.k2 + 1.0 / (4.0 * a * a)) * half
         recip_virial = -half.sum() * np.eye(3) + np.einsum("m,ma,mb->ab", factor, ks.kvectors, ks.kvectors)
-    potentials, energy, components, force_array, stress_array = assemble(
-        charges, phi_real, phi_k, e_recip, a, plan.volume, plan.sums.net, background, COULOMB_CONSTANT,
-        (force_real, f_k) if forces else None, (symmetric(real_w), recip_virial) if stress else None)
-    return EwaldResult(
-        energy=energy, potentials=potentials, forces=force_array, stress=stress_array,
-        params=params_of(plan, pairs, reach), error_estimate=plan.error_estimate, tol=plan.tol,
-        energy_scale=plan.energy_scale, components=components, net_charge=plan.sums.net,
-        background=bool(background), n_atoms=len(charges), seconds=time.perf_counter() - started, plan=plan)
+    assembled = assemble(charges, phi_real, phi_k, e_recip, a, plan.volume, plan.sums.net, background,
+                         COULOMB_CONSTANT, (force_real, f_k) if forces else None,
+                         (symmetric(real_w), recip_virial) if stress else None)
+    return planned_result(plan, assembled, params_of(plan, pairs, reach), started)
 
 
 def ewald_direct(crystal, tol=SUM_TOL, forces=False, stress=False, alpha=None, d_min=None) -> EwaldResult:

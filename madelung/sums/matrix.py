@@ -25,7 +25,7 @@ from threadpoolctl import ThreadpoolController
 from ..errors import InputError
 from .geometry import neighbour_pairs, thread_budget
 from ..units import COULOMB_CONSTANT
-from .direct import EwaldResult, assemble, params_of, warn_if_charged
+from .direct import assemble, params_of, planned_result, warn_if_charged
 from ._kernels import kernels
 from .plan import plan_sum
 from .tuning import ChargeSums
@@ -144,7 +144,7 @@ def site_plan(cell, positions, tol=SUM_TOL, d_min=None, reduced=None):
                     d_min=d_min, reduced=reduced)
 
 
-def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None, pairs=None):
+def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None):
     """The periodic Coulomb interaction matrix of point charges, V per e.
 
     Parameters
@@ -153,8 +153,6 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None, pairs=No
     tol : accuracy as for :func:`potentials_for_charge_sets` (for unit charges on every site).
     d_min : shortest interionic distance, Å (computed if not given).
     plan : the :func:`site_plan` of these sites, if made already (``tol`` and ``d_min`` are then its own).
-    pairs : with ``plan``, the sites' :func:`~madelung.sums.geometry.neighbour_pairs` within the
-        plan's real-space cutoff, if found already (``(owner, partner, distance)``).
 
     Returns
     -------
@@ -181,7 +179,7 @@ def coulomb_matrix(cell, positions, tol=SUM_TOL, d_min=None, plan=None, pairs=No
         plan = site_plan(cell, positions, tol=tol, d_min=d_min)
     elif plan.method != "direct" or plan.n_atoms != n:
         raise ValueError(f"the Coulomb matrix of {n} sites needs a direct-sum plan of those sites")
-    return _assembled(*_matrix_parts(plan, positions, pairs), plan)
+    return _assembled(*_matrix_parts(plan, positions), plan)
 
 
 def _matrix_parts(plan, positions, pairs=None):
@@ -219,7 +217,8 @@ def matrix_and_sum(crystal, plan, pairs=None):
     Ewald sum (energy, site potentials; no forces): ``phi = J q``.
 
     ``plan`` is the :func:`site_plan` of the crystal's sites and ``pairs`` its real-space pairs, if
-    found already (see :func:`coulomb_matrix`). The sum runs on the plan's layout for the
+    found already (the sites' :func:`~madelung.sums.geometry.neighbour_pairs` within the plan's
+    real-space cutoff). The sum runs on the plan's layout for the
     crystal's charges (:meth:`~madelung.sums.plan.SumPlan.with_charges`); it is the direct sum
     with the same splitting parameter, pairs and k-vectors, so it agrees with
     :func:`madelung.sums.direct.run_direct` to rounding. Returns ``(matrix, EwaldResult)``, the
@@ -244,13 +243,7 @@ def matrix_and_sum(crystal, plan, pairs=None):
         return matrix, None
     background = warn_if_charged(crystal, charged)
     phi_recip = recip @ charges
-    potentials, energy, components, _, _ = assemble(
-        charges, real @ charges, phi_recip, 0.5 * float(charges @ phi_recip), plan.alpha, plan.volume,
-        charged.sums.net, background, COULOMB_CONSTANT)
-    result = EwaldResult(
-        energy=energy, potentials=potentials, forces=None, stress=None,
-        params=params_of(charged, len(pairs[0]), tuple(int(x) for x in plan.bins.reach)),
-        error_estimate=charged.error_estimate, tol=charged.tol, energy_scale=charged.energy_scale,
-        components=components, net_charge=charged.sums.net, background=bool(background), n_atoms=len(charges),
-        seconds=time.perf_counter() - started, plan=charged)
-    return matrix, result
+    assembled = assemble(charges, real @ charges, phi_recip, 0.5 * float(charges @ phi_recip), plan.alpha,
+                         plan.volume, charged.sums.net, background, COULOMB_CONSTANT)
+    params = params_of(charged, len(pairs[0]), tuple(int(x) for x in plan.bins.reach))
+    return matrix, planned_result(charged, assembled, params, started)

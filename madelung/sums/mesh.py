@@ -66,7 +66,7 @@ from .geometry import thread_budget
 from ._kernels import kernels, mesh_kernels
 from . import tuning
 from . import plan as plan_module
-from .direct import EwaldResult, assemble, params_of, real_space_part, symmetric, warn_if_charged
+from .direct import EwaldResult, assemble, params_of, planned_result, real_space_part, symmetric, warn_if_charged
 from .tuning import ChargeSums
 from ..defaults import SUM_TOL
 
@@ -338,20 +338,16 @@ def run_mesh(crystal, plan, forces=False, stress=False, check="auto") -> EwaldRe
             shape = _refined(shape, measured / mesh_target, order)
             mesh_error = tuning.mesh_error(a, tuning.mesh_steps(lengths, shape), order, plan.sums, COULOMB_CONSTANT)
 
-    potentials, energy, components, force_array, stress_array = assemble(
-        charges, phi_real, phi_k, e_mesh, a, plan.volume, plan.sums.net, background, COULOMB_CONSTANT,
-        (force_real, f_k) if forces else None, (symmetric(real_w), symmetric(w_k)) if stress else None)
+    assembled = assemble(charges, phi_real, phi_k, e_mesh, a, plan.volume, plan.sums.net, background,
+                         COULOMB_CONSTANT, (force_real, f_k) if forces else None,
+                         (symmetric(real_w), symmetric(w_k)) if stress else None)
     spreading = (f"slabs of mesh planes along axis 0, {threads} threads" if threads > 1
                  else "serial (one thread)")
     params = params_of(plan, pairs, reach, shape=shape, mesh=tuple(int(k) for k in shape), order=int(order),
                        spreading=spreading, predicted_seconds=plan.predicted_seconds["mesh"], checks=checks,
                        check=checks[-1] if checks else None, mesh_error_eV=mesh_error)
-    error = plan.real_error + mesh_error + plan.rounding_error
-    return EwaldResult(
-        energy=energy, potentials=potentials, forces=force_array, stress=stress_array, params=params,
-        error_estimate=error, tol=plan.tol, energy_scale=plan.energy_scale, components=components,
-        net_charge=plan.sums.net, background=bool(background), n_atoms=len(charges),
-        seconds=time.perf_counter() - started, plan=plan)
+    return planned_result(plan, assembled, params, started,
+                          error_estimate=plan.real_error + mesh_error + plan.rounding_error)
 
 
 def _refined(shape, excess, order):
