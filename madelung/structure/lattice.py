@@ -114,9 +114,7 @@ def _facts(cell, change, by_spglib):
     det = _det(rows)
     inverse = _inverse(rows, det)
     lengths = [math.sqrt(x * x + y * y + z * z) for x, y, z in rows]
-    # the spacing of planes (a) is 1 / |b_a| with b_a the reciprocal vector: column a of the inverse
-    spacings = [1.0 / math.sqrt(inverse[0][a] ** 2 + inverse[1][a] ** 2 + inverse[2][a] ** 2) for a in range(3)]
-    arrays = (cell, np.asarray(change, dtype=np.int64), np.array(inverse), np.array(lengths), np.array(spacings))
+    arrays = (cell, np.asarray(change, dtype=np.int64), np.array(inverse), np.array(lengths), _spacings(inverse))
     for array in arrays:
         array.setflags(write=False)
     return ReducedCell(arrays[0], arrays[1], arrays[2], abs(det), arrays[3], arrays[4], by_spglib)
@@ -150,8 +148,12 @@ def plane_spacings(cell) -> np.ndarray:
     ``|r| / spacing[a]``.
     """
     rows = np.asarray(cell, dtype=float).tolist()
-    inverse = _inverse(rows, _det(rows))
-    # the spacing of planes (a) is 1 / |b_a| with b_a the reciprocal vector: column a of the inverse
+    return _spacings(_inverse(rows, _det(rows)))
+
+
+def _spacings(inverse):
+    """Plane spacings (array) from the inverse cell (nested lists): the spacing of planes (a) is
+    1 / |b_a|, with b_a the reciprocal vector, column a of the inverse."""
     return np.array([1.0 / math.sqrt(inverse[0][a] ** 2 + inverse[1][a] ** 2 + inverse[2][a] ** 2) for a in range(3)])
 
 

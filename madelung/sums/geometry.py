@@ -9,13 +9,11 @@ from __future__ import annotations
 import math
 import os
 import threading
-import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numba
 import numpy as np
-import spglib
 
 from ..caches import remember
 from ..structure.lattice import plane_spacings, reduced_basis, reduced_cell, wrapped_fractional  # noqa: F401  (re-exported for the walkers)
@@ -334,6 +332,12 @@ def _has_opposite(charges):
     return has_opposite
 
 
+def _missing(to_any, to_opposite, has_opposite):
+    """Atoms whose nearest neighbour, or nearest one of opposite sign where there is one, a search
+    did not reach."""
+    return np.isinf(to_any) | (has_opposite & np.isinf(to_opposite))
+
+
 def nearest_from_pairs(owner, partner, distance, charges, partners=True):
     """:func:`nearest_neighbour_distances` from a pair list already at hand: every pair within some
     cutoff of every atom, as :func:`neighbour_pairs` gives it for all sites (e.g. the real-space
@@ -343,7 +347,7 @@ def nearest_from_pairs(owner, partner, distance, charges, partners=True):
     this list's order is named; with ``partners=False`` none is (``partner`` all -1), which is cheaper."""
     charges = np.asarray(charges, dtype=np.float64)
     to_any, closest, to_opposite = _nearest_in_pairs(len(charges), owner, partner, distance, charges, partners)
-    if np.isinf(to_any).any() or (_has_opposite(charges) & np.isinf(to_opposite)).any():
+    if _missing(to_any, to_opposite, _has_opposite(charges)).any():
         return None
     return to_any, to_opposite, closest
 
@@ -365,8 +369,7 @@ def nearest_neighbour_distances(cell, positions, charges, reduced=None):
     longest = np.linalg.norm(cell, axis=1).sum()
     while True:
         to_any, partner, to_opposite = _nearest(cell, positions, charges, cutoff, reduced)
-        missing = np.isinf(to_any) | (has_opposite & np.isinf(to_opposite))
-        if not missing.any() or cutoff > 2 * longest:
+        if not _missing(to_any, to_opposite, has_opposite).any() or cutoff > 2 * longest:
             return to_any, to_opposite, partner
         cutoff *= 2.0
 

@@ -170,19 +170,18 @@ def _recip_prefactor(sums, volume, k_e):
 
 def real_space_error(alpha, r_cut, sums, volume, k_e):
     """Truncation error of the real-space energy, eV (Kolafa–Perram, coherent over the ions)."""
+    prefactor = _real_prefactor(sums, volume, k_e)
     if isinstance(alpha, float) and isinstance(r_cut, float):
-        return _real_error(alpha, r_cut, _real_prefactor(sums, volume, k_e))
-    alpha = np.asarray(alpha, dtype=float)
-    return _real_prefactor(sums, volume, k_e) * np.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
+        return _real_error(alpha, r_cut, prefactor)
+    return _real_error(np.asarray(alpha, dtype=float), r_cut, prefactor, np.exp)
 
 
 def reciprocal_space_error(alpha, k_cut, sums, volume, k_e):
     """Truncation error of the reciprocal-space energy, eV (Kolafa–Perram, coherent over the ions)."""
+    prefactor = _recip_prefactor(sums, volume, k_e)
     if isinstance(alpha, float) and isinstance(k_cut, float):
-        return _reciprocal_error(alpha, k_cut, _recip_prefactor(sums, volume, k_e))
-    alpha = np.asarray(alpha, dtype=float)
-    return (_recip_prefactor(sums, volume, k_e) * np.sqrt(8.0 * alpha ** 2 / k_cut ** 3)
-            * np.exp(-k_cut ** 2 / (4.0 * alpha ** 2)))
+        return _reciprocal_error(alpha, k_cut, prefactor)
+    return _reciprocal_error(np.asarray(alpha, dtype=float), k_cut, prefactor, np.exp, np.sqrt)
 
 
 def _solve_gaussian_tail(level):
@@ -239,14 +238,14 @@ def _tail_root(level, power=1.5, start=None):
     return x
 
 
-def _real_error(alpha, r_cut, prefactor):
-    """Scalar :func:`real_space_error` with its prefactor worked out."""
-    return prefactor * math.exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
+def _real_error(alpha, r_cut, prefactor, exp=math.exp):
+    """:func:`real_space_error` with its prefactor worked out (``exp``: NumPy's for arrays)."""
+    return prefactor * exp(-(alpha * r_cut) ** 2) / (alpha ** 2 * r_cut ** 1.5)
 
 
-def _reciprocal_error(alpha, k_cut, prefactor):
-    """Scalar :func:`reciprocal_space_error` with its prefactor worked out."""
-    return prefactor * math.sqrt(8.0 * alpha ** 2 / k_cut ** 3) * math.exp(-k_cut ** 2 / (4.0 * alpha ** 2))
+def _reciprocal_error(alpha, k_cut, prefactor, exp=math.exp, sqrt=math.sqrt):
+    """:func:`reciprocal_space_error` with its prefactor worked out (``exp``, ``sqrt``: NumPy's for arrays)."""
+    return prefactor * sqrt(8.0 * alpha ** 2 / k_cut ** 3) * exp(-k_cut ** 2 / (4.0 * alpha ** 2))
 
 
 def choose_direct(target, sums, volume, d_min, k_e, alpha=None) -> DirectChoice:
